@@ -1,0 +1,47 @@
+"""Exception and warning classes of rgftrans.
+
+Every error the package raises for bad input is a subclass of
+:class:`RgftransError` and carries a one-line message that names what is
+wrong, quotes the offending value and says how to fix it.  The command line
+prints that line and exits with status 2; nothing else is shown.
+"""
+
+
+class RgftransError(ValueError):
+    """Base class of all input errors raised by rgftrans."""
+
+
+class GeometryError(RgftransError):
+    """A region or shape is malformed (empty, self-intersecting, disconnected)."""
+
+
+class LatticeError(RgftransError):
+    """A lattice is malformed (non-positive spacing, degenerate vectors)."""
+
+
+class LeadError(RgftransError):
+    """A lead does not fit the device (misses it, overlaps it, too wide)."""
+
+
+class PotentialError(RgftransError):
+    """An onsite potential is malformed (NaN, infinite, wrong shape)."""
+
+
+class MaterialError(RgftransError):
+    """An unknown material or a non-physical material parameter."""
+
+
+class EnergyError(RgftransError):
+    """Energies that cannot be used (NaN, empty array)."""
+
+
+class RgftransWarning(UserWarning):
+    """Base class of warnings about legal but suspicious input."""
+
+
+class ThresholdWarning(RgftransWarning):
+    """An energy sits on a lead channel threshold; a small imaginary part was added."""
+
+
+class ResolutionWarning(RgftransWarning):
+    """A discretisation or energy grid too coarse for the physics it should resolve."""

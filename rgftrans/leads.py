@@ -1,0 +1,342 @@
+"""Semi-infinite leads: Bloch modes, surface Green's functions, self-energies.
+
+A lead is a periodic strip of cells numbered ``j = 0, 1, 2, ...`` away from the
+device.  ``h_cell`` is the Hamiltonian of one cell and ``h_hop`` the hopping
+``<j| H |j+1>`` from a cell to the next one *outward*.  Cell 0 couples to the
+device through ``coupling = <device interface| H |cell 0>``.
+
+Two independent routes give the retarded surface Green's function ``g_surface``
+of cell 0 (the lead on its own):
+
+* :func:`lead_modes` / :func:`surface_green_modes` -- the mode method.  Bloch
+  solutions ``psi_j = lam**j phi`` solve the quadratic eigenproblem
+  ``h_hop^dag phi + (h_cell - E) lam phi + h_hop lam^2 phi = 0``, linearised
+  as a generalised eigenproblem so that a singular ``h_hop`` (zero and
+  infinite ``lam``) is handled.  The outgoing solutions (``|lam| < 1``, or
+  ``|lam| = 1`` with positive velocity) give the transfer matrix
+  ``F = Phi Lam Phi^-1`` and ``g_surface = (E - h_cell - h_hop F)^-1``.
+  This is the default: it is exact at real energies and it also classifies the
+  open channels (count, velocities, wave functions) that the Fisher-Lee
+  relation needs.
+* :func:`surface_green_decimation` -- Sancho-Rubio decimation
+  (M. P. Lopez Sancho, J. M. Lopez Sancho, J. Rubio, J. Phys. F 15, 851 (1985),
+  from memory).  It needs a small imaginary part ``eta`` and, in double
+  precision, fails when the energy equals an eigenvalue of the isolated cell
+  (an observation of ours: the renormalised cell Green's function loses all
+  digits there).  It is kept as an independent check of the mode method.
+
+The self-energy of the device interface is ``sigma = V g_surface V^dag`` and
+the broadening ``gamma = i (sigma - sigma^dag)``.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg as sla
+
+from .errors import EnergyError, ThresholdWarning
+
+__all__ = [
+    "LeadModes",
+    "lead_modes",
+    "surface_green_modes",
+    "surface_green_decimation",
+]
+
+#: A Bloch factor with ``| |lam| - 1 | <`` this counts as propagating (at real energy).
+#: The eigen-solver resolves a double root near a band edge only to about
+#: sqrt(machine epsilon) ~ 1e-8, so the window must be wider than that.
+PROPAGATING_TOL = 1e-6
+#: A propagating mode whose velocity is below this fraction of the hopping scale
+#: sits on a channel threshold (band edge); the energy is then shifted into the
+#: upper half plane by ``THRESHOLD_ETA`` times the hopping scale.
+THRESHOLD_VELOCITY = 1e-5
+THRESHOLD_ETA = 1e-8
+#: Generalised eigenvalues with ``|beta| <`` this times ``|alpha|`` are infinite.
+_INFINITE_TOL = 1e-13
+#: Propagating Bloch factors closer than this are one degenerate group.
+_DEGENERATE_TOL = 1e-7
+
+
+@dataclass(frozen=True)
+class LeadModes:
+    """Bloch modes of a lead at one energy.
+
+    Attributes
+    ----------
+    energy : complex
+        Energy used (meV); it has an imaginary part if the requested energy sat
+        on a channel threshold.
+    lam_out, phi_out : (m,) complex, (m_cell, m) complex
+        Bloch factors and cell wave functions of the ``m`` outgoing solutions
+        (propagating away from the device, or decaying away from it).
+    velocity_out : (m,) float
+        Group velocity along the lead (meV per cell, hbar = 1) of each outgoing
+        solution; zero for evanescent ones.
+    propagating_out : (m,) bool
+        Which outgoing solutions are open channels.
+    lam_in, phi_in, velocity_in : arrays
+        The incoming open channels (propagating towards the device); the
+        velocity is negative.  Same count as open outgoing channels.
+    g_surface : (m_cell, m_cell) complex
+        Retarded surface Green's function of cell 0 (1/meV).
+    n_open : int
+        Number of open channels at the real part of the energy.  A channel
+        exactly at its threshold carries no current and is counted as closed.
+    at_threshold : bool
+        True if the requested energy was on a channel threshold.
+    """
+
+    energy: complex
+    lam_out: np.ndarray
+    phi_out: np.ndarray
+    velocity_out: np.ndarray
+    propagating_out: np.ndarray
+    lam_in: np.ndarray
+    phi_in: np.ndarray
+    velocity_in: np.ndarray
+    g_surface: np.ndarray
+    n_open: int
+    at_threshold: bool
+
+
+def hopping_scale(h_cell: np.ndarray, h_hop: np.ndarray) -> float:
+    """A typical energy scale of a lead (meV), used for relative tolerances."""
+    scale = max(np.abs(h_hop).max(initial=0.0), np.abs(h_cell - np.diag(np.diag(h_cell))).max(initial=0.0))
+    return float(scale) if scale > 0 else 1.0
+
+
+def lead_modes(h_cell, h_hop, energy, *, warn: bool = True) -> LeadModes:
+    """Bloch modes and surface Green's function of a lead (mode method).
+
+    Parameters
+    ----------
+    h_cell : (m, m) complex ndarray, meV
+        Hamiltonian of one lead cell.
+    h_hop : (m, m) complex ndarray, meV
+        Hopping ``<j|H|j+1>`` to the next cell away from the device; may be
+        singular.
+    energy : float or complex, meV
+        Energy.  A real energy on a channel threshold is moved to
+        ``energy + i THRESHOLD_ETA * scale`` and :class:`ThresholdWarning` is
+        issued (unless ``warn=False``); the result records it.
+
+    Returns
+    -------
+    LeadModes
+    """
+    h_cell = np.asarray(h_cell, dtype=complex)
+    h_hop = np.asarray(h_hop, dtype=complex)
+    energy = complex(energy)
+    if not np.isfinite(energy):
+        raise EnergyError(f"energy must be finite, got {energy}; remove NaN or infinite values from the energies")
+    scale = hopping_scale(h_cell, h_hop)
+    if energy.imag != 0.0:
+        # Channels are counted on the real axis; the modes themselves at the complex energy.
+        n_open = _count_open(h_cell, h_hop, energy.real, scale)
+        modes = _modes_at(h_cell, h_hop, energy, scale)
+        return LeadModes(**{**modes.__dict__, "n_open": n_open})
+    modes = _modes_at(h_cell, h_hop, energy, scale)
+    if isinstance(modes, int):  # on a threshold: step off it into the upper half plane
+        n_open = modes
+        shifted = energy + 1j * THRESHOLD_ETA * scale
+        if warn:
+            warnings.warn(
+                f"energy {energy.real:.10g} meV sits on a lead channel threshold (group velocity zero); "
+                f"computed at E + {THRESHOLD_ETA * scale:.1e}i meV instead -- shift the energy grid slightly "
+                "to avoid the band edge",
+                ThresholdWarning,
+                stacklevel=2,
+            )
+        modes = _modes_at(h_cell, h_hop, shifted, scale)
+        modes = LeadModes(**{**modes.__dict__, "n_open": n_open, "at_threshold": True})
+    return modes
+
+
+def _count_open(h_cell, h_hop, energy: float, scale: float) -> int:
+    modes = _modes_at(h_cell, h_hop, complex(energy), scale)
+    return modes if isinstance(modes, int) else modes.n_open
+
+
+def surface_green_modes(h_cell, h_hop, energy) -> np.ndarray:
+    """Retarded surface Green's function of a semi-infinite lead by the mode method.
+
+    See :func:`lead_modes`; this returns only ``g_surface`` (1/meV).
+
+    Examples
+    --------
+    A chain with hopping -1 at E = 0 has g = -i (Economou, from memory):
+
+    >>> import numpy as np
+    >>> g = surface_green_modes(np.zeros((1, 1)), -np.ones((1, 1)), 0.0)
+    >>> complex(np.round(g[0, 0], 12))
+    -1j
+    """
+    return lead_modes(h_cell, h_hop, energy).g_surface
+
+
+def _modes_at(h_cell, h_hop, energy, scale):
+    """Solve the lead's quadratic eigenproblem.
+
+    Returns the :class:`LeadModes`, or -- if a propagating mode has zero
+    velocity (a channel threshold) -- the number of open channels with a
+    nonzero velocity, as an int.
+    """
+    m = h_cell.shape[0]
+    eye = np.eye(m)
+    zero = np.zeros((m, m))
+    # Linearisation with x = [phi; lam phi]:  A x = lam B x.
+    a_mat = np.block([[zero, eye], [-h_hop.conj().T, energy * eye - h_cell]])
+    b_mat = np.block([[eye, zero], [zero, h_hop]])
+    (alpha, beta), vecs = sla.eig(a_mat, b_mat, homogeneous_eigvals=True)
+    finite = np.abs(beta) > _INFINITE_TOL * np.abs(alpha)
+    lam = np.full(alpha.shape, np.inf, dtype=complex)
+    lam[finite] = alpha[finite] / beta[finite]
+    phi = vecs[:m]
+    # Normalise the cell part; for infinite lam the lower block carries the vector.
+    norms = np.linalg.norm(phi, axis=0)
+    norms[norms == 0] = 1.0
+    phi = phi / norms
+
+    real_energy = abs(energy.imag) == 0.0
+    absl = np.abs(lam)
+    if real_energy:
+        prop = finite & (np.abs(absl - 1.0) < PROPAGATING_TOL)
+    else:
+        prop = np.zeros(lam.shape, dtype=bool)
+    decaying = finite & ~prop & (absl < 1.0)
+
+    out_idx = list(np.flatnonzero(decaying))
+    in_idx: list[int] = []
+    velocities = {}
+    on_threshold = False
+    lam = lam.copy()
+    if np.any(prop):
+        idx = np.flatnonzero(prop)
+        lam[idx] = lam[idx] / absl[idx]  # put them exactly on the unit circle
+        for group in _degenerate_groups(lam[idx]):
+            members = idx[group]
+            new_phi, vel = _velocity_basis(phi[:, members], lam[members[0]], h_hop)
+            if np.any(np.abs(vel) < THRESHOLD_VELOCITY * scale):
+                on_threshold = True
+            phi[:, members] = new_phi
+            for k, v in zip(members, vel):
+                velocities[k] = v
+                (out_idx if v > 0 else in_idx).append(k)
+    if on_threshold:
+        return sum(1 for v in velocities.values() if v > THRESHOLD_VELOCITY * scale)
+    out_idx = np.array(out_idx, dtype=int)
+    in_idx = np.array(in_idx, dtype=int)
+    lam_out = lam[out_idx]
+    phi_out = phi[:, out_idx]
+    vel_out = np.array([velocities.get(k, 0.0) for k in out_idx])
+    prop_out = np.array([k in velocities for k in out_idx], dtype=bool)
+
+    # g_s = (E - h_cell - h_hop F)^-1 with F = Phi Lam Phi^-1 (outgoing transfer matrix).
+    # Phi may be rectangular if h_hop is singular and modes are missing; lstsq copes.
+    if phi_out.shape[1] == m:
+        h_f = h_hop @ np.linalg.solve(phi_out.T, (phi_out * lam_out).T).T
+    else:  # pragma: no cover - defensive; a well-posed lead has m outgoing solutions
+        h_f = h_hop @ (phi_out * lam_out) @ np.linalg.pinv(phi_out)
+    g_surface = np.linalg.inv(energy * np.eye(m) - h_cell - h_f)
+    return LeadModes(
+        energy=energy,
+        lam_out=lam_out,
+        phi_out=phi_out,
+        velocity_out=vel_out,
+        propagating_out=prop_out,
+        lam_in=lam[in_idx],
+        phi_in=phi[:, in_idx],
+        velocity_in=np.array([velocities[k] for k in in_idx]),
+        g_surface=g_surface,
+        n_open=int(np.count_nonzero(prop_out)),
+        at_threshold=False,
+    )
+
+
+def _degenerate_groups(lams: np.ndarray) -> list[np.ndarray]:
+    """Group indices of (unit-modulus) Bloch factors that coincide."""
+    remaining = list(range(len(lams)))
+    groups = []
+    while remaining:
+        k = remaining.pop(0)
+        same = [j for j in remaining if abs(lams[j] - lams[k]) < _DEGENERATE_TOL]
+        for j in same:
+            remaining.remove(j)
+        groups.append(np.array([k] + same))
+    return groups
+
+
+def _velocity_basis(phis: np.ndarray, lam: complex, h_hop: np.ndarray):
+    """Orthonormal basis of a degenerate propagating group diagonalising the current.
+
+    The current carried from cell j to j+1 by ``psi_j = lam**j phi`` is
+    ``v = -2 Im(lam phi^dag h_hop phi)`` (hbar = 1, one cell per unit length);
+    within a degenerate group the current operator
+    ``J = i (lam Phi^dag h_hop Phi - conj(lam) Phi^dag h_hop^dag Phi)`` is
+    diagonalised so that every mode has a definite velocity.
+    """
+    q, _ = np.linalg.qr(phis)
+    j_mat = 1j * (lam * q.conj().T @ h_hop @ q - np.conj(lam) * q.conj().T @ h_hop.conj().T @ q)
+    vel, u = np.linalg.eigh(0.5 * (j_mat + j_mat.conj().T))
+    return q @ u, vel
+
+
+#: Decimation stops when the renormalised hoppings fall below this (relative).
+DECIMATION_TOL = 1e-14
+DECIMATION_MAX_ITER = 200
+
+
+def surface_green_decimation(h_cell, h_hop, energy, *, eta: float = 1e-12, tol: float = DECIMATION_TOL,
+                             max_iter: int = DECIMATION_MAX_ITER) -> np.ndarray:
+    """Surface Green's function by Sancho-Rubio decimation.
+
+    Iterates (Lopez Sancho, Lopez Sancho & Rubio, J. Phys. F 15, 851 (1985),
+    from memory), with ``alpha = h_hop``, ``beta = h_hop^dag`` and
+    ``eps_s = eps = h_cell``::
+
+        g = (E + i eta - eps)^-1
+        eps_s += alpha g beta ;  eps += alpha g beta + beta g alpha
+        alpha <- alpha g alpha ;  beta <- beta g beta
+
+    until ``|alpha|, |beta| < tol * scale``; then
+    ``g_surface = (E + i eta - eps_s)^-1``.  Each step doubles the range of
+    the renormalised coupling, so the error falls like ``|lam|^(2^n)``; inside
+    the band that needs about ``log2(1/eta)`` steps.
+
+    The result is the surface Green's function at the complex energy
+    ``E + i eta``.  It is unreliable (round-off) at energies equal to an
+    eigenvalue of ``h_cell``; use :func:`surface_green_modes` there.
+
+    Parameters
+    ----------
+    h_cell, h_hop : (m, m) complex ndarray, meV
+    energy : float or complex, meV
+    eta : float, meV
+        Imaginary part added to the energy.
+    """
+    h_cell = np.asarray(h_cell, dtype=complex)
+    alpha = np.asarray(h_hop, dtype=complex).copy()
+    beta = alpha.conj().T.copy()
+    eps_s = h_cell.copy()
+    eps = h_cell.copy()
+    z = (complex(energy) + 1j * eta) * np.eye(h_cell.shape[0])
+    scale = hopping_scale(h_cell, h_hop)
+    for _ in range(max_iter):
+        g = np.linalg.inv(z - eps)
+        agb = alpha @ g @ beta
+        eps_s = eps_s + agb
+        eps = eps + agb + beta @ g @ alpha
+        alpha = alpha @ g @ alpha
+        beta = beta @ g @ beta
+        if max(np.abs(alpha).max(), np.abs(beta).max()) < tol * scale:
+            break
+    else:
+        raise EnergyError(
+            f"Sancho-Rubio decimation did not converge in {max_iter} steps at E = {energy} meV with "
+            f"eta = {eta} meV; increase eta or use surface_green_modes"
+        )
+    return np.linalg.inv(z - eps_s)

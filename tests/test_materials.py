@@ -1,0 +1,228 @@
+"""Tests of rgftrans.materials against handbook constants.
+
+Outside source for every pinned number: /work/shared/reference-checks.md,
+section 10 ("Effective-mass discretisation and handbook constants"), whose
+values were computed from scipy.constants (CODATA 2022 m_e; e and h exact in
+the 2019 SI) and cross-checked by an independent calculation.
+
+Tolerances.  The table quotes most values to 7-8 significant digits, so its
+rounding alone is up to ~1e-7 relative (56.0499 nm: 9e-7); we compare at
+REL_TABLE = 1e-6.  k_F = 0.112100 nm^-1 is quoted too coarsely for that and is
+compared to half a unit in its last digit instead.  The conductance quantum and its inverse are quoted to 13
+digits and depend only on the exact e and h, so they are compared at
+REL_EXACT = 1e-12.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from rgftrans.errors import LatticeError, MaterialError
+from rgftrans.materials import (
+    CONDUCTANCE_QUANTUM_S,
+    MATERIALS,
+    Material,
+    conductance_siemens,
+    fermi_energy_meV,
+    fermi_wavelength_nm,
+    hopping_meV,
+    material,
+)
+
+REL_TABLE = 1e-6  # table values quoted to 7-8 significant digits
+REL_EXACT = 1e-12  # 13-digit values fixed by the exact SI e and h
+
+GAAS_M_EFF = 0.067
+
+
+# --- hopping t = hbar^2 / (2 m* a^2) ---------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("m_eff", "a_nm", "t_expected_meV"),
+    [
+        # reference-checks.md section 10, table: "GaAs, m* = 0.067 m_e, a = 5 nm: t = 22.746162 meV"
+        (0.067, 5.0, 22.746162),
+        # reference-checks.md section 10, table: "GaAs, m* = 0.067, a = 10 nm: t = 5.686540 meV"
+        (0.067, 10.0, 5.686540),
+        # reference-checks.md section 10, table: "m* = 0.067, a = 2 nm / 1 nm: 142.163512 / 568.654046 meV"
+        (0.067, 2.0, 142.163512),
+        (0.067, 1.0, 568.654046),
+        # reference-checks.md section 10, table: "(Ioffe's room-temperature m* = 0.063) a = 5 / 10 nm"
+        (0.063, 5.0, 24.190363),
+        (0.063, 10.0, 6.047591),
+    ],
+)
+def test_hopping_matches_reference_table(m_eff, a_nm, t_expected_meV):
+    assert hopping_meV(m_eff, a_nm) == pytest.approx(t_expected_meV, rel=REL_TABLE)
+
+
+def test_hopping_free_electron_prefactor():
+    # reference-checks.md section 10, table: hbar^2 / (2 m_e) = 0.038099821 eV nm^2,
+    # i.e. t(m* = 1, a = 1 nm) = 38.099821 meV.
+    assert hopping_meV(1.0, 1.0) == pytest.approx(38.099821, rel=REL_TABLE)
+
+
+def test_hopping_scales_as_inverse_square_of_spacing():
+    # Invariant of t = hbar^2 / (2 m* a^2): halving a quadruples t.
+    assert hopping_meV(GAAS_M_EFF, 5.0) / hopping_meV(GAAS_M_EFF, 10.0) == pytest.approx(
+        4.0, rel=1e-14
+    )
+
+
+@pytest.mark.parametrize("a_nm", [0.0, -5.0, math.nan, math.inf, "five"])
+def test_hopping_rejects_bad_lattice_constant(a_nm):
+    with pytest.raises(LatticeError, match=r"lattice constant must be .*; pass e\.g\. 5\.0"):
+        hopping_meV(GAAS_M_EFF, a_nm)
+
+
+@pytest.mark.parametrize("m_eff", [0.0, -0.067, math.nan, math.inf, None])
+def test_hopping_rejects_bad_effective_mass(m_eff):
+    with pytest.raises(MaterialError, match=r"effective mass must be .*0\.067 for GaAs"):
+        hopping_meV(m_eff, 5.0)
+
+
+# --- conductance quantum -----------------------------------------------------
+
+
+def test_conductance_quantum():
+    # reference-checks.md section 10, table: 2e^2/h = 7.748091729864e-5 S
+    assert CONDUCTANCE_QUANTUM_S == pytest.approx(7.748091729864e-5, rel=REL_EXACT)
+
+
+def test_resistance_quantum():
+    # reference-checks.md section 10, table: h/(2e^2) = 12906.403729652 ohm
+    assert 1.0 / CONDUCTANCE_QUANTUM_S == pytest.approx(12906.403729652, rel=REL_EXACT)
+
+
+def test_conductance_siemens_of_scalar_and_array():
+    # reference-checks.md section 10, table: 2e^2/h = 7.748091729864e-5 S per unit transmission.
+    assert conductance_siemens(3.0) == pytest.approx(3 * 7.748091729864e-5, rel=REL_EXACT)
+    transmission = np.array([0.0, 0.5, 2.0])
+    conductance = conductance_siemens(transmission)
+    assert conductance.shape == transmission.shape
+    np.testing.assert_allclose(conductance, transmission * 7.748091729864e-5, rtol=REL_EXACT)
+
+
+# --- 2DEG Fermi energy and wavelength -----------------------------------------
+
+
+def test_fermi_energy_gaas():
+    # reference-checks.md section 10, table: n = 2e11 cm^-2 -> E_F = 7.145917 meV (GaAs, m* = 0.067)
+    assert fermi_energy_meV(2e11, GAAS_M_EFF) == pytest.approx(7.145917, rel=REL_TABLE)
+
+
+def test_fermi_energy_follows_gaas_density_of_states():
+    # reference-checks.md section 10, table: GaAs 2D DOS m*/(pi hbar^2), spin-degenerate,
+    # = 2.798801e10 cm^-2 meV^-1, so n / E_F must equal it.
+    dos = 2e11 / fermi_energy_meV(2e11, GAAS_M_EFF)
+    assert dos == pytest.approx(2.798801e10, rel=REL_TABLE)
+
+
+def test_fermi_wavelength():
+    # reference-checks.md section 10, table: n = 2e11 cm^-2 -> lambda_F = 56.0499 nm
+    # (quoted to 6 digits: its rounding is 9e-7 relative, inside REL_TABLE).
+    assert fermi_wavelength_nm(2e11) == pytest.approx(56.0499, rel=REL_TABLE)
+
+
+def test_fermi_wavevector():
+    # reference-checks.md section 10, table: n = 2e11 cm^-2 -> k_F = 0.112100 nm^-1.
+    # Quoted to 6 decimals only (rounding up to 4.5e-6 relative, above REL_TABLE),
+    # so compared to half a unit in its last digit.
+    assert 2 * math.pi / fermi_wavelength_nm(2e11) == pytest.approx(0.112100, abs=0.5e-6)
+
+
+def test_fermi_energy_is_parabolic_band_at_fermi_wavevector():
+    # Invariant: E_F = hbar^2 k_F^2 / (2 m*) = t (k_F a)^2 for any lattice constant a.
+    a_nm = 5.0
+    k_fermi = 2 * math.pi / fermi_wavelength_nm(2e11)
+    expected = hopping_meV(GAAS_M_EFF, a_nm) * (k_fermi * a_nm) ** 2
+    assert fermi_energy_meV(2e11, GAAS_M_EFF) == pytest.approx(expected, rel=1e-13)
+
+
+@pytest.mark.parametrize("density_cm2", [0.0, -2e11, math.nan, math.inf, "high"])
+def test_fermi_functions_reject_bad_density(density_cm2):
+    with pytest.raises(MaterialError, match=r"2DEG density must be .*; pass e\.g\. 2e11"):
+        fermi_energy_meV(density_cm2, GAAS_M_EFF)
+    with pytest.raises(MaterialError, match=r"2DEG density must be .*; pass e\.g\. 2e11"):
+        fermi_wavelength_nm(density_cm2)
+
+
+def test_fermi_energy_rejects_bad_mass():
+    with pytest.raises(MaterialError, match=r"effective mass must be positive and finite"):
+        fermi_energy_meV(2e11, -0.067)
+
+
+# --- presets and lookup ---------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("name", "m_eff", "g_factor", "eps_r"),
+    [
+        # Values as specified for the presets; handbook sources, from memory, are in .source.
+        ("GaAs", 0.067, -0.44, 12.9),
+        ("InAs", 0.026, -14.9, 15.15),
+        ("InSb", 0.0135, -51.0, 16.8),
+        ("Si", 0.19, 2.0, 11.7),
+    ],
+)
+def test_presets(name, m_eff, g_factor, eps_r):
+    preset = MATERIALS[name]
+    assert (preset.name, preset.m_eff, preset.g_factor, preset.eps_r) == (
+        name,
+        m_eff,
+        g_factor,
+        eps_r,
+    )
+    assert "(from memory)" in preset.source
+
+
+def test_gaas_source_names_handbook_and_room_temperature_value():
+    source = MATERIALS["GaAs"].source
+    assert "J. Appl. Phys. 89, 5815 (2001)" in source
+    assert "0.063" in source
+
+
+@pytest.mark.parametrize(("query", "name"), [("GaAs", "GaAs"), ("gaas", "GaAs"), ("INSB", "InSb"), (" si ", "Si")])
+def test_lookup_ignores_case(query, name):
+    assert material(query) is MATERIALS[name]
+
+
+@pytest.mark.parametrize(("query", "suggestion"), [("GaSb", "GaAs"), ("InAz", "InAs"), ("InSbb", "InSb")])
+def test_lookup_suggests_close_name(query, suggestion):
+    with pytest.raises(
+        MaterialError,
+        match=rf"unknown material '{query}'; did you mean '{suggestion}'\? known materials: GaAs, InAs, InSb, Si",
+    ):
+        material(query)
+
+
+def test_lookup_without_close_name_lists_known():
+    with pytest.raises(MaterialError, match=r"unknown material 'diamond'; known materials: GaAs"):
+        material("diamond")
+
+
+def test_lookup_rejects_non_string():
+    with pytest.raises(MaterialError, match=r"material name must be a string, got 3"):
+        material(3)
+
+
+@pytest.mark.parametrize(
+    ("field", "value", "pattern"),
+    [
+        ("m_eff", 0.0, r"effective mass must be positive and finite"),
+        ("g_factor", math.nan, r"g-factor is not finite"),
+        ("eps_r", 0.5, r"relative permittivity must be finite and >= 1, got eps_r = 0\.5"),
+    ],
+)
+def test_material_rejects_unphysical_parameters(field, value, pattern):
+    params = dict(name="X", m_eff=0.067, g_factor=-0.44, eps_r=12.9, source="test")
+    params[field] = value
+    with pytest.raises(MaterialError, match=pattern):
+        Material(**params)
+
+
+def test_material_is_frozen():
+    with pytest.raises(AttributeError):
+        MATERIALS["GaAs"].m_eff = 0.063  # type: ignore[misc]
