@@ -25,6 +25,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from .device import TightBindingModel
+from .leads import incoming_sources, outgoing_amplitudes
 from .rgf import check_energies, device_energy, lead_self_energies
 
 __all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "scattering_matrix"]
@@ -110,23 +111,19 @@ def scattering_matrix(model: TightBindingModel, energy: float) -> ScatteringMatr
     """Flux-normalised scattering matrix by the Fisher-Lee relation (sparse LU for G)."""
     g, _, modes = interface_green(model, energy)
     ranges = _lead_ranges(model)
-    n_leads = len(model.leads)
-    out_prop = [np.flatnonzero(m.propagating_out) for m in modes]
-    n_ch = [len(idx) for idx in out_prop]
-    channel_lead = np.repeat(np.arange(n_leads), n_ch)
+    return _assemble_smatrix(model, modes, lambda p, q: g[ranges[p], ranges[q]], energy)
+
+
+def _assemble_smatrix(model, modes, g_block, energy) -> ScatteringMatrix:
+    """S from the interface blocks ``g_block(p, q)`` of the retarded Green's function."""
+    n_ch = [m.n_open for m in modes]
+    channel_lead = np.repeat(np.arange(len(modes)), n_ch)
     offs = np.concatenate([[0], np.cumsum(n_ch)])
     s = np.zeros((offs[-1], offs[-1]), dtype=complex)
     for q, (lead_q, mq) in enumerate(zip(model.leads, modes)):
-        for b in range(len(mq.lam_in)):
-            phi, lam, v_in = mq.phi_in[:, b], mq.lam_in[b], mq.velocity_in[b]
-            back = mq.g_surface @ (lead_q.h_hop.conj().T @ phi) / lam
-            source = lead_q.coupling @ (phi - back)
-            psi_iface = g[:, ranges[q]] @ source
-            for p, (lead_p, mp) in enumerate(zip(model.leads, modes)):
-                psi0 = mp.g_surface @ (lead_p.coupling.conj().T @ psi_iface[ranges[p]])
-                if p == q:
-                    psi0 = psi0 - back
-                coeff = np.linalg.lstsq(mp.phi_out, psi0, rcond=None)[0]
-                a = out_prop[p]
-                s[offs[p]:offs[p + 1], offs[q] + b] = coeff[a] * np.sqrt(mp.velocity_out[a] / abs(v_in))
+        sources, back = incoming_sources(lead_q.h_hop, lead_q.coupling, mq)
+        for p, (lead_p, mp) in enumerate(zip(model.leads, modes)):
+            psi = g_block(p, q) @ sources
+            amp = outgoing_amplitudes(lead_p.coupling, mp, psi, back if p == q else None)
+            s[offs[p]:offs[p + 1], offs[q]:offs[q + 1]] = amp
     return ScatteringMatrix(energy=float(energy), s=s, channel_lead=channel_lead)

@@ -44,6 +44,8 @@ __all__ = [
     "lead_modes",
     "surface_green_modes",
     "surface_green_decimation",
+    "incoming_sources",
+    "outgoing_amplitudes",
 ]
 
 #: A Bloch factor with ``| |lam| - 1 | <`` this counts as propagating (at real energy).
@@ -283,6 +285,47 @@ def _velocity_basis(phis: np.ndarray, lam: complex, h_hop: np.ndarray):
     j_mat = 1j * (lam * q.conj().T @ h_hop @ q - np.conj(lam) * q.conj().T @ h_hop.conj().T @ q)
     vel, u = np.linalg.eigh(0.5 * (j_mat + j_mat.conj().T))
     return q @ u, vel
+
+
+def incoming_sources(h_hop, coupling, modes: LeadModes) -> tuple[np.ndarray, np.ndarray]:
+    """Device sources of the lead's incoming open channels (flux-normalised).
+
+    An incoming Bloch wave ``psi_j = lam_in**j phi_in`` drives the device
+    through the interface with the source
+    ``coupling (phi_in - g_surface h_hop^dag phi_in / lam_in)``; the
+    scattering state inside the device is ``G_{device, interface} @ source``
+    (our derivation from the Dyson equation; it reproduces the Fisher-Lee
+    relation, Phys. Rev. B 23, 6851 (1981), from memory).  Dividing by
+    ``sqrt(|v|)`` gives every channel unit incoming flux.
+
+    Returns
+    -------
+    sources : (k, n_in) complex ndarray
+        One column per incoming channel, on the device interface sites.
+    back : (m, n_in) complex ndarray
+        ``g_surface h_hop^dag phi_in / lam_in`` on cell 0, needed to separate
+        the reflected wave from the incoming one.
+    """
+    phi = modes.phi_in / np.sqrt(np.abs(modes.velocity_in))
+    back = modes.g_surface @ (h_hop.conj().T @ phi) / modes.lam_in
+    return coupling @ (phi - back), back
+
+
+def outgoing_amplitudes(coupling, modes: LeadModes, psi_interface: np.ndarray,
+                        back: np.ndarray | None = None) -> np.ndarray:
+    """Flux-normalised amplitudes in the lead's open outgoing channels.
+
+    The outgoing wave on cell 0 is ``g_surface coupling^dag psi_interface``
+    (minus ``back`` when this lead is also the source), expanded in the
+    outgoing Bloch modes; the open channels' coefficients times
+    ``sqrt(v_out)`` are returned, shape ``(n_open, n_states)``.
+    """
+    psi0 = modes.g_surface @ (coupling.conj().T @ psi_interface)
+    if back is not None:
+        psi0 = psi0 - back
+    coeff = np.linalg.lstsq(modes.phi_out, psi0, rcond=None)[0]
+    open_ = modes.propagating_out
+    return coeff[open_] * np.sqrt(modes.velocity_out[open_])[:, None]
 
 
 #: Decimation stops when the renormalised hoppings fall below this (relative).

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_device", "plot_transmission"]
+__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors"]
 
 _LEAD_COLOURS = ("tab:red", "tab:blue", "tab:green", "tab:purple", "tab:orange", "tab:brown")
 
@@ -74,4 +74,96 @@ def plot_transmission(result, *, ax=None, label: str | None = None, siemens_axis
         sec = ax.secondary_yaxis("right", functions=(lambda g: g * scale, lambda s: s / scale))
         sec.set_ylabel("conductance G (µS)")
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=3, fontsize="small", frameon=False)
+    return fig, ax
+
+
+def _triangulation(xy: np.ndarray):
+    """Delaunay triangulation of the sites with triangles across holes and notches masked."""
+    from matplotlib.tri import Triangulation
+    from scipy.spatial import cKDTree
+
+    tri = Triangulation(xy[:, 0], xy[:, 1])
+    nearest = cKDTree(xy).query(xy, k=2)[0][:, 1].min()
+    p = xy[tri.triangles]
+    edges = np.linalg.norm(p - np.roll(p, 1, axis=1), axis=2)
+    tri.set_mask(edges.max(axis=1) > 1.5 * nearest)
+    return tri
+
+
+def plot_map(model, values, *, ax=None, cmap: str = "magma", label: str = "LDOS (1/meV)",
+             log: bool = False, title: str | None = None):
+    """Colour map of a per-site quantity over the device (equal aspect, colour bar).
+
+    Parameters
+    ----------
+    model : TightBindingModel
+    values : (n_sites,) float ndarray
+    log : bool
+        Logarithmic colour scale (for densities spanning decades).
+    """
+    from matplotlib.colors import LogNorm
+
+    fig, ax = _axes(ax)
+    values = np.asarray(values, dtype=float)
+    norm = None
+    if log:
+        positive = values[values > 0]
+        vmin = positive.max() * 1e-4 if positive.size else 1e-12
+        values = np.clip(values, vmin, None)
+        norm = LogNorm(vmin=vmin, vmax=values.max())
+    art = ax.tripcolor(_triangulation(model.positions), values, shading="gouraud", cmap=cmap, norm=norm,
+                       rasterized=True)
+    fig.colorbar(art, ax=ax, label=label, shrink=0.85)
+    for k, lead in enumerate(model.leads):
+        cell = lead.cell_positions
+        ax.plot(cell[:, 0], cell[:, 1], lw=3, color=_LEAD_COLOURS[k % len(_LEAD_COLOURS)], label=f"lead '{lead.name}'",
+                solid_capstyle="butt")
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (nm)")
+    ax.set_ylabel("y (nm)")
+    if title:
+        ax.set_title(title)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), ncol=4, fontsize="small", frameon=False)
+    return fig, ax
+
+
+def site_current_vectors(model, currents) -> np.ndarray:
+    """Current density vector at each site from bond currents: ``J_i = sum_j I_ij (r_j - r_i) / 2``.
+
+    Parameters
+    ----------
+    currents : (n_sites, n_sites) sparse matrix from :func:`rgftrans.local.bond_currents`
+
+    Returns
+    -------
+    (n_sites, 2) float ndarray (current times nm)
+    """
+    coo = currents.tocoo()
+    d = model.positions[coo.col] - model.positions[coo.row]
+    out = np.zeros((model.n_sites, 2))
+    np.add.at(out, coo.row, 0.5 * coo.data[:, None] * d)
+    return out
+
+
+def plot_currents(model, currents, *, ax=None, background=None, max_arrows: int = 900,
+                  background_label: str = "density (1/meV)"):
+    """Arrows of the local current over the device, optionally over a density map."""
+    if background is not None:
+        fig, ax = plot_map(model, background, ax=ax, cmap="Greys", label=background_label)
+    else:
+        fig, ax = _axes(ax)
+        ax.set_aspect("equal")
+        ax.set_xlabel("x (nm)")
+        ax.set_ylabel("y (nm)")
+    vec = site_current_vectors(model, currents)
+    xy = model.positions
+    stride = max(1, int(np.ceil(np.sqrt(len(xy) / max_arrows))))
+    spacing = np.min(np.ptp(xy, axis=0)[np.ptp(xy, axis=0) > 0]) / max(1, np.sqrt(len(xy)))
+    # Keep arrows on a coarse sub-grid so the map stays readable.
+    grid = np.round(xy / (spacing * stride)).astype(int)
+    _, pick = np.unique(grid, axis=0, return_index=True)
+    mag = np.linalg.norm(vec[pick], axis=1)
+    ax.quiver(xy[pick, 0], xy[pick, 1], vec[pick, 0], vec[pick, 1], mag, cmap="viridis", pivot="middle",
+              angles="xy", scale_units="xy", scale=mag.max() / (spacing * stride * 1.2) if mag.max() > 0 else 1.0,
+              width=0.003)
     return fig, ax

@@ -27,7 +27,10 @@ from .leads import lead_modes
 from .materials import CONDUCTANCE_QUANTUM_S
 from .slicing import Slicing, slice_layers
 
-__all__ = ["TransmissionResult", "transmission", "layer_blocks", "lead_self_energies"]
+__all__ = [
+    "TransmissionResult", "transmission", "layer_blocks", "lead_self_energies", "GreenBlocks", "green_blocks",
+    "TransmissionMatrixResult", "transmission_matrix", "four_terminal_resistance",
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -221,3 +224,206 @@ def _transmission_one(z: complex, blocks: LayerBlocks, sigmas) -> float:
         g10 = prop[slots1]
     t_mat = _gamma(sig1) @ g10 @ _gamma(sig0) @ g10.conj().T
     return float(np.trace(t_mat).real)
+
+
+# --------------------------------------------------------------------------
+# Full sweeps: diagonal blocks and lead columns of G (any number of leads)
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class GreenBlocks:
+    """Blocks of the retarded Green's function of the open device at one energy.
+
+    Attributes
+    ----------
+    diagonal : list of (m_i, m_i) complex ndarray
+        ``G_ii`` for every layer (1/meV).
+    columns : list (per lead q) of list (per layer i) of (m_i, k_q) complex ndarray
+        ``G_{i, interface q}``: the columns of G at lead q's interface.
+    """
+
+    diagonal: list
+    columns: list
+
+    def interface_block(self, blocks: "LayerBlocks", p: int, q: int) -> np.ndarray:
+        """``G`` between lead p's and lead q's interface sites."""
+        layer_p = blocks.slicing.lead_layer[p]
+        return self.columns[q][layer_p][blocks.lead_slots[p]]
+
+
+def _embedded_sigmas(blocks: LayerBlocks, sigmas) -> list:
+    extra = [None] * len(blocks.h_layers)
+    for p, sigma in enumerate(sigmas):
+        layer = blocks.slicing.lead_layer[p]
+        if extra[layer] is None:
+            extra[layer] = np.zeros_like(blocks.h_layers[layer])
+        slots = blocks.lead_slots[p]
+        extra[layer][np.ix_(slots, slots)] += sigma
+    return extra
+
+
+def green_blocks(z: complex, blocks: LayerBlocks, sigmas, *, diagonal: bool = True) -> GreenBlocks:
+    """Forward and backward RGF sweeps.
+
+    With ``A_i = z - H_i - Sigma_i`` (leads attached to layer i) and
+    ``V_i = <i|H|i+1>``, the left- and right-connected functions are
+    ``gL_i = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1})^-1`` and
+    ``gR_i = (A_i - V_i gR_{i+1} V_i^dag)^-1``; then
+    ``G_ii = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1} - V_i gR_{i+1} V_i^dag)^-1``,
+    and the columns at a lead in layer l follow from
+    ``G_{i,l} = gR_i V_{i-1}^dag G_{i-1,l}`` (i > l) and
+    ``G_{i,l} = gL_i V_i G_{i+1,l}`` (i < l).  (Standard recursion, e.g.
+    Datta, Electronic Transport in Mesoscopic Systems, 1995, ch. 3, from
+    memory.)
+    """
+    h_layers, v_next = blocks.h_layers, blocks.v_next
+    n = len(h_layers)
+    extra = _embedded_sigmas(blocks, sigmas)
+    a_mats = []
+    for i in range(n):
+        a = z * np.eye(len(h_layers[i])) - h_layers[i]
+        if extra[i] is not None:
+            a -= extra[i]
+        a_mats.append(a)
+    left_se = [None] * n   # V_{i-1}^dag gL_{i-1} V_{i-1}
+    right_se = [None] * n  # V_i gR_{i+1} V_i^dag
+    g_left = [None] * n
+    g_right = [None] * n
+    acc = a_mats[0]
+    g_left[0] = np.linalg.inv(acc)
+    for i in range(1, n):
+        v = v_next[i - 1]
+        left_se[i] = v.conj().T @ g_left[i - 1] @ v
+        g_left[i] = np.linalg.inv(a_mats[i] - left_se[i])
+    g_right[n - 1] = np.linalg.inv(a_mats[n - 1])
+    for i in range(n - 2, -1, -1):
+        v = v_next[i]
+        right_se[i] = v @ g_right[i + 1] @ v.conj().T
+        g_right[i] = np.linalg.inv(a_mats[i] - right_se[i])
+    need = set(blocks.slicing.lead_layer)
+    diag = [None] * n
+    for i in range(n):
+        if diagonal or i in need:
+            a = a_mats[i].copy()
+            if left_se[i] is not None:
+                a -= left_se[i]
+            if right_se[i] is not None:
+                a -= right_se[i]
+            diag[i] = np.linalg.inv(a)
+    columns = []
+    for p in range(len(sigmas)):
+        layer = blocks.slicing.lead_layer[p]
+        cols = [None] * n
+        cols[layer] = diag[layer][:, blocks.lead_slots[p]]
+        for i in range(layer + 1, n):
+            cols[i] = g_right[i] @ (v_next[i - 1].conj().T @ cols[i - 1])
+        for i in range(layer - 1, -1, -1):
+            cols[i] = g_left[i] @ (v_next[i] @ cols[i + 1])
+        columns.append(cols)
+    return GreenBlocks(diagonal=diag, columns=columns)
+
+
+@dataclass(frozen=True, eq=False)
+class TransmissionMatrixResult:
+    """Transmissions between all pairs of leads over a set of energies.
+
+    Attributes
+    ----------
+    energies : (n_E,) float ndarray, meV
+    transmission : (n_E, n_leads, n_leads) float ndarray
+        ``transmission[k, p, q]``: from lead q into lead p, per spin; the
+        diagonal holds the reflection ``R_pp``.
+    n_open : (n_E, n_leads) int ndarray
+    at_threshold : (n_E,) bool ndarray
+    lead_names : tuple of str
+    """
+
+    energies: np.ndarray
+    transmission: np.ndarray
+    n_open: np.ndarray
+    at_threshold: np.ndarray
+    lead_names: tuple
+
+    def conductance_matrix(self) -> np.ndarray:
+        """Büttiker conductance matrix in units of 2e^2/h, shape (n_E, n_leads, n_leads).
+
+        ``I_p = (2e^2/h) sum_q (N_p delta_pq - T_pq) V_q`` (M. Büttiker,
+        Phys. Rev. Lett. 57, 1761 (1986), from memory), with ``T_pp = R_pp``.
+        Multiply by :data:`rgftrans.materials.CONDUCTANCE_QUANTUM_S` for siemens.
+        """
+        eye = np.eye(len(self.lead_names))
+        return self.n_open[:, :, None] * eye - self.transmission
+
+
+def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
+                        slicing: Slicing | None = None) -> TransmissionMatrixResult:
+    """Transmissions ``T_pq(E)`` between all leads (any number) by RGF.
+
+    ``T_pq = Tr[Gamma_p G_pq Gamma_q G_pq^dag]`` for p != q, and the
+    reflection from the Fisher-Lee form ``r = -1 + i W^dag G W``
+    (``Gamma = W W^dag``): ``R_pp = N_p - i Tr[Gamma_p (G_pp - G_pp^dag)]
+    + Tr[Gamma_p G_pp Gamma_p G_pp^dag]``.
+    """
+    energies = check_energies(energies)
+    blocks = layer_blocks(model, slicing)
+    n_leads = len(model.leads)
+    n_e = len(energies)
+    trans = np.zeros((n_e, n_leads, n_leads))
+    n_open = np.zeros((n_e, n_leads), dtype=np.int64)
+    flagged = np.zeros(n_e, dtype=bool)
+    for k, energy in enumerate(energies):
+        sigmas, modes = lead_self_energies(model, energy, warn=False)
+        flagged[k] = any(m.at_threshold for m in modes)
+        n_open[k] = [m.n_open for m in modes]
+        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, diagonal=False)
+        gammas = [_gamma(s) for s in sigmas]
+        for p in range(n_leads):
+            for q in range(n_leads):
+                g_pq = gb.interface_block(blocks, p, q)
+                t = np.trace(gammas[p] @ g_pq @ gammas[q] @ g_pq.conj().T).real
+                if p == q:
+                    t += n_open[k, p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real
+                trans[k, p, q] = t
+    if np.any(flagged):
+        warnings.warn(
+            f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
+            f"{energies[flagged][0]:.10g} meV); they were computed slightly above the real axis -- shift the "
+            "energy grid to avoid band edges",
+            ThresholdWarning,
+            stacklevel=2,
+        )
+    return TransmissionMatrixResult(energies=energies, transmission=trans, n_open=n_open,
+                                    at_threshold=flagged, lead_names=tuple(l.name for l in model.leads))
+
+
+def four_terminal_resistance(conductance: np.ndarray, current: tuple[int, int], voltage: tuple[int, int]) -> float:
+    """Resistance ``(V_r - V_s) / I`` for current I driven from lead p to lead q, in ohms.
+
+    Parameters
+    ----------
+    conductance : (n_leads, n_leads) float ndarray
+        Büttiker conductance matrix in units of 2e^2/h at one energy.
+    current : (p, q)
+        Current enters at lead p and leaves at lead q.
+    voltage : (r, s)
+        Voltage probes.
+
+    Notes
+    -----
+    Lead q is the voltage reference; the remaining rows and columns of the
+    conductance matrix are inverted (Büttiker 1986, from memory).  With
+    ``r, s = p, q`` this is the two-terminal resistance.
+    """
+    from .materials import CONDUCTANCE_QUANTUM_S
+
+    g = np.asarray(conductance, dtype=float)
+    n = g.shape[0]
+    p, q = current
+    r, s = voltage
+    keep = [k for k in range(n) if k != q]
+    resist = np.linalg.inv(g[np.ix_(keep, keep)])  # V = R I on the kept leads (units h/2e^2)
+    current_vec = np.zeros(n)
+    current_vec[p], current_vec[q] = 1.0, -1.0
+    volts = np.zeros(n)
+    volts[keep] = resist @ current_vec[keep]
+    return float((volts[r] - volts[s]) / CONDUCTANCE_QUANTUM_S)

@@ -1,0 +1,156 @@
+"""Local quantities on the device: LDOS, lead-resolved densities, scattering states, currents.
+
+All come from one forward and one backward RGF sweep
+(:func:`rgftrans.rgf.green_blocks`) at a single energy:
+
+* LDOS ``rho_i = -Im G_ii / pi`` (states per meV per site), summed over the
+  orbitals of a site;
+* the density injected by lead p, ``n_p(i) = [G Gamma_p G^dag]_ii / 2 pi``
+  (Datta 1995, ch. 3, from memory); ``sum_p n_p = rho`` when the device has
+  no absorption;
+* scattering states for each incoming open channel of a lead, normalised to
+  unit incoming flux (see :func:`rgftrans.leads.incoming_sources`);
+* bond currents ``I_{i->j} = -2 Im(psi_i^* H_ij psi_j)`` (hbar = 1, in units
+  of the incoming flux: the current of a unit-flux channel is 1).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from .device import TightBindingModel
+from .errors import LeadError
+from .leads import incoming_sources, outgoing_amplitudes
+from .rgf import LayerBlocks, device_energy, green_blocks, layer_blocks, lead_self_energies
+from .slicing import Slicing
+
+__all__ = ["LocalResult", "local_quantities", "ldos", "ScatteringStates", "scattering_states", "bond_currents"]
+
+
+@dataclass(frozen=True, eq=False)
+class LocalResult:
+    """Site-resolved quantities at one energy.
+
+    Attributes
+    ----------
+    energy : float, meV
+    ldos : (n_sites,) float ndarray, 1/meV
+        Local density of states per site.
+    lead_density : (n_leads, n_sites) float ndarray, 1/meV
+        Density injected by each lead, ``[G Gamma_p G^dag]_ii / 2 pi``.
+    positions : (n_sites, 2) float ndarray, nm
+    lead_names : tuple of str
+    """
+
+    energy: float
+    ldos: np.ndarray
+    lead_density: np.ndarray
+    positions: np.ndarray
+    lead_names: tuple
+
+
+def _site_order(blocks: LayerBlocks) -> np.ndarray:
+    return np.concatenate(blocks.slicing.layers)
+
+
+def _lead_index(model: TightBindingModel, lead: int | str) -> int:
+    if isinstance(lead, str):
+        names = [l.name for l in model.leads]
+        if lead not in names:
+            raise LeadError(f"no lead named {lead!r}; the model has {names}")
+        return names.index(lead)
+    if not 0 <= lead < len(model.leads):
+        raise LeadError(f"lead index {lead} is out of range; the model has {len(model.leads)} leads")
+    return int(lead)
+
+
+def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.0,
+                     slicing: Slicing | None = None) -> LocalResult:
+    """LDOS and lead-resolved densities at one energy (meV) by RGF."""
+    blocks = layer_blocks(model, slicing)
+    sigmas, modes = lead_self_energies(model, energy)
+    gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, diagonal=True)
+    order = _site_order(blocks)
+    n = model.n_sites
+    ldos = np.empty(n)
+    ldos[order] = np.concatenate([-np.diag(g).imag / np.pi for g in gb.diagonal])
+    dens = np.empty((len(model.leads), n))
+    for p, sigma in enumerate(sigmas):
+        gamma = 1j * (sigma - sigma.conj().T)
+        per_layer = [np.einsum("ik,kl,il->i", c, gamma, c.conj()).real / (2 * np.pi) for c in gb.columns[p]]
+        dens[p, order] = np.concatenate(per_layer)
+    return LocalResult(energy=float(energy), ldos=ldos, lead_density=dens, positions=model.positions,
+                       lead_names=tuple(l.name for l in model.leads))
+
+
+def ldos(model: TightBindingModel, energy: float, *, eta: float = 0.0) -> np.ndarray:
+    """Local density of states ``-Im G_ii / pi`` per site (1/meV) at one energy (meV)."""
+    return local_quantities(model, energy, eta=eta).ldos
+
+
+@dataclass(frozen=True, eq=False)
+class ScatteringStates:
+    """Scattering states entering from one lead, at one energy.
+
+    Attributes
+    ----------
+    energy : float, meV
+    lead : int
+        Index of the lead the waves come in from.
+    wavefunctions : (n_sites, n_channels) complex ndarray
+        One column per incoming open channel, unit incoming flux.
+    amplitudes : list (per lead) of (n_open_p, n_channels) complex ndarray
+        Outgoing flux amplitudes into every lead's open channels (a column
+        of the S matrix); for the source lead these are reflections.
+    """
+
+    energy: float
+    lead: int
+    wavefunctions: np.ndarray
+    amplitudes: list
+
+    def transmission_into(self, p: int) -> float:
+        """``sum |amplitude|^2`` into lead p (reflection if p is the source)."""
+        return float(np.sum(np.abs(self.amplitudes[p]) ** 2))
+
+
+def scattering_states(model: TightBindingModel, energy: float, lead: int | str = 0, *,
+                      slicing: Slicing | None = None) -> ScatteringStates:
+    """Scattering states of all open channels incoming from ``lead`` (RGF)."""
+    q = _lead_index(model, lead)
+    blocks = layer_blocks(model, slicing)
+    sigmas, modes = lead_self_energies(model, energy)
+    gb = green_blocks(device_energy(energy, modes), blocks, sigmas, diagonal=False)
+    sources, back = incoming_sources(model.leads[q].h_hop, model.leads[q].coupling, modes[q])
+    order = _site_order(blocks)
+    psi = np.empty((model.n_sites, sources.shape[1]), dtype=complex)
+    psi[order] = np.vstack([c @ sources for c in gb.columns[q]])
+    amplitudes = []
+    for p, (lead_p, mp) in enumerate(zip(model.leads, modes)):
+        amplitudes.append(outgoing_amplitudes(lead_p.coupling, mp, psi[lead_p.interface], back if p == q else None))
+    return ScatteringStates(energy=float(energy), lead=q, wavefunctions=psi, amplitudes=amplitudes)
+
+
+def bond_currents(model: TightBindingModel, psi: np.ndarray) -> sp.coo_matrix:
+    """Bond currents of one or more states.
+
+    Parameters
+    ----------
+    psi : (n_sites,) or (n_sites, n_states) complex ndarray
+        States; currents of several columns are summed.
+
+    Returns
+    -------
+    (n_sites, n_sites) scipy.sparse.coo_matrix
+        Entry (i, j) is the current from site i to site j,
+        ``-2 Im(sum_states psi_i^* H_ij psi_j)`` (hbar = 1); antisymmetric.
+    """
+    psi = np.asarray(psi).reshape(model.n_sites, -1)
+    ham = model.hamiltonian.tocoo()
+    off = ham.row != ham.col
+    i, j, h = ham.row[off], ham.col[off], ham.data[off]
+    current = -2.0 * np.imag(np.sum(psi[i].conj() * psi[j], axis=1) * h)
+    return sp.coo_matrix((current, (i, j)), shape=ham.shape)
