@@ -109,12 +109,33 @@ class TightBindingModel:
     leads : tuple of LeadModel
     energy_scale : float, meV
         Typical hopping, for relative tolerances (the hopping ``t``).
+    coordination : int or None
+        Neighbours of a bulk site, if the model comes from a lattice; used to
+        refuse leads attached to interior sites.
+
+    Models built by hand are validated on creation: matrix shapes, Hermitian
+    Hamiltonians, interface indices in range and on the device's boundary.
     """
 
     hamiltonian: sp.csr_matrix
     positions: np.ndarray
     leads: tuple
     energy_scale: float = 1.0
+    coordination: int | None = None
+
+    def __post_init__(self):
+        ham = sp.csr_matrix(self.hamiltonian, dtype=complex)
+        object.__setattr__(self, "hamiltonian", ham)
+        n = ham.shape[0]
+        if ham.shape != (n, n) or n == 0:
+            raise GeometryError(f"the Hamiltonian must be a non-empty square matrix, got shape {ham.shape}")
+        if not np.all(np.isfinite(ham.data)):
+            raise PotentialError("the Hamiltonian contains NaN or infinite entries; check the potential and hoppings")
+        if abs(ham - ham.conj().T).max() > 1e-10 * max(1.0, abs(ham).max()):
+            raise GeometryError("the device Hamiltonian is not Hermitian; check the hoppings (each bond needs its conjugate)")
+        degree = np.diff(ham.indptr) - (ham.diagonal() != 0)
+        for lead in self.leads:
+            _validate_lead(lead, n, degree, self.coordination)
 
     @property
     def n_sites(self) -> int:
@@ -125,6 +146,34 @@ class TightBindingModel:
             if lead.name == name:
                 return lead
         raise LeadError(f"no lead named {name!r}; the model has {[l.name for l in self.leads]}")
+
+
+def _validate_lead(lead: LeadModel, n_sites: int, degree: np.ndarray, coordination: int | None) -> None:
+    m = np.shape(lead.h_cell)[0] if np.ndim(lead.h_cell) == 2 else -1
+    if np.shape(lead.h_cell) != (m, m) or np.shape(lead.h_hop) != (m, m):
+        raise LeadError(
+            f"lead '{lead.name}': h_cell {np.shape(lead.h_cell)} and h_hop {np.shape(lead.h_hop)} must be square and "
+            "of the same size (sites per lead cell)"
+        )
+    if np.abs(np.asarray(lead.h_cell) - np.asarray(lead.h_cell).conj().T).max() > 1e-10 * max(1.0, np.abs(lead.h_cell).max()):
+        raise LeadError(f"lead '{lead.name}': h_cell is not Hermitian; fix the lead cell Hamiltonian")
+    iface = np.asarray(lead.interface)
+    if iface.ndim != 1 or iface.size == 0 or iface.min() < 0 or iface.max() >= n_sites or len(np.unique(iface)) != iface.size:
+        raise LeadError(
+            f"lead '{lead.name}': interface {iface.tolist()} must list distinct device sites 0..{n_sites - 1}"
+        )
+    if np.shape(lead.coupling) != (iface.size, m):
+        raise LeadError(
+            f"lead '{lead.name}': coupling has shape {np.shape(lead.coupling)}, expected ({iface.size}, {m}) "
+            "= (interface sites, lead cell sites)"
+        )
+    if coordination is not None:
+        inner = iface[degree[iface] >= coordination]
+        if inner.size:
+            raise LeadError(
+                f"lead '{lead.name}' is attached to interior site(s) {inner[:5].tolist()} that already have all "
+                f"{coordination} neighbours inside the device; attach leads on the device's edge"
+            )
 
 
 PotentialLike = float | Callable[[np.ndarray, np.ndarray], np.ndarray] | None
@@ -313,7 +362,8 @@ def discretise(device: Device) -> TightBindingModel:
         leads.append(model)
         lead_sites.append(deep_tags)
     _check_leads_apart(device.leads, lattice, lead_sites)
-    return TightBindingModel(hamiltonian=ham, positions=xy, leads=tuple(leads), energy_scale=t)
+    return TightBindingModel(hamiltonian=ham, positions=xy, leads=tuple(leads), energy_scale=t,
+                             coordination=lattice.coordination)
 
 
 def _discretise_lead(lead: Lead, lattice: Lattice, t: float, tags, xy, index: _TagIndex, depth: int):

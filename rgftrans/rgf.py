@@ -98,7 +98,8 @@ class LayerBlocks:
 def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> LayerBlocks:
     """Cut the model's Hamiltonian into dense layer blocks (slicing it first if needed)."""
     if slicing is None:
-        slicing = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads])
+        slicing = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
+                               positions=model.positions)
     ham = model.hamiltonian.tocsr()
     layer_of = slicing.layer_of_sites(model.n_sites)
     coo = ham.tocoo()

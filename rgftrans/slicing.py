@@ -14,6 +14,15 @@ level is therefore a valid layer index with each interface in one end layer.
 For a straight strip it gives the columns.  If the two interfaces cannot be
 separated (they share or neighbour sites) everything is one layer.
 
+The same clip works for any level function that changes by at most one
+across a bond.  When site positions are known, projections
+``floor(r . u / bond_length)`` onto a fan of directions ``u`` are such
+functions too (no bond is longer than ``bond_length``); every candidate is
+scored by the RGF cost ``sum_i m_i^3`` of its layers and the cheapest wins.
+On a rectangle with leads on opposite sides that is the plain column
+slicing even when the leads sit at different heights, where the graph
+distances alone would give wider, diagonal layers.
+
 Any number of terminals: all interfaces form layer 0 and the layers are the
 breadth-first shells around them.
 """
@@ -87,7 +96,42 @@ def _adjacency(hamiltonian: sp.spmatrix) -> sp.csr_matrix:
     return adj
 
 
-def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray]) -> Slicing:
+#: Directions tried for projection slicings (degrees, half circle each way).
+_FAN_DEGREES = np.arange(0.0, 360.0, 7.5)
+
+
+def _clipped(level: np.ndarray, first: np.ndarray, last: np.ndarray):
+    """Clip a 1-Lipschitz level so each interface sits in an end layer; None if impossible."""
+    lo = level[first].max()
+    hi = level[last].min()
+    if hi <= lo:
+        return None
+    return np.clip(level, lo, hi) - lo
+
+
+def _lipschitz_below(adj: sp.csr_matrix, target: np.ndarray) -> np.ndarray:
+    """Largest function below ``target`` that changes by at most one across a bond.
+
+    ``F(s) = min_t [target(t) + d(s, t)]``: a shortest-path problem from a
+    virtual source joined to every site ``t`` by an edge of length
+    ``target(t)`` (shifted to be positive), solved by scipy's Dijkstra.
+    """
+    from scipy.sparse.csgraph import dijkstra
+
+    n = adj.shape[0]
+    shift = 1.0 - target.min()
+    graph = sp.bmat([[adj.astype(bool).astype(float), sp.csr_matrix((n, 1))],
+                     [sp.csr_matrix((target + shift)[None, :]), sp.csr_matrix((1, 1))]], format="csr")
+    return dijkstra(graph, directed=True, indices=n)[:n] - shift
+
+
+def _cost(level: np.ndarray) -> float:
+    sizes = np.bincount(level).astype(float)
+    return float(np.sum(sizes**3))
+
+
+def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray], *,
+                 positions: np.ndarray | None = None) -> Slicing:
     """Partition sites into layers for RGF.
 
     Parameters
@@ -98,6 +142,9 @@ def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray]) -> Slic
         Interface sites of each lead.  With two leads the first lands in layer
         0 and the second in the last layer; with one or more than two, all
         interfaces land in layer 0.
+    positions : (n, 2) float ndarray, optional
+        Site positions; with two leads, projection slicings are tried too and
+        the cheapest valid one is used.
 
     Returns
     -------
@@ -109,15 +156,27 @@ def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray]) -> Slic
         first, last = (np.asarray(i, dtype=np.int64) for i in interfaces)
         d_first = _bfs_distance(adj, first)
         d_last = _bfs_distance(adj, last)
-        level = np.floor_divide(d_first - d_last, 2)
-        lo = level[first].max()
-        hi = level[last].min()
-        if hi <= lo:
+        candidates = [_clipped(np.floor_divide(d_first - d_last, 2), first, last)]
+        # Equipotential-like levels: K d_first / (d_first + d_last), made 1-Lipschitz.
+        k_max = d_first[last].min()
+        if k_max > 1:
+            ratio = k_max * d_first / np.maximum(d_first + d_last, 1)
+            candidates.append(_clipped(np.floor(_lipschitz_below(adj, ratio)).astype(np.int64), first, last))
+        if positions is not None:
+            coo = adj.tocoo()
+            bond = np.linalg.norm(positions[coo.row] - positions[coo.col], axis=1).max() if coo.nnz else 1.0
+            for deg in _FAN_DEGREES:
+                u = np.array([np.cos(np.radians(deg)), np.sin(np.radians(deg))])
+                # A hair above the longest bond so that round-off never lets a bond skip a layer.
+                proj = np.floor(positions @ u / (bond * (1 + 1e-9))).astype(np.int64)
+                candidates.append(_clipped(proj, first, last))
+        candidates = [c for c in candidates if c is not None]
+        if not candidates:
             level = np.zeros(n, dtype=np.int64)
             lead_layer = (0, 0)
         else:
-            level = np.clip(level, lo, hi) - lo
-            lead_layer = (0, int(hi - lo))
+            level = min(candidates, key=_cost)
+            lead_layer = (0, int(level.max()))
     else:
         sources = np.concatenate([np.asarray(i, dtype=np.int64) for i in interfaces])
         level = _bfs_distance(adj, sources)
