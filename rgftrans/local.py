@@ -72,7 +72,7 @@ def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.
     """LDOS and lead-resolved densities at one energy (meV) by RGF."""
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
-    gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, diagonal=True)
+    gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas)
     order = _site_order(blocks)
     n = model.n_sites
     ldos = np.empty(n)
@@ -123,7 +123,7 @@ def scattering_states(model: TightBindingModel, energy: float, lead: int | str =
     q = _lead_index(model, lead)
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
-    gb = green_blocks(device_energy(energy, modes), blocks, sigmas, diagonal=False)
+    gb = green_blocks(device_energy(energy, modes), blocks, sigmas)
     sources, back = incoming_sources(model.leads[q].h_hop, model.leads[q].coupling, modes[q])
     order = _site_order(blocks)
     psi = np.empty((model.n_sites, sources.shape[1]), dtype=complex)

@@ -246,10 +246,17 @@ class GreenBlocks:
     diagonal: list
     columns: list
 
-    def interface_block(self, blocks: "LayerBlocks", p: int, q: int) -> np.ndarray:
-        """``G`` between lead p's and lead q's interface sites."""
-        layer_p = blocks.slicing.lead_layer[p]
-        return self.columns[q][layer_p][blocks.lead_slots[p]]
+
+
+def _interface_block(gb: GreenBlocks, blocks: LayerBlocks, p: int, q: int) -> np.ndarray:
+    """``G`` between lead p's and lead q's interface sites (leads in the same or in the end layers)."""
+    lp, lq = blocks.slicing.lead_layer[p], blocks.slicing.lead_layer[q]
+    sp_, sq = blocks.lead_slots[p], blocks.lead_slots[q]
+    if gb.columns:
+        return gb.columns[q][lp][sp_]
+    if lp != lq:
+        raise ValueError("leads in different layers need the lead columns of G")
+    return gb.diagonal[lp][np.ix_(sp_, sq)]
 
 
 def _embedded_sigmas(blocks: LayerBlocks, sigmas) -> list:
@@ -263,65 +270,55 @@ def _embedded_sigmas(blocks: LayerBlocks, sigmas) -> list:
     return extra
 
 
-def green_blocks(z: complex, blocks: LayerBlocks, sigmas, *, diagonal: bool = True) -> GreenBlocks:
-    """Forward and backward RGF sweeps.
+def green_blocks(z: complex, blocks: LayerBlocks, sigmas, *, columns: bool = True) -> GreenBlocks:
+    """Diagonal blocks of G and its columns at every lead interface, from left-connected functions only.
 
     With ``A_i = z - H_i - Sigma_i`` (leads attached to layer i) and
-    ``V_i = <i|H|i+1>``, the left- and right-connected functions are
-    ``gL_i = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1})^-1`` and
-    ``gR_i = (A_i - V_i gR_{i+1} V_i^dag)^-1``; then
-    ``G_ii = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1} - V_i gR_{i+1} V_i^dag)^-1``,
-    and the columns at a lead in layer l follow from
-    ``G_{i,l} = gR_i V_{i-1}^dag G_{i-1,l}`` (i > l) and
-    ``G_{i,l} = gL_i V_i G_{i+1,l}`` (i < l).  (Standard recursion, e.g.
-    Datta, Electronic Transport in Mesoscopic Systems, 1995, ch. 3, from
-    memory.)
+    ``V_i = <i|H|i+1>``, the forward sweep gives the left-connected
+    ``gL_i = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1})^-1``.  Then, backwards,
+    ``G_KK = gL_K`` and ``G_ii = gL_i + gL_i V_i G_{i+1,i+1} V_i^dag gL_i``;
+    the columns at a lead in layer l are ``G_{i,l} = gL_i V_i G_{i+1,l}``
+    (i < l) and ``G_{i,l} = G_ii V_{i-1}^dag P_{i-1}`` (i > l), with the
+    left-connected column ``P_l = gL_l``, ``P_i = gL_i V_{i-1}^dag P_{i-1}``
+    (Dyson's equation cut between two layers; e.g. Datta, Electronic
+    Transport in Mesoscopic Systems, 1995, ch. 3, from memory).
+
+    Only left-connected functions are inverted.  They contain the leads of
+    layer 0, so no closed sub-system (which has real poles, e.g. a dead-end
+    layer at an eigenvalue of its own) is ever inverted on the real axis.
     """
     h_layers, v_next = blocks.h_layers, blocks.v_next
     n = len(h_layers)
     extra = _embedded_sigmas(blocks, sigmas)
-    a_mats = []
+    g_left = [None] * n
     for i in range(n):
         a = z * np.eye(len(h_layers[i])) - h_layers[i]
         if extra[i] is not None:
             a -= extra[i]
-        a_mats.append(a)
-    left_se = [None] * n   # V_{i-1}^dag gL_{i-1} V_{i-1}
-    right_se = [None] * n  # V_i gR_{i+1} V_i^dag
-    g_left = [None] * n
-    g_right = [None] * n
-    acc = a_mats[0]
-    g_left[0] = np.linalg.inv(acc)
-    for i in range(1, n):
-        v = v_next[i - 1]
-        left_se[i] = v.conj().T @ g_left[i - 1] @ v
-        g_left[i] = np.linalg.inv(a_mats[i] - left_se[i])
-    g_right[n - 1] = np.linalg.inv(a_mats[n - 1])
-    for i in range(n - 2, -1, -1):
-        v = v_next[i]
-        right_se[i] = v @ g_right[i + 1] @ v.conj().T
-        g_right[i] = np.linalg.inv(a_mats[i] - right_se[i])
-    need = set(blocks.slicing.lead_layer)
+        if i > 0:
+            v = v_next[i - 1]
+            a -= v.conj().T @ g_left[i - 1] @ v
+        g_left[i] = np.linalg.inv(a)
     diag = [None] * n
-    for i in range(n):
-        if diagonal or i in need:
-            a = a_mats[i].copy()
-            if left_se[i] is not None:
-                a -= left_se[i]
-            if right_se[i] is not None:
-                a -= right_se[i]
-            diag[i] = np.linalg.inv(a)
-    columns = []
-    for p in range(len(sigmas)):
-        layer = blocks.slicing.lead_layer[p]
-        cols = [None] * n
-        cols[layer] = diag[layer][:, blocks.lead_slots[p]]
-        for i in range(layer + 1, n):
-            cols[i] = g_right[i] @ (v_next[i - 1].conj().T @ cols[i - 1])
-        for i in range(layer - 1, -1, -1):
-            cols[i] = g_left[i] @ (v_next[i] @ cols[i + 1])
-        columns.append(cols)
-    return GreenBlocks(diagonal=diag, columns=columns)
+    diag[n - 1] = g_left[n - 1]
+    for i in range(n - 2, -1, -1):
+        diag[i] = g_left[i] + (g_left[i] @ v_next[i]) @ diag[i + 1] @ (v_next[i].conj().T @ g_left[i])
+    cols_all = []
+    if columns:
+        for p in range(len(sigmas)):
+            layer = blocks.slicing.lead_layer[p]
+            slots = blocks.lead_slots[p]
+            cols = [None] * n
+            cols[layer] = diag[layer][:, slots]
+            for i in range(layer - 1, -1, -1):
+                cols[i] = g_left[i] @ (v_next[i] @ cols[i + 1])
+            prop = g_left[layer][:, slots]
+            for i in range(layer + 1, n):
+                vdag = v_next[i - 1].conj().T
+                cols[i] = diag[i] @ (vdag @ prop)
+                prop = g_left[i] @ (vdag @ prop)
+            cols_all.append(cols)
+    return GreenBlocks(diagonal=diag, columns=cols_all)
 
 
 @dataclass(frozen=True, eq=False)
@@ -369,6 +366,7 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
     blocks = layer_blocks(model, slicing)
     n_leads = len(model.leads)
     n_e = len(energies)
+    need_columns = len(set(blocks.slicing.lead_layer)) > 1
     trans = np.zeros((n_e, n_leads, n_leads))
     n_open = np.zeros((n_e, n_leads), dtype=np.int64)
     flagged = np.zeros(n_e, dtype=bool)
@@ -376,11 +374,11 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
         sigmas, modes = lead_self_energies(model, energy, warn=False)
         flagged[k] = any(m.at_threshold for m in modes)
         n_open[k] = [m.n_open for m in modes]
-        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, diagonal=False)
+        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, columns=need_columns)
         gammas = [_gamma(s) for s in sigmas]
         for p in range(n_leads):
             for q in range(n_leads):
-                g_pq = gb.interface_block(blocks, p, q)
+                g_pq = _interface_block(gb, blocks, p, q)
                 t = np.trace(gammas[p] @ g_pq @ gammas[q] @ g_pq.conj().T).real
                 if p == q:
                     t += n_open[k, p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real

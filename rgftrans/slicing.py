@@ -178,7 +178,9 @@ def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray], *,
             level = min(candidates, key=_cost)
             lead_layer = (0, int(level.max()))
     else:
-        sources = np.concatenate([np.asarray(i, dtype=np.int64) for i in interfaces])
+        # A closed system (no leads) is sliced from its first site.
+        sources = (np.concatenate([np.asarray(i, dtype=np.int64) for i in interfaces]) if interfaces
+                   else np.zeros(1, dtype=np.int64))
         level = _bfs_distance(adj, sources)
         lead_layer = tuple(0 for _ in interfaces)
     order = np.argsort(level, kind="stable")
