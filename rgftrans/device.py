@@ -21,7 +21,8 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from .errors import GeometryError, LeadError, PotentialError
+from .errors import GeometryError, LatticeError, LeadError, PotentialError
+from .fields import Disorder, MagneticField, gauge_weight, peierls_phase, rashba_matrix, zeeman_matrix
 from .geometry import Region
 from .lattices import Lattice, square
 from .materials import Material, hopping_meV, material as lookup_material
@@ -112,6 +113,10 @@ class TightBindingModel:
     coordination : int or None
         Neighbours of a bulk site, if the model comes from a lattice; used to
         refuse leads attached to interior sites.
+    norbs : int
+        Orbitals per site (2 with spin).  Hamiltonian rows are orbitals,
+        ``site * norbs + orbital``; ``positions`` has one row per site, and
+        lead interfaces and couplings are in orbitals.
 
     Models built by hand are validated on creation: matrix shapes, Hermitian
     Hamiltonians, interface indices in range and on the device's boundary.
@@ -122,24 +127,49 @@ class TightBindingModel:
     leads: tuple
     energy_scale: float = 1.0
     coordination: int | None = None
+    norbs: int = 1
 
     def __post_init__(self):
         ham = sp.csr_matrix(self.hamiltonian, dtype=complex)
         object.__setattr__(self, "hamiltonian", ham)
+        object.__setattr__(self, "positions", np.asarray(self.positions, dtype=float).reshape(-1, 2))
         n = ham.shape[0]
         if ham.shape != (n, n) or n == 0:
             raise GeometryError(f"the Hamiltonian must be a non-empty square matrix, got shape {ham.shape}")
+        if n != len(self.positions) * self.norbs:
+            raise GeometryError(
+                f"the Hamiltonian has {n} rows but {len(self.positions)} site positions x {self.norbs} orbitals; "
+                "give one position per site"
+            )
         if not np.all(np.isfinite(ham.data)):
             raise PotentialError("the Hamiltonian contains NaN or infinite entries; check the potential and hoppings")
         if abs(ham - ham.conj().T).max() > 1e-10 * max(1.0, abs(ham).max()):
             raise GeometryError("the device Hamiltonian is not Hermitian; check the hoppings (each bond needs its conjugate)")
-        degree = np.diff(ham.indptr) - (ham.diagonal() != 0)
+        coo = ham.tocoo()
+        off = coo.row // self.norbs != coo.col // self.norbs
+        bonds = np.unique(np.column_stack([coo.row[off] // self.norbs, coo.col[off] // self.norbs]), axis=0)
+        degree = np.bincount(bonds[:, 0], minlength=len(self.positions)) if len(bonds) else np.zeros(len(self.positions), int)
         for lead in self.leads:
-            _validate_lead(lead, n, degree, self.coordination)
+            _validate_lead(lead, n, degree, self.coordination, self.norbs)
 
     @property
     def n_sites(self) -> int:
+        """Number of sites (positions)."""
+        return len(self.positions)
+
+    @property
+    def n_orbitals(self) -> int:
+        """Size of the Hamiltonian: sites times orbitals per site."""
         return self.hamiltonian.shape[0]
+
+    def orbital_positions(self) -> np.ndarray:
+        """(n_orbitals, 2) nm: the position of every Hamiltonian row."""
+        return np.repeat(self.positions, self.norbs, axis=0)
+
+    def per_site(self, values: np.ndarray) -> np.ndarray:
+        """Sum an orbital-resolved array (first axis n_orbitals) over the orbitals of each site."""
+        values = np.asarray(values)
+        return values.reshape(self.n_sites, self.norbs, *values.shape[1:]).sum(axis=1)
 
     def lead(self, name: str) -> LeadModel:
         for lead in self.leads:
@@ -148,7 +178,8 @@ class TightBindingModel:
         raise LeadError(f"no lead named {name!r}; the model has {[l.name for l in self.leads]}")
 
 
-def _validate_lead(lead: LeadModel, n_sites: int, degree: np.ndarray, coordination: int | None) -> None:
+def _validate_lead(lead: LeadModel, n_sites: int, degree: np.ndarray, coordination: int | None,
+                   norbs: int = 1) -> None:
     m = np.shape(lead.h_cell)[0] if np.ndim(lead.h_cell) == 2 else -1
     if np.shape(lead.h_cell) != (m, m) or np.shape(lead.h_hop) != (m, m):
         raise LeadError(
@@ -168,7 +199,8 @@ def _validate_lead(lead: LeadModel, n_sites: int, degree: np.ndarray, coordinati
             "= (interface sites, lead cell sites)"
         )
     if coordination is not None:
-        inner = iface[degree[iface] >= coordination]
+        sites = np.unique(iface // norbs)
+        inner = sites[degree[sites] >= coordination]
         if inner.size:
             raise LeadError(
                 f"lead '{lead.name}' is attached to interior site(s) {inner[:5].tolist()} that already have all "
@@ -191,12 +223,22 @@ class Device:
     lattice : Lattice, optional
         Default: square lattice with ``a = 5 nm``.
     material : str or Material
-        Sets the effective mass, hence the hopping.  Default GaAs.
+        Sets the effective mass (hence the hopping) and the g-factor.  Default GaAs.
     potential : float or callable, meV
         Potential energy ``U(x, y)``; a callable receives arrays of x and y in
-        nm and returns meV.
+        nm and returns meV (e.g. :meth:`rgftrans.gates.GateLayout.potential_energy_meV`).
     hopping : float, meV, optional
-        Overrides ``t = hbar^2/(2 m* a^2)`` (e.g. ``1.0`` for tight-binding units).
+        Overrides ``t = hbar^2/(2 m* a^2)`` (e.g. ``1.0`` for tight-binding
+        units).  Required on the honeycomb lattice.
+    field : float or MagneticField
+        Perpendicular magnetic field (T), orbital (Peierls) and, on spinful
+        devices, Zeeman.
+    spin : bool
+        Two orbitals (spin up, down along z) per site.
+    rashba : float, meV nm
+        Rashba spin-orbit strength alpha (needs ``spin=True``).
+    disorder : Disorder, optional
+        Anderson disorder inside the device (not in the leads).
     """
 
     region: Region
@@ -205,18 +247,37 @@ class Device:
     material: str | Material = "GaAs"
     potential: PotentialLike = 0.0
     hopping: float | None = None
+    field: float | MagneticField = 0.0
+    spin: bool = False
+    rashba: float = 0.0
+    disorder: Disorder | None = None
 
     def discretise(self) -> "TightBindingModel":
         """Return the tight-binding model of this device (see :func:`discretise`)."""
         return discretise(self)
 
     @property
+    def material_data(self) -> Material:
+        return self.material if isinstance(self.material, Material) else lookup_material(self.material)
+
+    @property
+    def magnetic_field(self) -> MagneticField:
+        return self.field if isinstance(self.field, MagneticField) else MagneticField(float(self.field))
+
+    @property
     def t(self) -> float:
         """Nearest-neighbour hopping (meV)."""
         if self.hopping is not None:
-            return float(self.hopping)
-        mat = self.material if isinstance(self.material, Material) else lookup_material(self.material)
-        return hopping_meV(mat.m_eff, self.lattice.spacing)
+            t = float(self.hopping)
+            if not np.isfinite(t) or t <= 0:
+                raise PotentialError(f"hopping must be a positive finite energy, got {self.hopping!r} meV")
+            return t
+        if self.lattice.mass_factor is None:
+            raise LatticeError(
+                f"the {self.lattice.name} lattice has no effective-mass hopping; give hopping= in meV "
+                "(e.g. 2700 for graphene)"
+            )
+        return self.lattice.mass_factor * hopping_meV(self.material_data.m_eff, self.lattice.spacing)
 
 
 class _TagIndex:
@@ -236,11 +297,10 @@ class _TagIndex:
 
     def find(self, tags: np.ndarray) -> np.ndarray:
         keys = self._encode(tags)
-        pos = np.searchsorted(self.sorted, keys)
-        pos = np.minimum(pos, len(self.sorted) - 1)
-        found = len(self.sorted) > 0
-        hit = found & (self.sorted[pos] == keys) if found else np.zeros(len(keys), bool)
-        return np.where(hit, self.order[pos], -1)
+        if len(self.sorted) == 0:
+            return np.full(len(keys), -1)
+        pos = np.minimum(np.searchsorted(self.sorted, keys), len(self.sorted) - 1)
+        return np.where(self.sorted[pos] == keys, self.order[pos], -1)
 
 
 def _bond_pairs(lattice: Lattice, tags_a: np.ndarray, index_b: _TagIndex):
@@ -262,16 +322,6 @@ def _bond_pairs(lattice: Lattice, tags_a: np.ndarray, index_b: _TagIndex):
     if not rows:
         return np.zeros(0, int), np.zeros(0, int)
     return np.concatenate(rows), np.concatenate(cols)
-
-
-def _block(lattice, tags_a, tags_b, t, onsite=None):
-    """Dense Hamiltonian block <A|H|B> with hopping -t (and onsite on the diagonal if A is B)."""
-    rows, cols = _bond_pairs(lattice, tags_a, _TagIndex(tags_b))
-    mat = np.zeros((len(tags_a), len(tags_b)), dtype=complex)
-    mat[rows, cols] = -t
-    if onsite is not None:
-        mat[np.diag_indices(len(tags_a))] += onsite
-    return mat
 
 
 def _evaluate_potential(potential: PotentialLike, xy: np.ndarray) -> np.ndarray:
@@ -300,12 +350,76 @@ def _evaluate_potential(potential: PotentialLike, xy: np.ndarray) -> np.ndarray:
     return values
 
 
+class _Terms:
+    """Matrix elements of one device: hopping blocks and onsite blocks (meV)."""
+
+    def __init__(self, device: Device):
+        self.lattice = device.lattice
+        self.t = device.t
+        self.norbs = 2 if device.spin else 1
+        field_ = device.magnetic_field
+        self.tesla = field_.tesla if field_.orbital else 0.0
+        self.rashba = float(device.rashba)
+        if not np.isfinite(self.rashba):
+            raise PotentialError(f"Rashba strength must be finite, got {device.rashba!r} meV nm")
+        if self.rashba != 0.0 and not device.spin:
+            raise PotentialError(
+                f"a Rashba strength of {self.rashba} meV nm needs spinful sites; set spin=True on the device"
+            )
+        self.zeeman = None
+        if device.spin and field_.zeeman and field_.tesla != 0.0:
+            self.zeeman = zeeman_matrix(device.material_data.g_factor, field_.tesla)
+
+    def onsite(self, scalar: np.ndarray) -> np.ndarray:
+        """(n, norbs, norbs) onsite blocks from scalar onsite energies."""
+        blocks = scalar[:, None, None] * np.eye(self.norbs)
+        if self.zeeman is not None:
+            blocks = blocks + self.zeeman
+        return blocks
+
+    def hop(self, r_row, r_col, f_row, f_col) -> np.ndarray:
+        """(n, norbs, norbs) blocks <row|H|col> of bonds, with Peierls phase and Rashba term."""
+        n = len(r_row)
+        blocks = np.broadcast_to(-self.t * np.eye(self.norbs, dtype=complex), (n, self.norbs, self.norbs)).copy()
+        if self.rashba:
+            blocks += rashba_matrix(self.rashba, r_col - r_row, self.lattice.spacing)
+        if self.tesla:
+            blocks *= np.exp(1j * peierls_phase(r_col, r_row, f_col, f_row, self.tesla))[:, None, None]
+        return blocks
+
+    def expand(self, rows, cols, blocks, shape) -> sp.csr_matrix:
+        """Sparse orbital matrix from site-level blocks."""
+        no = self.norbs
+        o = np.arange(no)
+        r = (rows[:, None, None] * no + o[None, :, None]).repeat(no, axis=2)
+        c = (cols[:, None, None] * no + o[None, None, :]).repeat(no, axis=1)
+        return sp.coo_matrix((blocks.ravel(), (r.ravel(), c.ravel())), shape=(shape[0] * no, shape[1] * no)).tocsr()
+
+    def dense(self, rows, cols, blocks, shape) -> np.ndarray:
+        return self.expand(rows, cols, blocks, shape).toarray()
+
+    def orbitals(self, sites: np.ndarray) -> np.ndarray:
+        return (np.asarray(sites)[:, None] * self.norbs + np.arange(self.norbs)).ravel()
+
+
+@dataclass
+class _LeadGeometry:
+    lead: Lead
+    cell_tags: np.ndarray       # cell 0
+    shift: np.ndarray           # tag shift from cell j to j+1 (n1, n2, 0)
+    period: np.ndarray          # nm
+    along_x: bool
+
+    def cell(self, j: int) -> np.ndarray:
+        return self.cell_tags + j * self.shift
+
+
 def discretise(device: Device) -> TightBindingModel:
     """Discretise a :class:`Device` into a :class:`TightBindingModel`.
 
-    Sites are the lattice points inside the region (boundary included).  Each
-    lead's cell 0 is the row (column) of lattice sites just outside the
-    device's edge within the lead's span.
+    Sites are the lattice points inside the region (boundary included).  A
+    lead's cell 0 is the slab of lattice sites, one lead period thick, just
+    outside the device's edge within the lead's span.
 
     Raises
     ------
@@ -315,10 +429,11 @@ def discretise(device: Device) -> TightBindingModel:
         A lead that misses the device, is wider than the side it sits on,
         meets a ragged edge, runs alongside the device, or overlaps another lead.
     PotentialError
-        A NaN or infinite potential energy.
+        A NaN or infinite potential energy, or spin-orbit without spin.
     """
     lattice = device.lattice
-    t = device.t
+    terms = _Terms(device)
+    t = terms.t
     region = device.region
     all_tags = lattice.tags_in_box(*region.bounds)
     xy_all = lattice.positions(all_tags)
@@ -332,13 +447,14 @@ def discretise(device: Device) -> TightBindingModel:
             f"a = {lattice.spacing:.3g} nm; enlarge the region or refine the lattice"
         )
     index = _TagIndex(tags)
-    onsite = lattice.coordination * t + _evaluate_potential(device.potential, xy)
+    scalar_onsite = lattice.onsite_in_t * t + _evaluate_potential(device.potential, xy)
+    if device.disorder is not None:
+        scalar_onsite = scalar_onsite + device.disorder.values(tags)
     rows, cols = _bond_pairs(lattice, tags, index)
     n = len(tags)
-    ham = sp.coo_matrix((np.full(len(rows), -t, dtype=complex), (rows, cols)), shape=(n, n)).tocsr()
-    ham = (ham + sp.diags(onsite.astype(complex))).tocsr()
 
-    n_pieces, labels = connected_components(ham.astype(bool), directed=False)
+    pattern = sp.coo_matrix((np.ones(len(rows), bool), (rows, cols)), shape=(n, n)).tocsr()
+    n_pieces, labels = connected_components(pattern, directed=False)
     if n_pieces > 1:
         sizes = np.bincount(labels)
         small = np.argmin(sizes)
@@ -354,95 +470,124 @@ def discretise(device: Device) -> TightBindingModel:
     if dup:
         raise LeadError(f"lead names must be unique, {sorted(dup)} appear more than once; rename them")
 
-    extent = np.ptp(np.vstack([xy, [[region.bounds[0], region.bounds[1]], [region.bounds[2], region.bounds[3]]]]), axis=0)
-    depth = int(np.ceil(extent.max() / lattice.spacing)) + 3
-    leads, lead_sites = [], []
-    for lead in device.leads:
-        model, deep_tags = _discretise_lead(lead, lattice, t, tags, xy, index, depth)
-        leads.append(model)
-        lead_sites.append(deep_tags)
-    _check_leads_apart(device.leads, lattice, lead_sites)
-    return TightBindingModel(hamiltonian=ham, positions=xy, leads=tuple(leads), energy_scale=t,
-                             coordination=lattice.coordination)
+    bounds = np.array(region.bounds)
+    extent = max(bounds[2] - bounds[0], bounds[3] - bounds[1], np.ptp(xy[:, 0]), np.ptp(xy[:, 1]))
+    geoms = [_lead_geometry(lead, lattice, tags, xy, index) for lead in device.leads]
+    deep_sites = []
+    for geo in geoms:
+        period_len = np.linalg.norm(geo.period)
+        depth = int(np.ceil(extent / period_len)) + 3
+        deep = np.vstack([geo.cell(j) for j in range(depth)])
+        _check_lead_clear(geo, lattice, deep, index, len(geo.cell_tags))
+        deep_sites.append(deep)
+    _check_leads_apart(device.leads, lattice, deep_sites)
+
+    # Gauge switch f: 0 on leads along x, 1 on leads along y (see rgftrans.fields).
+    cells_x = [lattice.positions(np.vstack([g.cell(j) for j in range(3)])) for g in geoms if g.along_x]
+    cells_y = [lattice.positions(np.vstack([g.cell(j) for j in range(3)])) for g in geoms if not g.along_x]
+    f_dev = gauge_weight(xy, cells_x, cells_y) if terms.tesla else np.zeros(n)
+
+    ham = terms.expand(rows, cols, terms.hop(xy[rows], xy[cols], f_dev[rows], f_dev[cols]), (n, n))
+    ham = ham + terms.expand(np.arange(n), np.arange(n), terms.onsite(scalar_onsite), (n, n))
+    leads = [_lead_model(geo, terms, lattice, xy, f_dev, index) for geo in geoms]
+    return TightBindingModel(hamiltonian=ham.tocsr(), positions=xy, leads=tuple(leads), energy_scale=t,
+                             coordination=lattice.coordination, norbs=terms.norbs)
 
 
-def _discretise_lead(lead: Lead, lattice: Lattice, t: float, tags, xy, index: _TagIndex, depth: int):
-    if lattice.name != "square":
-        raise LeadError(f"lead '{lead.name}': leads on a {lattice.name} lattice are not supported yet; use a square lattice")
-    direction = np.array(_SIDES[lead.side])
-    across = 1 if lead.side in ("left", "right") else 0  # lattice axis along the cross-section
-    along = 1 - across
-    a = lattice.spacing
-    coord_name = "y" if across == 1 else "x"
-    tol = _POSITION_TOL * a
+def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> _LeadGeometry:
+    direction = np.array(_SIDES[lead.side], dtype=float)
+    along_x = lead.side in ("left", "right")
+    across = 1 if along_x else 0
+    period, (p1, p2) = lattice.period_along(direction)
+    length = np.linalg.norm(period)
+    tol = _POSITION_TOL * lattice.spacing
+    coord = "y" if across == 1 else "x"
     lo, hi = lead.span
-    dev_lo, dev_hi = xy[:, across].min(), xy[:, across].max()
-    in_span = (xy[:, across] >= lo - tol) & (xy[:, across] <= hi + tol)
+    c_dev = xy[:, across]
+    in_span = (c_dev >= lo - tol) & (c_dev <= hi + tol)
     if not np.any(in_span):
         raise LeadError(
-            f"lead '{lead.name}' does not touch the device: no device site lies in its span {coord_name} = "
-            f"[{lo:.4g}, {hi:.4g}] nm (the device covers {coord_name} = [{dev_lo:.4g}, {dev_hi:.4g}] nm); "
+            f"lead '{lead.name}' does not touch the device: no device site lies in its span {coord} = "
+            f"[{lo:.4g}, {hi:.4g}] nm (the device covers {coord} = [{c_dev.min():.4g}, {c_dev.max():.4g}] nm); "
             "move the span inside that range"
         )
-    # Lattice lines (rows or columns) whose coordinate lies in the span.
-    origin = lattice.origin[across]
-    first = int(np.ceil((lo - tol - origin) / a))
-    last = int(np.floor((hi + tol - origin) / a))
-    lines = np.arange(first, last + 1)
-    edge = np.empty(len(lines), dtype=np.int64)
-    for k, line in enumerate(lines):
-        on_line = tags[:, across] == line
-        if not np.any(on_line):
+    s_dev = xy @ direction
+    s_edge = s_dev[in_span].max()
+    # Lattice sites near the edge, inside the span.
+    box_lo = np.minimum(xy[in_span].min(axis=0), xy[in_span].min(axis=0) + 2 * period) - 2 * length
+    box_hi = np.maximum(xy[in_span].max(axis=0), xy[in_span].max(axis=0) + 2 * period) + 2 * length
+    box_lo[across], box_hi[across] = lo - lattice.spacing, hi + lattice.spacing
+    cand = lattice.tags_in_box(box_lo[0], box_lo[1], box_hi[0], box_hi[1])
+    cxy = lattice.positions(cand)
+    cand_in = (cxy[:, across] >= lo - tol) & (cxy[:, across] <= hi + tol)
+    cand, cxy = cand[cand_in], cxy[cand_in]
+    s_c = cxy @ direction
+    cell0 = cand[(s_c > s_edge + tol) & (s_c <= s_edge + length + tol)]
+    last_slab = (s_c > s_edge - length + tol) & (s_c <= s_edge + tol)
+    missing = last_slab & (index.find(cand) < 0)
+    if np.any(missing):
+        miss_c = cxy[missing, across]
+        lines_with_sites = np.array([np.any(np.abs(c_dev - c) < tol) for c in miss_c])
+        if not np.all(lines_with_sites):
+            c = miss_c[~lines_with_sites][0]
             raise LeadError(
                 f"lead '{lead.name}' is wider than the device's {lead.side} side: no device site at "
-                f"{coord_name} = {origin + line * a:.4g} nm inside its span [{lo:.4g}, {hi:.4g}] nm; narrow the span"
+                f"{coord} = {c:.4g} nm inside its span [{lo:.4g}, {hi:.4g}] nm; narrow the span"
             )
-        pos = tags[on_line, along]
-        edge[k] = pos.max() if direction[along] > 0 else pos.min()
-    if np.any(edge != edge[0]):
-        coords = origin * 0 + lattice.origin[along] + edge * a
+        # Outermost device site on each line of the span, for the message.
+        ends = [s_dev[in_span & (np.abs(c_dev - c) < tol)].max() for c in np.unique(np.round(c_dev[in_span], 9))]
+        along = 1 - across
+        coords = (-np.array(ends) if direction[along] < 0 else np.array(ends)) + 0.0  # no "-0"
         raise LeadError(
             f"lead '{lead.name}' meets a ragged {lead.side} edge: within its span the device ends at "
             f"{'xy'[along]} = {coords.min():.4g} to {coords.max():.4g} nm; straighten the edge there or narrow the span"
         )
-    step = direction[along]
+    if len(cell0) == 0:  # pragma: no cover - a non-empty span always has a slab
+        raise LeadError(f"lead '{lead.name}': no lattice site in its cross-section; widen the span")
+    return _LeadGeometry(lead=lead, cell_tags=cell0, shift=np.array([p1, p2, 0]), period=period, along_x=along_x)
 
-    def cell_tags(j):
-        cell = np.zeros((len(lines), 3), dtype=np.int64)
-        cell[:, across] = lines
-        cell[:, along] = edge[0] + step * (j + 1)
-        return cell
 
-    cell0, cell1 = cell_tags(0), cell_tags(1)
-    onsite = lattice.coordination * t + lead.potential
-    h_cell = _block(lattice, cell0, cell0, t, onsite=onsite)
-    h_hop = _block(lattice, cell0, cell1, t)
-    # Device sites bonded to cell 0 form the interface.
-    r, c = _bond_pairs(lattice, cell0, index)
-    interface = np.unique(c)
-    coupling = np.zeros((len(interface), len(cell0)), dtype=complex)
-    coupling[np.searchsorted(interface, c), r] = -t
-    # Only cell 0 may touch the device: deeper cells must not neighbour or overlap it.
-    deep = np.vstack([cell_tags(j) for j in range(depth)])
+def _check_lead_clear(geo: _LeadGeometry, lattice, deep, index: _TagIndex, m: int) -> None:
+    """Only cell 0 may touch the device: deeper cells must not neighbour or overlap it."""
     overlap = index.find(deep) >= 0
-    r_deep, c_deep = _bond_pairs(lattice, deep[len(lines):], index)
+    r_deep, _ = _bond_pairs(lattice, deep[m:], index)
     if np.any(overlap) or len(r_deep):
-        k = np.flatnonzero(overlap)[0] if np.any(overlap) else len(lines) + r_deep[0]
+        k = np.flatnonzero(overlap)[0] if np.any(overlap) else m + r_deep[0]
         x, y = lattice.positions(deep[k])[0]
         raise LeadError(
-            f"lead '{lead.name}' runs alongside or into the device near (x, y) = ({x:.4g}, {y:.4g}) nm: the device "
-            f"reaches past its {lead.side} edge beside the lead; narrow the span or reshape the region"
+            f"lead '{geo.lead.name}' runs alongside or into the device near (x, y) = ({x:.4g}, {y:.4g}) nm: the "
+            f"device reaches past its {geo.lead.side} edge beside the lead; narrow the span or reshape the region"
         )
-    model = LeadModel(
-        name=lead.name,
+
+
+def _lead_model(geo: _LeadGeometry, terms: _Terms, lattice: Lattice, xy, f_dev, index) -> LeadModel:
+    t = terms.t
+    cell0, cell1 = geo.cell(0), geo.cell(1)
+    m = len(cell0)
+    pos0, pos1 = lattice.positions(cell0), lattice.positions(cell1)
+    f_lead = np.full(m, 0.0 if geo.along_x else 1.0)
+    idx0 = _TagIndex(cell0)
+    r, c = _bond_pairs(lattice, cell0, idx0)
+    h_cell = terms.dense(r, c, terms.hop(pos0[r], pos0[c], f_lead[r], f_lead[c]), (m, m))
+    onsite = np.full(m, lattice.onsite_in_t * t + geo.lead.potential)
+    h_cell += terms.dense(np.arange(m), np.arange(m), terms.onsite(onsite), (m, m))
+    r, c = _bond_pairs(lattice, cell0, _TagIndex(cell1))
+    h_hop = terms.dense(r, c, terms.hop(pos0[r], pos1[c], f_lead[r], f_lead[c]), (m, m))
+    # Device sites bonded to cell 0 form the interface: <interface|H|cell 0>.
+    r, c = _bond_pairs(lattice, cell0, index)
+    iface_sites = np.unique(c)
+    k = len(iface_sites)
+    local = np.searchsorted(iface_sites, c)
+    coupling = terms.dense(local, r, terms.hop(xy[c], pos0[r], f_dev[c], f_lead[r]), (k, m))
+    return LeadModel(
+        name=geo.lead.name,
         h_cell=h_cell,
         h_hop=h_hop,
-        interface=interface,
+        interface=terms.orbitals(iface_sites),
         coupling=coupling,
-        cell_positions=lattice.positions(cell0),
-        period=step * lattice.prim_vecs[along],
+        cell_positions=pos0,
+        period=geo.period,
     )
-    return model, deep
 
 
 def _check_leads_apart(leads: Sequence[Lead], lattice: Lattice, lead_sites: list[np.ndarray]) -> None:

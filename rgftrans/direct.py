@@ -25,13 +25,13 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from .device import TightBindingModel
-from .leads import incoming_sources, outgoing_amplitudes
+from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
 from .rgf import check_energies, device_energy, lead_self_energies
 
 __all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "scattering_matrix"]
 
 
-def interface_green(model: TightBindingModel, energy: float, *, eta: float = 0.0):
+def interface_green(model: TightBindingModel, energy: float, *, eta: float = 0.0, warn: bool = True):
     """Retarded Green's function between all lead interface sites, by sparse LU.
 
     Returns
@@ -40,9 +40,9 @@ def interface_green(model: TightBindingModel, energy: float, *, eta: float = 0.0
         Rows and columns ordered lead by lead (lead 0's interface first).
     sigmas, modes : lists from :func:`rgftrans.rgf.lead_self_energies`
     """
-    sigmas, modes = lead_self_energies(model, energy, warn=False)
+    sigmas, modes = lead_self_energies(model, energy, warn=warn)
     z = device_energy(energy, modes, eta)
-    n = model.n_sites
+    n = model.n_orbitals
     mat = (z * sp.identity(n, dtype=complex, format="csc") - model.hamiltonian.tocsc()).tolil()
     for lead, sigma in zip(model.leads, sigmas):
         idx = lead.interface
@@ -110,6 +110,7 @@ class ScatteringMatrix:
 def scattering_matrix(model: TightBindingModel, energy: float) -> ScatteringMatrix:
     """Flux-normalised scattering matrix by the Fisher-Lee relation (sparse LU for G)."""
     g, _, modes = interface_green(model, energy)
+    require_off_threshold(modes, energy, "the scattering matrix")
     ranges = _lead_ranges(model)
     return _assemble_smatrix(model, modes, lambda p, q: g[ranges[p], ranges[q]], energy)
 

@@ -19,7 +19,7 @@ import numpy as np
 
 from .errors import LatticeError
 
-__all__ = ["Lattice", "square"]
+__all__ = ["Lattice", "square", "honeycomb", "triangular"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -37,10 +37,17 @@ class Lattice:
     bonds : tuple of (int, int, (int, int))
         Nearest-neighbour bonds, each listed once (the reverse is implied).
     coordination : int
-        Number of nearest neighbours of a bulk site; the effective-mass
-        onsite term is ``coordination * t`` so the band bottom sits at zero.
+        Number of nearest neighbours of a bulk site.
     origin : (2,) float ndarray, nm
         Position of the cell with tag ``(0, 0)``.
+    onsite_in_t : float
+        Onsite energy in units of the hopping: ``coordination`` for the
+        effective-mass lattices (band bottom at zero), 0 for honeycomb (Dirac
+        point at zero).
+    mass_factor : float or None
+        ``t = mass_factor * hbar^2 / (2 m* a^2)`` reproduces the effective
+        mass at the band bottom (1 on the square, 2/3 on the triangular
+        lattice); None where the lattice has no effective-mass meaning.
     """
 
     name: str
@@ -49,6 +56,8 @@ class Lattice:
     bonds: tuple
     coordination: int
     origin: np.ndarray
+    onsite_in_t: float = 0.0
+    mass_factor: float | None = None
 
     def __post_init__(self):
         vecs = np.asarray(self.prim_vecs, dtype=float)
@@ -80,6 +89,32 @@ class Lattice:
         """Fractional cell coordinates (n1, n2) of points given in nm."""
         return (np.atleast_2d(xy) - self.origin) @ np.linalg.inv(self.prim_vecs)
 
+    def bond_vectors(self) -> np.ndarray:
+        """(n_bonds, 2) nm: the vector of each listed bond, from ``b_from`` to ``b_to``."""
+        return np.array([self.basis[b2] - self.basis[b1] + n1 * self.prim_vecs[0] + n2 * self.prim_vecs[1]
+                         for b1, b2, (n1, n2) in self.bonds])
+
+    def period_along(self, direction) -> tuple[np.ndarray, tuple[int, int]]:
+        """Shortest lattice vector parallel to ``direction`` (nm) and its integer coordinates.
+
+        Used for the translation of a lead running in that direction.
+        """
+        d = np.asarray(direction, dtype=float)
+        d = d / np.linalg.norm(d)
+        best = None
+        for n1 in range(-6, 7):
+            for n2 in range(-6, 7):
+                if n1 == 0 and n2 == 0:
+                    continue
+                v = n1 * self.prim_vecs[0] + n2 * self.prim_vecs[1]
+                length = np.linalg.norm(v)
+                if abs(v @ d - length) < 1e-9 * length and (best is None or length < best[0] - 1e-12):
+                    best = (length, v, (n1, n2))
+        if best is None:
+            raise LatticeError(f"the {self.name} lattice has no short lattice vector along {d.tolist()}; "
+                               "leads must run along a lattice direction")
+        return best[1], best[2]
+
     def tags_in_box(self, xmin: float, ymin: float, xmax: float, ymax: float) -> np.ndarray:
         """All tags whose site lies in the box (plus a margin of one cell)."""
         corners = np.array([[xmin, ymin], [xmin, ymax], [xmax, ymin], [xmax, ymax]])
@@ -109,6 +144,8 @@ def square(a: float, *, origin=(0.0, 0.0)) -> Lattice:
         bonds=((0, 0, (1, 0)), (0, 0, (0, 1))),
         coordination=4,
         origin=np.asarray(origin, dtype=float),
+        onsite_in_t=4.0,
+        mass_factor=1.0,
     )
 
 
@@ -120,3 +157,53 @@ def _check_spacing(a) -> float:
     if not np.isfinite(a) or a <= 0:
         raise LatticeError(f"lattice spacing must be positive and finite, got a = {a} nm; use e.g. a = 5 nm")
     return a
+
+
+def honeycomb(a: float, *, origin=(0.0, 0.0)) -> Lattice:
+    """Honeycomb lattice with carbon-carbon distance ``a`` (nm); zigzag chains run along x.
+
+    Primitive vectors ``a1 = sqrt(3) a (1, 0)`` and ``a2 = sqrt(3) a (1/2, sqrt(3)/2)``;
+    sublattice A at the cell origin, B at ``(0, a)``; three bonds per cell.
+    Graphene has ``a = 0.142 nm`` (Castro Neto et al., Rev. Mod. Phys. 81, 109
+    (2009), from memory).  Left/right leads are zigzag ribbons, top/bottom
+    leads armchair ribbons.
+
+    Examples
+    --------
+    >>> lat = honeycomb(0.142)
+    >>> round(lat.spacing, 6), lat.coordination, lat.n_basis
+    (0.142, 3, 2)
+    """
+    a = _check_spacing(a)
+    r3 = np.sqrt(3.0)
+    return Lattice(
+        name="honeycomb",
+        prim_vecs=np.array([[r3 * a, 0.0], [r3 * a / 2, 1.5 * a]]),
+        basis=np.array([[0.0, 0.0], [0.0, a]]),
+        bonds=((0, 1, (0, 0)), (0, 1, (1, -1)), (0, 1, (0, -1))),
+        coordination=3,
+        origin=np.asarray(origin, dtype=float),
+    )
+
+
+def triangular(a: float, *, origin=(0.0, 0.0)) -> Lattice:
+    """Triangular lattice of spacing ``a`` (nm), six nearest neighbours.
+
+    Examples
+    --------
+    >>> lat = triangular(2.0)
+    >>> lat.spacing, lat.coordination
+    (2.0, 6)
+    """
+    a = _check_spacing(a)
+    return Lattice(
+        name="triangular",
+        prim_vecs=np.array([[a, 0.0], [a / 2, np.sqrt(3.0) * a / 2]]),
+        basis=np.zeros((1, 2)),
+        bonds=((0, 0, (1, 0)), (0, 0, (0, 1)), (0, 0, (-1, 1))),
+        coordination=6,
+        origin=np.asarray(origin, dtype=float),
+        onsite_in_t=6.0,
+        # E(k) = 2t [3 - sum_bonds cos(k.d)] ~ (3/2) t a^2 k^2, so t = (2/3) hbar^2/(2 m* a^2).
+        mass_factor=2.0 / 3.0,
+    )

@@ -45,6 +45,7 @@ __all__ = [
     "surface_green_modes",
     "surface_green_decimation",
     "incoming_sources",
+    "require_off_threshold",
     "outgoing_amplitudes",
 ]
 
@@ -59,8 +60,13 @@ THRESHOLD_VELOCITY = 1e-5
 THRESHOLD_ETA = 1e-8
 #: Generalised eigenvalues with ``|beta| <`` this times ``|alpha|`` are infinite.
 _INFINITE_TOL = 1e-13
-#: Propagating Bloch factors closer than this are one degenerate group.
-_DEGENERATE_TOL = 1e-7
+#: Propagating Bloch factors closer than this are one degenerate group.  Truly
+#: degenerate (non-defective) factors split only by round-off (~1e-15); merging
+#: near-degenerate ones of opposite velocity would mix them and cost accuracy.
+_DEGENERATE_TOL = 1e-10
+#: A degenerate group whose (unit) wave functions have a singular value below
+#: this is defective -- two solutions merging at a band edge, not two channels.
+_DEFECTIVE_TOL = 1e-5
 
 
 @dataclass(frozen=True)
@@ -221,6 +227,10 @@ def _modes_at(h_cell, h_hop, energy, scale):
         lam[idx] = lam[idx] / absl[idx]  # put them exactly on the unit circle
         for group in _degenerate_groups(lam[idx]):
             members = idx[group]
+            if len(members) > 1 and np.linalg.svd(phi[:, members], compute_uv=False)[-1] < _DEFECTIVE_TOL:
+                # Two Bloch solutions merging into one (a Jordan block): a band edge.
+                on_threshold = True
+                continue
             new_phi, vel = _velocity_basis(phi[:, members], lam[members[0]], h_hop)
             if np.any(np.abs(vel) < THRESHOLD_VELOCITY * scale):
                 on_threshold = True
@@ -285,6 +295,15 @@ def _velocity_basis(phis: np.ndarray, lam: complex, h_hop: np.ndarray):
     j_mat = 1j * (lam * q.conj().T @ h_hop @ q - np.conj(lam) * q.conj().T @ h_hop.conj().T @ q)
     vel, u = np.linalg.eigh(0.5 * (j_mat + j_mat.conj().T))
     return q @ u, vel
+
+
+def require_off_threshold(modes: list, energy: float, what: str) -> None:
+    """Refuse flux-normalised quantities at a channel threshold, where a channel has zero velocity."""
+    if any(m.at_threshold for m in modes):
+        raise EnergyError(
+            f"{what} at E = {float(np.real(energy)):.10g} meV is undefined: a lead channel sits exactly at its "
+            "threshold (zero velocity); shift the energy slightly"
+        )
 
 
 def incoming_sources(h_hop, coupling, modes: LeadModes) -> tuple[np.ndarray, np.ndarray]:

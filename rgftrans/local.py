@@ -23,7 +23,7 @@ import scipy.sparse as sp
 
 from .device import TightBindingModel
 from .errors import LeadError
-from .leads import incoming_sources, outgoing_amplitudes
+from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
 from .rgf import LayerBlocks, device_energy, green_blocks, layer_blocks, lead_self_energies
 from .slicing import Slicing
 
@@ -74,15 +74,16 @@ def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.
     sigmas, modes = lead_self_energies(model, energy)
     gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas)
     order = _site_order(blocks)
-    n = model.n_sites
+    n = model.n_orbitals
     ldos = np.empty(n)
     ldos[order] = np.concatenate([-np.diag(g).imag / np.pi for g in gb.diagonal])
-    dens = np.empty((len(model.leads), n))
+    dens = np.empty((n, len(model.leads)))
     for p, sigma in enumerate(sigmas):
         gamma = 1j * (sigma - sigma.conj().T)
         per_layer = [np.einsum("ik,kl,il->i", c, gamma, c.conj()).real / (2 * np.pi) for c in gb.columns[p]]
-        dens[p, order] = np.concatenate(per_layer)
-    return LocalResult(energy=float(energy), ldos=ldos, lead_density=dens, positions=model.positions,
+        dens[order, p] = np.concatenate(per_layer)
+    return LocalResult(energy=float(energy), ldos=model.per_site(ldos), lead_density=model.per_site(dens).T,
+                       positions=model.positions,
                        lead_names=tuple(l.name for l in model.leads))
 
 
@@ -100,8 +101,9 @@ class ScatteringStates:
     energy : float, meV
     lead : int
         Index of the lead the waves come in from.
-    wavefunctions : (n_sites, n_channels) complex ndarray
-        One column per incoming open channel, unit incoming flux.
+    wavefunctions : (n_orbitals, n_channels) complex ndarray
+        One column per incoming open channel, unit incoming flux; rows are
+        orbitals (``site * norbs + orbital``).
     amplitudes : list (per lead) of (n_open_p, n_channels) complex ndarray
         Outgoing flux amplitudes into every lead's open channels (a column
         of the S matrix); for the source lead these are reflections.
@@ -123,10 +125,11 @@ def scattering_states(model: TightBindingModel, energy: float, lead: int | str =
     q = _lead_index(model, lead)
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
+    require_off_threshold(modes, energy, "a scattering state")
     gb = green_blocks(device_energy(energy, modes), blocks, sigmas)
     sources, back = incoming_sources(model.leads[q].h_hop, model.leads[q].coupling, modes[q])
     order = _site_order(blocks)
-    psi = np.empty((model.n_sites, sources.shape[1]), dtype=complex)
+    psi = np.empty((model.n_orbitals, sources.shape[1]), dtype=complex)
     psi[order] = np.vstack([c @ sources for c in gb.columns[q]])
     amplitudes = []
     for p, (lead_p, mp) in enumerate(zip(model.leads, modes)):
@@ -134,23 +137,27 @@ def scattering_states(model: TightBindingModel, energy: float, lead: int | str =
     return ScatteringStates(energy=float(energy), lead=q, wavefunctions=psi, amplitudes=amplitudes)
 
 
-def bond_currents(model: TightBindingModel, psi: np.ndarray) -> sp.coo_matrix:
-    """Bond currents of one or more states.
+def bond_currents(model: TightBindingModel, psi: np.ndarray) -> sp.csr_matrix:
+    """Bond currents between sites of one or more states.
 
     Parameters
     ----------
-    psi : (n_sites,) or (n_sites, n_states) complex ndarray
+    psi : (n_orbitals,) or (n_orbitals, n_states) complex ndarray
         States; currents of several columns are summed.
 
     Returns
     -------
-    (n_sites, n_sites) scipy.sparse.coo_matrix
+    (n_sites, n_sites) scipy.sparse.csr_matrix
         Entry (i, j) is the current from site i to site j,
-        ``-2 Im(sum_states psi_i^* H_ij psi_j)`` (hbar = 1); antisymmetric.
+        ``-2 Im(sum_{states, orbitals} psi_i^* H_ij psi_j)`` (hbar = 1), summed
+        over the orbitals of the two sites; antisymmetric.  Terms inside one
+        site (spin flips) carry no current between sites and are left out.
     """
-    psi = np.asarray(psi).reshape(model.n_sites, -1)
+    psi = np.asarray(psi).reshape(model.n_orbitals, -1)
     ham = model.hamiltonian.tocoo()
-    off = ham.row != ham.col
+    no = model.norbs
+    si, sj = ham.row // no, ham.col // no
+    off = si != sj
     i, j, h = ham.row[off], ham.col[off], ham.data[off]
     current = -2.0 * np.imag(np.sum(psi[i].conj() * psi[j], axis=1) * h)
-    return sp.coo_matrix((current, (i, j)), shape=ham.shape)
+    return sp.coo_matrix((current, (si[off], sj[off])), shape=(model.n_sites, model.n_sites)).tocsr()

@@ -99,9 +99,9 @@ def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> La
     """Cut the model's Hamiltonian into dense layer blocks (slicing it first if needed)."""
     if slicing is None:
         slicing = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
-                               positions=model.positions)
+                               positions=model.orbital_positions())
     ham = model.hamiltonian.tocsr()
-    layer_of = slicing.layer_of_sites(model.n_sites)
+    layer_of = slicing.layer_of_sites(model.n_orbitals)
     coo = ham.tocoo()
     jump = np.abs(layer_of[coo.row] - layer_of[coo.col])
     if np.any(jump > 1):
