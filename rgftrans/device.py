@@ -14,20 +14,22 @@ the potential energy ``U(x, y)`` (meV) is added on top.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from dataclasses import field as dc_field
 
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from .errors import GeometryError, LatticeError, LeadError, PotentialError
+from .errors import GeometryError, LatticeError, LeadError, PotentialError, ResolutionWarning
 from .fields import Disorder, MagneticField, gauge_weight, peierls_phase, rashba_matrix, zeeman_matrix
 from .geometry import Region
 from .lattices import Lattice, square
 from .materials import Material, hopping_meV, material as lookup_material
 
-__all__ = ["Lead", "Device", "LeadModel", "TightBindingModel", "discretise"]
+__all__ = ["Lead", "Device", "LeadModel", "TightBindingModel", "discretise", "check_resolution"]
 
 _SIDES = {"left": (-1, 0), "right": (1, 0), "bottom": (0, -1), "top": (0, 1)}
 #: Positions closer than this fraction of the lattice spacing count as equal.
@@ -113,6 +115,11 @@ class TightBindingModel:
     coordination : int or None
         Neighbours of a bulk site, if the model comes from a lattice; used to
         refuse leads attached to interior sites.
+    spacing_nm : float or None
+        Lattice spacing of a model that discretises a continuum effective-mass
+        material (band bottom at zero, hopping from the material), for the
+        resolution check of :func:`check_resolution`; None for lattice models
+        with a given hopping.
     norbs : int
         Orbitals per site (2 with spin).  Hamiltonian rows are orbitals,
         ``site * norbs + orbital``; ``positions`` has one row per site, and
@@ -128,6 +135,7 @@ class TightBindingModel:
     energy_scale: float = 1.0
     coordination: int | None = None
     norbs: int = 1
+    spacing_nm: float | None = None
 
     def __post_init__(self):
         ham = sp.csr_matrix(self.hamiltonian, dtype=complex)
@@ -176,6 +184,36 @@ class TightBindingModel:
             if lead.name == name:
                 return lead
         raise LeadError(f"no lead named {name!r}; the model has {[l.name for l in self.leads]}")
+
+
+#: Fewest lattice sites per wavelength before a warning.  At 10 sites per
+#: wavelength ka = 0.63 and the lattice dispersion 2t(1 - cos ka) falls short of
+#: the effective-mass parabola t (ka)^2 by (ka)^2/12 = 3.3 %; coarser grids
+#: shift levels and thresholds visibly (common practice, no source).
+MIN_SITES_PER_WAVELENGTH = 10.0
+
+
+def check_resolution(model: "TightBindingModel", energies) -> None:
+    """Warn (ResolutionWarning) if the lattice is too coarse for the highest energy.
+
+    Only for effective-mass models (band bottom at zero): the wavelength at
+    energy E above the band bottom is ``2 pi a sqrt(t / E)``.
+    """
+    if model.spacing_nm is None:
+        return
+    e_max = float(np.max(energies))
+    if e_max <= 0:
+        return
+    sites = 2 * np.pi * np.sqrt(model.energy_scale / e_max)
+    if sites < MIN_SITES_PER_WAVELENGTH:
+        warnings.warn(
+            f"the lattice is too coarse for E = {e_max:.4g} meV: the wavelength there is {sites:.1f} sites "
+            f"({sites * model.spacing_nm:.3g} nm at a = {model.spacing_nm:.3g} nm), fewer than "
+            f"{MIN_SITES_PER_WAVELENGTH:.0f}; levels and thresholds will be shifted -- use a spacing of at most "
+            f"{sites * model.spacing_nm / MIN_SITES_PER_WAVELENGTH:.3g} nm",
+            ResolutionWarning,
+            stacklevel=3,
+        )
 
 
 def _validate_lead(lead: LeadModel, n_sites: int, degree: np.ndarray, coordination: int | None,
@@ -243,7 +281,7 @@ class Device:
 
     region: Region
     leads: Sequence[Lead]
-    lattice: Lattice = field(default_factory=lambda: square(5.0))
+    lattice: Lattice = dc_field(default_factory=lambda: square(5.0))
     material: str | Material = "GaAs"
     potential: PotentialLike = 0.0
     hopping: float | None = None
@@ -491,7 +529,8 @@ def discretise(device: Device) -> TightBindingModel:
     ham = ham + terms.expand(np.arange(n), np.arange(n), terms.onsite(scalar_onsite), (n, n))
     leads = [_lead_model(geo, terms, lattice, xy, f_dev, index) for geo in geoms]
     return TightBindingModel(hamiltonian=ham.tocsr(), positions=xy, leads=tuple(leads), energy_scale=t,
-                             coordination=lattice.coordination, norbs=terms.norbs)
+                             coordination=lattice.coordination, norbs=terms.norbs,
+                             spacing_nm=lattice.spacing if device.hopping is None else None)
 
 
 def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> _LeadGeometry:

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .device import TightBindingModel
+from .device import TightBindingModel, check_resolution
 from .errors import EnergyError, LeadError, ThresholdWarning
 from .leads import lead_modes
 from .materials import CONDUCTANCE_QUANTUM_S
@@ -172,7 +172,10 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
     """
     energies = check_energies(energies)
     if len(model.leads) != 2:
-        raise LeadError(f"transmission() needs exactly two leads, the model has {len(model.leads)}")
+        raise LeadError(
+            f"transmission() needs exactly two leads, the model has {len(model.leads)}; use transmission_matrix()"
+        )
+    check_resolution(model, energies)
     blocks = layer_blocks(model, slicing)
     n_e = len(energies)
     trans = np.empty(n_e)
@@ -363,6 +366,7 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
     + Tr[Gamma_p G_pp Gamma_p G_pp^dag]``.
     """
     energies = check_energies(energies)
+    check_resolution(model, energies)
     blocks = layer_blocks(model, slicing)
     n_leads = len(model.leads)
     n_e = len(energies)
