@@ -1,0 +1,143 @@
+"""Field, spin and disorder terms: gauge invariance, Onsager reciprocity, Zeeman, spin degeneracy, disorder."""
+
+import numpy as np
+import pytest
+
+from rgftrans.device import Device, Lead
+from rgftrans.direct import transmission_direct
+from rgftrans.errors import PotentialError
+from rgftrans.fields import BOHR_MAGNETON_MEV_PER_T, Disorder, MagneticField
+from rgftrans.geometry import disk, rectangle
+from rgftrans.lattices import square, triangular
+from rgftrans.rgf import transmission, transmission_matrix
+
+A = 4.0  # nm
+ENERGIES = [2.5, 4.0, 6.5]  # meV, GaAs at a = 4 nm
+
+
+def pot(x, y):
+    return 0.4 * np.sin(0.11 * x) * np.cos(0.07 * y + 0.3)
+
+
+def dot(field=0.0, **kw):
+    region = rectangle(0, 0, 120, 80) - disk((60, 40), 15)
+    leads = [Lead("a", "left", (20, 60)), Lead("b", "top", (60, 100))]
+    return Device(region, leads, lattice=square(A), field=field, potential=pot, **kw)
+
+
+def rotated_dot(field):
+    """The same dot turned by +90 degrees: (x, y) -> (-y, x); left -> bottom, top -> left."""
+    region = rectangle(-80, 0, 0, 120) - disk((-40, 60), 15)
+    leads = [Lead("a", "bottom", (-60, -20)), Lead("b", "left", (60, 100))]
+    return Device(region, leads, lattice=square(A), field=field, potential=lambda x, y: pot(y, -x))
+
+
+@pytest.mark.parametrize("tesla", [0.7, -1.9])
+def test_gauge_choice_does_not_change_transmission(tesla):
+    """A rotation moves each lead to the other kind of gauge region; T must not notice (gauge invariance)."""
+    t_a = transmission(dot(tesla).discretise(), ENERGIES).transmission
+    t_b = transmission(rotated_dot(tesla).discretise(), ENERGIES).transmission
+    assert np.allclose(t_a, t_b, atol=1e-10)
+    # and the field does something: the check is not comparing zero-field copies
+    assert np.abs(t_a - transmission(dot(0.0).discretise(), ENERGIES).transmission).max() > 1e-3
+
+
+def test_two_terminal_onsager():
+    """G(B) = G(-B) for two terminals (Onsager; Büttiker, PRL 57, 1761 (1986), from memory)."""
+    t_p = transmission(dot(1.3).discretise(), ENERGIES).transmission
+    t_m = transmission(dot(-1.3).discretise(), ENERGIES).transmission
+    assert np.allclose(t_p, t_m, atol=1e-10)
+
+
+def test_multiterminal_reciprocity_and_its_breaking():
+    """T_pq(B) = T_qp(-B), while T_pq(B) != T_pq(-B) in general (Büttiker 1986, from memory)."""
+    region = rectangle(0, 0, 100, 80) - disk((45, 40), 12)
+    leads = [Lead("a", "left", (10, 50)), Lead("b", "right", (30, 70)), Lead("c", "top", (20, 60))]
+
+    def tm(b):
+        dev = Device(region, leads, lattice=square(A), field=b, potential=pot)
+        return transmission_matrix(dev.discretise(), [3.0, 5.5]).transmission
+
+    t_p, t_m = tm(1.1), tm(-1.1)
+    assert np.allclose(t_p, np.swapaxes(t_m, 1, 2), atol=1e-9)
+    off = ~np.eye(3, dtype=bool)
+    assert np.abs(t_p[:, off] - t_m[:, off]).max() > 1e-3
+
+
+def test_rgf_matches_sparse_lu_with_field_spin_rashba_and_disorder():
+    model = dot(0.6, spin=True, rashba=15.0, disorder=Disorder(3.0, seed=5)).discretise()
+    assert np.allclose(transmission(model, ENERGIES).transmission, transmission_direct(model, ENERGIES)[:, 1, 0],
+                       atol=1e-9)
+
+
+def test_spin_degenerate_transmission_doubles():
+    """No Zeeman, no Rashba: the two spins are independent copies (common practice, no source)."""
+    t1 = transmission(dot(MagneticField(0.8, zeeman=False)).discretise(), ENERGIES).transmission
+    t2 = transmission(dot(MagneticField(0.8, zeeman=False), spin=True).discretise(), ENERGIES).transmission
+    assert np.allclose(t2, 2 * t1, atol=1e-10)
+
+
+def test_zeeman_splits_the_spins_rigidly():
+    """T(E) = T0(E - E_z) + T0(E + E_z), E_z = (g/2) mu_B B with mu_B from scipy.constants (CODATA)."""
+    tesla = 2.0
+    e_z = 0.5 * (-0.44) * BOHR_MAGNETON_MEV_PER_T * tesla  # GaAs g = -0.44
+    assert BOHR_MAGNETON_MEV_PER_T == pytest.approx(5.7883817982e-2, rel=1e-9)  # CODATA 2022 mu_B = 5.7883817982e-5 eV/T
+    spinful = transmission(dot(tesla, spin=True).discretise(), ENERGIES).transmission
+    orbital = dot(tesla).discretise()
+    e = np.array(ENERGIES)
+    expected = transmission(orbital, e - e_z).transmission + transmission(orbital, e + e_z).transmission
+    assert np.allclose(spinful, expected, atol=1e-10)
+
+
+def test_disorder_is_reproducible_per_site_and_box_distributed():
+    dis = Disorder(4.0, seed=12)
+    tags = np.array([[i, j, 0] for i in range(100) for j in range(100)])
+    v = dis.values(tags)
+    assert np.array_equal(v, Disorder(4.0, seed=12).values(tags))            # same seed, same values
+    assert np.array_equal(v[5000:5100], dis.values(tags[5000:5100]))        # keyed by site, not by order
+    assert not np.allclose(v, Disorder(4.0, seed=13).values(tags))          # another seed differs
+    assert v.min() >= -2.0 and v.max() < 2.0
+    # Box distribution of width W: mean 0, variance W^2/12 (common practice); 1e4 samples -> ~3 % on the variance.
+    assert abs(v.mean()) < 0.05
+    assert v.var() == pytest.approx(16.0 / 12.0, rel=0.05)
+
+
+@pytest.mark.parametrize("bad, match", [
+    (dict(rashba=10.0), "needs spinful sites"),
+    (dict(rashba=float("nan"), spin=True), "Rashba strength must be finite"),
+    (dict(field=float("inf")), "magnetic field must be finite"),
+    (dict(disorder="x"), None),
+])
+def test_bad_field_and_spin_input(bad, match):
+    if match is None:
+        with pytest.raises(Exception):
+            dot(**bad).discretise()
+        return
+    with pytest.raises(PotentialError, match=match) as err:
+        dot(**bad).discretise()
+    assert "\n" not in str(err.value)
+
+
+def test_negative_disorder_width_is_refused():
+    with pytest.raises(PotentialError, match="non-negative"):
+        Disorder(-1.0)
+
+
+def test_triangular_lattice_device_matches_sparse_lu():
+    dev = Device(rectangle(0, 0, 12, 8), [Lead("l", "left", (0, 8)), Lead("r", "bottom", (2, 9))],
+                 lattice=triangular(1.0), hopping=1.0, potential=lambda x, y: 0.5 * np.sin(x), field=50.0)
+    model = dev.discretise()
+    e = [1.5, 4.2, 7.7]
+    assert np.allclose(transmission(model, e).transmission, transmission_direct(model, e)[:, 1, 0], atol=1e-9)
+
+
+def test_triangular_effective_mass():
+    """t = (2/3) hbar^2/(2 m* a^2) on the triangular lattice reproduces the band-bottom curvature.
+
+    E(k) = 2t [3 - cos(k.a1) - cos(k.a2) - cos(k.(a2 - a1))] ~ (3/2) t a^2 k^2 (our derivation).
+    """
+    from rgftrans.materials import hopping_meV
+
+    dev = Device(rectangle(0, 0, 10, 10), [Lead("l", "left", (0, 10)), Lead("r", "right", (0, 10))],
+                 lattice=triangular(2.0))
+    assert dev.t == pytest.approx(2 / 3 * hopping_meV(0.067, 2.0), rel=1e-12)
