@@ -31,7 +31,9 @@ the broadening ``gamma = i (sigma - sigma^dag)``.
 
 from __future__ import annotations
 
+import hashlib
 import warnings
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -44,6 +46,7 @@ __all__ = [
     "lead_modes",
     "surface_green_modes",
     "surface_green_decimation",
+    "clear_lead_cache",
     "incoming_sources",
     "require_off_threshold",
     "outgoing_amplitudes",
@@ -117,7 +120,68 @@ def hopping_scale(h_cell: np.ndarray, h_hop: np.ndarray) -> float:
     return float(scale) if scale > 0 else 1.0
 
 
+#: Lead results kept for reuse (a gate or geometry sweep meets the same leads at
+#: the same energies again and again); bounded by the bytes they hold.
+LEAD_CACHE_BYTES = 256 * 2**20
+_cache: "OrderedDict[tuple, LeadModes]" = OrderedDict()
+_cache_bytes = 0
+_eigh_cache: "OrderedDict[bytes, tuple]" = OrderedDict()
+
+
+def _digest(*arrays: np.ndarray) -> bytes:
+    h = hashlib.blake2b(digest_size=16)
+    for a in arrays:
+        h.update(str(a.shape).encode())
+        h.update(np.ascontiguousarray(a).tobytes())
+    return h.digest()
+
+
+def _nbytes(modes: LeadModes) -> int:
+    return sum(getattr(modes, f).nbytes for f in ("phi_out", "phi_in", "g_surface", "lam_out", "lam_in"))
+
+
+def clear_lead_cache() -> None:
+    """Forget all cached lead solutions."""
+    global _cache_bytes
+    _cache.clear()
+    _eigh_cache.clear()
+    _cache_bytes = 0
+
+
 def lead_modes(h_cell, h_hop, energy, *, warn: bool = True) -> LeadModes:
+    """Bloch modes and surface Green's function of a lead (mode method), cached.
+
+    Results are kept (up to :data:`LEAD_CACHE_BYTES`) keyed by the lead's
+    matrices and the energy, so sweeps that leave the leads alone pay for
+    each lead energy once.  A threshold warning is repeated on every call.
+    """
+    global _cache_bytes
+    h_cell = np.asarray(h_cell, dtype=complex)
+    h_hop = np.asarray(h_hop, dtype=complex)
+    energy = complex(energy)
+    key = (_digest(h_cell, h_hop), energy)
+    modes = _cache.get(key)
+    if modes is None:
+        modes = _lead_modes_uncached(h_cell, h_hop, energy)
+        _cache[key] = modes
+        _cache_bytes += _nbytes(modes)
+        while _cache_bytes > LEAD_CACHE_BYTES and len(_cache) > 1:
+            _, old = _cache.popitem(last=False)
+            _cache_bytes -= _nbytes(old)
+    else:
+        _cache.move_to_end(key)
+    if modes.at_threshold and warn:
+        warnings.warn(
+            f"energy {energy.real:.10g} meV sits on a lead channel threshold (group velocity zero); "
+            f"computed at E + {modes.energy.imag:.1e}i meV instead -- shift the energy grid slightly "
+            "to avoid the band edge",
+            ThresholdWarning,
+            stacklevel=2,
+        )
+    return modes
+
+
+def _lead_modes_uncached(h_cell, h_hop, energy) -> LeadModes:
     """Bloch modes and surface Green's function of a lead (mode method).
 
     Parameters
@@ -129,16 +193,19 @@ def lead_modes(h_cell, h_hop, energy, *, warn: bool = True) -> LeadModes:
         singular.
     energy : float or complex, meV
         Energy.  A real energy on a channel threshold is moved to
-        ``energy + i THRESHOLD_ETA * scale`` and :class:`ThresholdWarning` is
-        issued (unless ``warn=False``); the result records it.
+        ``energy + i THRESHOLD_ETA * scale``; the result records it
+        (``at_threshold``) and :func:`lead_modes` warns.
+
+    Leads whose outward hopping is a multiple of the identity (every lead
+    without a magnetic field or spin-orbit coupling) separate into
+    independent transverse channels; they are solved in closed form from one
+    (cached) diagonalisation of ``h_cell`` instead of the ``2m x 2m``
+    generalised eigenproblem.
 
     Returns
     -------
     LeadModes
     """
-    h_cell = np.asarray(h_cell, dtype=complex)
-    h_hop = np.asarray(h_hop, dtype=complex)
-    energy = complex(energy)
     if not np.isfinite(energy):
         raise EnergyError(f"energy must be finite, got {energy}; remove NaN or infinite values from the energies")
     scale = hopping_scale(h_cell, h_hop)
@@ -151,14 +218,6 @@ def lead_modes(h_cell, h_hop, energy, *, warn: bool = True) -> LeadModes:
     if isinstance(modes, int):  # on a threshold: step off it into the upper half plane
         n_open = modes
         shifted = energy + 1j * THRESHOLD_ETA * scale
-        if warn:
-            warnings.warn(
-                f"energy {energy.real:.10g} meV sits on a lead channel threshold (group velocity zero); "
-                f"computed at E + {THRESHOLD_ETA * scale:.1e}i meV instead -- shift the energy grid slightly "
-                "to avoid the band edge",
-                ThresholdWarning,
-                stacklevel=2,
-            )
         modes = _modes_at(h_cell, h_hop, shifted, scale)
         modes = LeadModes(**{**modes.__dict__, "n_open": n_open, "at_threshold": True})
     return modes
@@ -193,6 +252,70 @@ def _modes_at(h_cell, h_hop, energy, scale):
     velocity (a channel threshold) -- the number of open channels with a
     nonzero velocity, as an int.
     """
+    tau = h_hop[0, 0]
+    if np.array_equal(h_hop, tau * np.eye(len(h_hop))) and tau != 0:
+        return _modes_separable(h_cell, tau, energy, scale)
+    return _modes_generalised(h_cell, h_hop, energy, scale)
+
+
+def _modes_separable(h_cell, tau: complex, energy: complex, scale: float):
+    """Closed-form modes of a lead with ``h_hop = tau * 1``.
+
+    In the eigenbasis ``h_cell U = U diag(eps)`` every transverse channel is a
+    chain with onsite ``eps_n`` and hopping ``tau``: its Bloch factors solve
+    ``tau^* + (eps_n - E) lam + tau lam^2 = 0``, its velocity is
+    ``-2 Im(lam tau)``, and ``g_surface = U diag(1 / (E - eps_n - tau lam_n)) U^dag``
+    with ``lam_n`` the outgoing root (Datta 1995, ch. 3, from memory, for the
+    strip; the closed form of reference-checks §1 channel by channel).
+    """
+    key = _digest(h_cell)
+    hit = _eigh_cache.get(key)
+    if hit is None:
+        hit = np.linalg.eigh(h_cell)
+        _eigh_cache[key] = hit
+        if len(_eigh_cache) > 64:
+            _eigh_cache.popitem(last=False)
+    eps, u = hit
+    z = energy - eps
+    root = np.sqrt(z * z - 4 * abs(tau) ** 2 + 0j)
+    lam_a = (z + root) / (2 * tau)
+    lam_b = (z - root) / (2 * tau)
+    real_energy = energy.imag == 0.0
+    if real_energy:
+        inside = np.abs(z.real) < 2 * abs(tau)
+        vel_a = -2 * np.imag(lam_a * tau)
+        if np.any(inside & (np.abs(vel_a) < THRESHOLD_VELOCITY * scale)) or np.any(
+                np.abs(np.abs(z.real) - 2 * abs(tau)) < 1e-14 * scale):
+            return int(np.count_nonzero(inside & (np.abs(vel_a) >= THRESHOLD_VELOCITY * scale)))
+        # Inside the band the roots are conj pairs on the unit circle; pick the positive velocity.
+        out_is_a = np.where(inside, vel_a > 0, np.abs(lam_a) < 1)
+    else:
+        inside = np.zeros(len(eps), dtype=bool)
+        out_is_a = np.abs(lam_a) < np.abs(lam_b)
+    lam_out = np.where(out_is_a, lam_a, lam_b)
+    lam_in = np.where(out_is_a, lam_b, lam_a)
+    if real_energy:
+        lam_out[inside] /= np.abs(lam_out[inside])
+        lam_in[inside] /= np.abs(lam_in[inside])
+    vel_out = np.where(inside, -2 * np.imag(lam_out * tau), 0.0)
+    g_surface = (u / (energy - eps - tau * lam_out)) @ u.conj().T
+    return LeadModes(
+        energy=energy,
+        lam_out=lam_out,
+        phi_out=u,
+        velocity_out=vel_out,
+        propagating_out=inside.copy(),
+        lam_in=lam_in[inside],
+        phi_in=u[:, inside],
+        velocity_in=-2 * np.imag(lam_in[inside] * tau),
+        g_surface=g_surface,
+        n_open=int(np.count_nonzero(inside)),
+        at_threshold=False,
+    )
+
+
+def _modes_generalised(h_cell, h_hop, energy, scale):
+    """Modes from the linearised ``2m x 2m`` generalised eigenproblem (any ``h_hop``)."""
     m = h_cell.shape[0]
     eye = np.eye(m)
     zero = np.zeros((m, m))
