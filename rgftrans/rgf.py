@@ -11,7 +11,8 @@ and at the last layer ``G_{K,0}`` is the full propagator between the two
 interfaces.  The transmission is the Caroli / Fisher-Lee formula
 ``T = Tr[Gamma_K G_{K0} Gamma_0 G_{K0}^dag]`` (Fisher & Lee, Phys. Rev. B 23,
 6851 (1981); Caroli et al., J. Phys. C 4, 916 (1971), both from memory).
-Only the columns of ``G_{i,0}`` at the first lead's interface are carried.
+Only ``G_{i,0} W_0`` is carried, with ``Gamma_0 = W_0 W_0^dag`` (one column per
+open channel of the first lead); the slice loop runs compiled (:mod:`rgftrans._kernels`).
 """
 
 from __future__ import annotations
@@ -93,6 +94,23 @@ class LayerBlocks:
     h_layers: tuple
     v_next: tuple
     lead_slots: tuple
+
+    def flat(self):
+        """Flat buffers for the compiled kernels (built once, then cached)."""
+        cached = self.__dict__.get("_flat")
+        if cached is None:
+            sizes = np.array([len(h) for h in self.h_layers], dtype=np.int64)
+            h_off = np.concatenate([[0], np.cumsum(sizes**2)]).astype(np.int64)
+            h_flat = np.concatenate([np.ascontiguousarray(h, dtype=complex).ravel() for h in self.h_layers])
+            v_sizes = np.array([v.size for v in self.v_next], dtype=np.int64)
+            v_off = np.concatenate([[0], np.cumsum(v_sizes)]).astype(np.int64)
+            v_flat = (np.concatenate([np.ascontiguousarray(v, dtype=complex).ravel() for v in self.v_next])
+                      if self.v_next else np.zeros(1, dtype=complex))
+            v_diag = np.array([v.shape[0] == v.shape[1] and np.count_nonzero(v - np.diag(np.diag(v))) == 0
+                               for v in self.v_next] or [False], dtype=np.bool_)
+            cached = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
+            object.__setattr__(self, "_flat", cached)
+        return cached
 
 
 def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> LayerBlocks:
@@ -181,11 +199,9 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
     trans = np.empty(n_e)
     n_open = np.zeros((n_e, 2), dtype=np.int64)
     flagged = np.zeros(n_e, dtype=bool)
-    for k, energy in enumerate(energies):
-        sigmas, modes = lead_self_energies(model, energy, warn=False)
-        flagged[k] = any(m.at_threshold for m in modes)
-        n_open[k] = [m.n_open for m in modes]
-        trans[k] = _transmission_one(device_energy(energy, modes, eta), blocks, sigmas)
+    for start in range(0, n_e, ENERGY_CHUNK):
+        chunk = slice(start, min(start + ENERGY_CHUNK, n_e))
+        trans[chunk], n_open[chunk], flagged[chunk] = _two_terminal_chunk(model, blocks, energies[chunk], eta)
     if np.any(flagged):
         warnings.warn(
             f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
@@ -203,31 +219,51 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
     )
 
 
-def _transmission_one(z: complex, blocks: LayerBlocks, sigmas) -> float:
-    """T at one (complex) energy: forward sweep carrying the first interface's columns."""
-    h_layers, v_next = blocks.h_layers, blocks.v_next
+#: Energies handed to the compiled kernel at once (bounds the self-energy buffers).
+ENERGY_CHUNK = 64
+#: Eigenvalues of Gamma below this fraction of the largest are dropped from W (closed channels).
+_GAMMA_RANK_TOL = 1e-12
+
+
+def _gamma_columns(gamma: np.ndarray) -> np.ndarray:
+    """``W`` with ``Gamma = W W^dag``, one column per nonzero eigenvalue (open channel)."""
+    w, u = np.linalg.eigh(gamma)
+    keep = w > _GAMMA_RANK_TOL * max(w.max(initial=0.0), 1e-300)
+    return u[:, keep] * np.sqrt(w[keep])
+
+
+def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
+    """Lead terms in Python (cached), the slice loop in the compiled kernel."""
+    from ._kernels import two_terminal
+
+    n_e = len(energies)
+    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
     slots0, slots1 = blocks.lead_slots
-    n_layers = len(h_layers)
-    sig0, sig1 = sigmas
-    a = z * np.eye(len(h_layers[0])) - h_layers[0]
-    a[np.ix_(slots0, slots0)] -= sig0
-    if n_layers == 1:
-        a[np.ix_(slots1, slots1)] -= sig1
-        g = np.linalg.inv(a)
-        g10 = g[np.ix_(slots1, slots0)]
-    else:
-        g = np.linalg.inv(a)
-        prop = g[:, slots0]
-        for i in range(1, n_layers):
-            v = v_next[i - 1]
-            a = z * np.eye(len(h_layers[i])) - h_layers[i] - v.conj().T @ g @ v
-            if i == n_layers - 1:
-                a[np.ix_(slots1, slots1)] -= sig1
-            g = np.linalg.inv(a)
-            prop = g @ (v.conj().T @ prop)
-        g10 = prop[slots1]
-    t_mat = _gamma(sig1) @ g10 @ _gamma(sig0) @ g10.conj().T
-    return float(np.trace(t_mat).real)
+    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
+    sigk = np.zeros((n_e, mk, mk), dtype=complex)
+    gk = np.zeros((n_e, mk, mk), dtype=complex)
+    w_cols, z_all = [], np.empty(n_e, dtype=complex)
+    n_open = np.zeros((n_e, 2), dtype=np.int64)
+    flagged = np.zeros(n_e, dtype=bool)
+    for k, energy in enumerate(energies):
+        sigmas, modes = lead_self_energies(model, energy, warn=False)
+        flagged[k] = any(m.at_threshold for m in modes)
+        n_open[k] = [m.n_open for m in modes]
+        z_all[k] = device_energy(energy, modes, eta)
+        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
+        sigk[k][np.ix_(slots1, slots1)] += sigmas[1]
+        gk[k][np.ix_(slots1, slots1)] = _gamma(sigmas[1])
+        w_small = _gamma_columns(_gamma(sigmas[0]))
+        w = np.zeros((m0, w_small.shape[1]), dtype=complex)
+        w[slots0] = w_small
+        w_cols.append(w)
+    n_ch = max(1, max(w.shape[1] for w in w_cols))
+    w0 = np.zeros((n_e, m0, n_ch), dtype=complex)
+    for k, w in enumerate(w_cols):
+        w0[k, :, :w.shape[1]] = w
+    h_flat, h_off, sizes, v_flat, v_off, v_diag = blocks.flat()
+    trans = two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0, sigk, w0, gk)
+    return trans, n_open, flagged
 
 
 # --------------------------------------------------------------------------
