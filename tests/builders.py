@@ -220,8 +220,9 @@ def small_devices(draw, *, max_len: int = 7, max_wid: int = 6):
     if min(lx, ly) >= 3 and draw(st.booleans(), label="hole"):
         r_max = (min(lx, ly) - 0.6) / 2
         radius = draw(st.floats(0.5, r_max), label="hole radius")
-        cx = draw(st.floats(radius + 0.3, lx - radius - 0.3), label="hole x")
-        cy = draw(st.floats(radius + 0.3, ly - radius - 0.3), label="hole y")
+        # max(...) guards against round-off making the interval empty when radius == r_max.
+        cx = draw(st.floats(radius + 0.3, max(radius + 0.3, lx - radius - 0.3)), label="hole x")
+        cy = draw(st.floats(radius + 0.3, max(radius + 0.3, ly - radius - 0.3)), label="hole y")
         region = region - disk((cx, cy), radius, segments=16)
     amp_x, amp_y = draw(st.tuples(st.floats(-1.0, 1.0), st.floats(-1.0, 1.0)), label="potential amplitudes")
     k_x, k_y = draw(st.tuples(st.floats(0.1, 1.0), st.floats(0.1, 1.0)), label="potential wave numbers")

@@ -29,7 +29,7 @@ from rgftrans.gates import (
 from rgftrans.geometry import disk, polygon, rectangle
 from rgftrans.lattices import square
 
-gdstk = pytest.importorskip("gdstk")
+import gdstk  # a core dependency: a missing install must fail, not skip
 
 D = 60.0  # nm, depth of the 2DEG in these invented devices
 

@@ -130,3 +130,35 @@ def test_three_interfaces_share_layer_zero():
     coo = ham.tocoo()
     assert np.abs(layer_of[coo.row] - layer_of[coo.col]).max() <= 1
     assert np.array_equal(np.sort(np.concatenate(slicing.layers)), np.arange(model.n_sites))
+
+
+def _valid(model, slicing):
+    """Block-tridiagonal, every site once, interfaces in their layers."""
+    layer_of = slicing.layer_of_sites(model.n_orbitals)
+    coo = model.hamiltonian.tocoo()
+    assert np.abs(layer_of[coo.row] - layer_of[coo.col]).max() <= 1
+    assert sorted(np.concatenate(slicing.layers).tolist()) == list(range(model.n_orbitals))
+    for lead, layer in zip(model.leads, slicing.lead_layer):
+        assert set(lead.interface.tolist()) <= set(slicing.layers[layer].tolist())
+
+
+@pytest.mark.parametrize("sides", [("left", "left"), ("top", "top"), ("left", "top"), ("bottom", "right")])
+def test_two_leads_on_the_same_or_adjacent_sides_slice_validly_and_compactly(sides):
+    """Leads on one side or on adjacent sides: a valid slicing whose widest layer stays well below the site count."""
+    from rgftrans.device import Device, Lead
+    from rgftrans.geometry import rectangle
+    from rgftrans.lattices import square
+    from rgftrans.rgf import transmission
+    from rgftrans.direct import transmission_direct
+
+    spans = {"left": [(2, 10), (22, 30)], "top": [(3, 12), (30, 40)], "bottom": [(3, 12)], "right": [(20, 30)]}
+    leads = [Lead("a", sides[0], spans[sides[0]][0]),
+             Lead("b", sides[1], spans[sides[1]][-1])]
+    model = Device(rectangle(0, 0, 44, 32), leads, lattice=square(1.0), hopping=1.0).discretise()
+    slicing = slice_layers(model.hamiltonian, [l.interface for l in model.leads], positions=model.positions)
+    _valid(model, slicing)
+    assert slicing.lead_layer == (0, slicing.n_layers - 1)
+    assert slicing.max_width < model.n_sites / 4  # the whole device in one layer would be a failure of the method
+    e = [1.3, 3.1]
+    assert np.allclose(transmission(model, e, slicing=slicing).transmission,
+                       transmission_direct(model, e)[:, 1, 0], atol=1e-9)

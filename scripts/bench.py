@@ -1,0 +1,211 @@
+"""Benchmark: RGF transmission against a sparse direct solve and the LAPACK floor.
+
+Prints tables, asserts nothing.  Every figure is a median over repeats, all in
+one process, so the ratios compare like with like on this machine:
+
+* ours    -- rgftrans.rgf.transmission, seconds per energy (energies batched);
+* sparse  -- scipy.sparse.linalg.splu of (E - H - Sigma_L - Sigma_R), solved for
+             the columns of the first interface, then Caroli's formula: the
+             route a user would write by hand (same lead self-energies);
+* floor   -- L back-to-back inversions of a dense W x W complex matrix
+             (numpy.linalg.inv on a stack: LAPACK with no Python in between),
+             the irreducible work of one RGF sweep;
+* LDOS    -- the full diagonal of G per energy (rgftrans.local), as a ratio to ours.
+
+System: a square-lattice strip, W x L sites, onsite disorder uniform in
+[-t/2, t/2] (seeded), clean leads, t = 1, energies in the lower quarter of the
+band where a semiconductor device works (E = 0.6 t .. 1.0 t above the band
+bottom: about W/6 open channels).
+
+Usage: scripts/bench [--quick]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import time
+from concurrent.futures import ProcessPoolExecutor
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from rgftrans.device import Device, Lead
+from rgftrans.fields import Disorder
+from rgftrans.geometry import rectangle
+from rgftrans.lattices import square
+from rgftrans.leads import clear_lead_cache
+from rgftrans.local import local_quantities
+from rgftrans.rgf import lead_self_energies, transmission
+
+ENERGIES = np.linspace(0.6, 1.0, 16)
+
+
+def strip(width: int, length: int):
+    region = rectangle(0, 0, length - 1, width - 1)
+    leads = [Lead("left", "left", (0, width - 1)), Lead("right", "right", (0, width - 1))]
+    return Device(region, leads, lattice=square(1.0), hopping=1.0, disorder=Disorder(1.0, seed=1)).discretise()
+
+
+def median_time(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def ours_per_energy(model, repeats):
+    transmission(model, ENERGIES[:2])  # compile / warm the lead cache
+    return median_time(lambda: transmission(model, ENERGIES), repeats) / len(ENERGIES)
+
+
+def sparse_per_energy(model, energies, repeats):
+    lead0, lead1 = model.leads
+    n = model.n_orbitals
+    cache = [lead_self_energies(model, e, warn=False)[0] for e in energies]
+
+    def run():
+        out = []
+        for e, (s0, s1) in zip(energies, cache):
+            a = (e * sp.identity(n, dtype=complex, format="csc") - model.hamiltonian).tolil()
+            a[np.ix_(lead0.interface, lead0.interface)] = a[np.ix_(lead0.interface, lead0.interface)].toarray() - s0
+            a[np.ix_(lead1.interface, lead1.interface)] = a[np.ix_(lead1.interface, lead1.interface)].toarray() - s1
+            lu = spla.splu(a.tocsc())
+            rhs = np.zeros((n, len(lead0.interface)), dtype=complex)
+            rhs[lead0.interface, np.arange(len(lead0.interface))] = 1
+            g10 = lu.solve(rhs)[lead1.interface]
+            gam0, gam1 = 1j * (s0 - s0.conj().T), 1j * (s1 - s1.conj().T)
+            out.append(np.trace(gam1 @ g10 @ gam0 @ g10.conj().T).real)
+        return out
+
+    return median_time(run, repeats) / len(energies)
+
+
+def floor_per_sweep(width, length, repeats):
+    rng = np.random.default_rng(0)
+    stack = rng.normal(size=(length, width, width)) + 1j * rng.normal(size=(length, width, width))
+    stack += 4 * width * np.eye(width)
+    return median_time(lambda: np.linalg.inv(stack), repeats)
+
+
+def ldos_per_energy(model, repeats):
+    local_quantities(model, ENERGIES[0])
+    return median_time(lambda: local_quantities(model, ENERGIES[1]), repeats)
+
+
+def blas_threads() -> str:
+    try:
+        from threadpoolctl import threadpool_info
+
+        return ", ".join(f"{d['internal_api']} {d['num_threads']} thread(s)" for d in threadpool_info())
+    except ImportError:
+        return (f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}, "
+                f"OMP_NUM_THREADS={os.environ.get('OMP_NUM_THREADS', 'unset')} (threadpoolctl not installed)")
+
+
+def width_table(widths, length, repeats):
+    print(f"\nTransmission per energy, strip W x {length}, {len(ENERGIES)} energies per call, median of {repeats}")
+    print(f"{'W':>5} {'ours (ms)':>10} {'sparse (ms)':>12} {'floor (ms)':>11} {'sparse/ours':>12} "
+          f"{'ours/floor':>11} {'LDOS/ours':>10}")
+    rows = []
+    for w in widths:
+        model = strip(w, length)
+        ours = ours_per_energy(model, repeats)
+        sparse = sparse_per_energy(model, ENERGIES[:4], max(1, repeats // 2))
+        floor = floor_per_sweep(w, length, repeats)
+        ldos = ldos_per_energy(model, max(1, repeats // 2))
+        rows.append((w, ours, sparse, floor))
+        print(f"{w:>5} {ours * 1e3:>10.3f} {sparse * 1e3:>12.3f} {floor * 1e3:>11.3f} {sparse / ours:>12.2f} "
+              f"{ours / floor:>11.2f} {ldos / ours:>10.2f}", flush=True)
+        clear_lead_cache()
+    return rows
+
+
+def length_scan(width, lengths, repeats):
+    print(f"\nTime against length, W = {width}")
+    times = []
+    for length in lengths:
+        t = ours_per_energy(strip(width, length), repeats)
+        times.append(t)
+        print(f"  L = {length:>5}: {t * 1e3:8.3f} ms per energy", flush=True)
+    slope = np.polyfit(np.log(lengths), np.log(times), 1)[0]
+    print(f"  fitted exponent of time vs L: {slope:.3f}")
+
+
+def peak_memory(width, lengths):
+    """Peak resident memory of the transmission call alone, each length in a fresh process (kB)."""
+    print(f"\nPeak memory of transmission (fresh process each, W = {width}; model built before the baseline)")
+    here = os.path.dirname(os.path.abspath(__file__))
+    code = (
+        "import resource, sys\n"
+        f"sys.path.insert(0, {here!r})\n"
+        "import numpy as np\n"
+        "from bench import strip, ENERGIES\n"
+        "from rgftrans.rgf import transmission\n"
+        "model = strip(int(sys.argv[1]), int(sys.argv[2]))\n"
+        "transmission(strip(8, 4), ENERGIES[:1])\n"
+        "base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "transmission(model, ENERGIES)\n"
+        "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base)\n"
+    )
+    peaks = []
+    for length in lengths:
+        out = subprocess.run([sys.executable, "-c", code, str(width), str(length)], capture_output=True, text=True,
+                             check=True)
+        peaks.append(int(out.stdout.strip().splitlines()[-1]))
+        print(f"  L = {length:>5}: +{peaks[-1] / 1024:.1f} MiB over the model")
+    print(f"  ratio L = {lengths[-1]} / L = {lengths[0]}: "
+          f"{max(peaks[-1], 1) / max(peaks[0], 1):.2f} (the model itself grows with L and is excluded)")
+
+
+def _sweep_point(args):
+    width, length, energy = args
+    return transmission(_sweep_point.model, [energy]).transmission[0]
+
+
+def _init_worker(width, length):
+    _sweep_point.model = strip(width, length)
+    transmission(_sweep_point.model, ENERGIES[:1])
+
+
+def process_scaling(width, length, n_energies):
+    print(f"\nEnergy sweep of {n_energies} energies, W = {width}, L = {length}, one BLAS thread per process")
+    energies = np.linspace(0.3, 1.5, n_energies)
+    times = {}
+    for workers in (1, 2):
+        import multiprocessing
+
+        ctx = multiprocessing.get_context("spawn")
+        with ProcessPoolExecutor(workers, mp_context=ctx, initializer=_init_worker,
+                                 initargs=(width, length)) as pool:
+            list(pool.map(_sweep_point, [(width, length, e) for e in energies[:workers * 2]]))  # warm up
+            t0 = time.perf_counter()
+            list(pool.map(_sweep_point, [(width, length, e) for e in energies], chunksize=8))
+            times[workers] = time.perf_counter() - t0
+        print(f"  {workers} process(es): {times[workers]:.2f} s")
+    print(f"  speed-up 2 vs 1: {times[1] / times[2]:.2f}")
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="fewer widths and repeats (a smoke run)")
+    args = parser.parse_args(argv)
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")  # children inherit it; this process was started with it by scripts/bench
+    print("rgftrans benchmark; BLAS:", blas_threads(), f"; cores: {os.cpu_count()}")
+    if args.quick:
+        width_table([8, 32], 100, 3)
+        return
+    width_table([8, 16, 32, 64, 128, 256], 400, 5)
+    length_scan(32, [100, 200, 400, 800, 1600], 5)
+    peak_memory(64, [100, 1600])
+    process_scaling(64, 200, 256)
+
+
+if __name__ == "__main__":
+    main()
