@@ -22,12 +22,23 @@ from numba import njit
 SMALL_BLOCK = 12
 
 
+#: A pivot below this fraction of the largest entry marks a (numerically) singular block.
+SINGULAR_PIVOT = 1e-13
+
+
 @njit(cache=True)
 def _inv_small(a):
-    """Inverse of a small complex matrix by Gauss-Jordan elimination with partial pivoting."""
+    """Inverse of a small complex matrix by Gauss-Jordan elimination with partial pivoting.
+
+    Returns the inverse and False, or (garbage, True) if a pivot vanished.
+    """
     n = a.shape[0]
     m = a.copy()
     inv = np.eye(n, dtype=np.complex128)
+    scale = 0.0
+    for r in range(n):
+        for c in range(n):
+            scale = max(scale, abs(a[r, c]))
     for col in range(n):
         piv = col
         best = abs(m[col, col])
@@ -44,6 +55,8 @@ def _inv_small(a):
                 tmp = inv[col, c]
                 inv[col, c] = inv[piv, c]
                 inv[piv, c] = tmp
+        if best <= SINGULAR_PIVOT * scale:
+            return inv, True
         d = 1.0 / m[col, col]
         for c in range(n):
             m[col, c] *= d
@@ -55,14 +68,16 @@ def _inv_small(a):
                     for c in range(n):
                         m[r, c] -= f * m[col, c]
                         inv[r, c] -= f * inv[col, c]
-    return inv
+    return inv, False
 
 
 @njit(cache=True)
 def _inv(a):
+    """Inverse and a singular flag.  Large blocks go to LAPACK, which raises on an exactly singular block."""
     if a.shape[0] <= SMALL_BLOCK:
-        return np.ascontiguousarray(_inv_small(a))
-    return np.ascontiguousarray(np.linalg.inv(a))
+        inv, bad = _inv_small(a)
+        return np.ascontiguousarray(inv), bad
+    return np.ascontiguousarray(np.linalg.inv(a)), False
 
 
 @njit(cache=True)
@@ -89,6 +104,8 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
     Returns
     -------
     (n_E,) float
+        NaN where an intermediate block was singular (the caller falls back
+        to a direct solve there).
     """
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
@@ -102,7 +119,7 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
         a -= sig0_all[e]
         if n_layers == 1:
             a -= sigk_all[e]
-        g = _inv(a)
+        g, bad = _inv(a)
         x = g @ w0_all[e]
         for i in range(1, n_layers):
             mp = sizes[i - 1]
@@ -127,7 +144,8 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
                 vx = vh @ x
             if i == n_layers - 1:
                 a -= sigk_all[e]
-            g = _inv(a)
+            g, singular = _inv(a)
+            bad = bad or singular
             x = g @ vx
         # T = Tr[x^dag Gamma_K x]
         gx = gk_all[e] @ x
@@ -135,5 +153,5 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
         for r in range(x.shape[0]):
             for c in range(x.shape[1]):
                 acc += (np.conj(x[r, c]) * gx[r, c]).real
-        out[e] = acc
+        out[e] = np.nan if bad else acc
     return out

@@ -96,48 +96,63 @@ class LayerBlocks:
     lead_slots: tuple
 
     def flat(self):
-        """Flat buffers for the compiled kernels (built once, then cached)."""
-        cached = self.__dict__.get("_flat")
-        if cached is None:
-            sizes = np.array([len(h) for h in self.h_layers], dtype=np.int64)
-            h_off = np.concatenate([[0], np.cumsum(sizes**2)]).astype(np.int64)
-            h_flat = np.concatenate([np.ascontiguousarray(h, dtype=complex).ravel() for h in self.h_layers])
-            v_sizes = np.array([v.size for v in self.v_next], dtype=np.int64)
-            v_off = np.concatenate([[0], np.cumsum(v_sizes)]).astype(np.int64)
-            v_flat = (np.concatenate([np.ascontiguousarray(v, dtype=complex).ravel() for v in self.v_next])
-                      if self.v_next else np.zeros(1, dtype=complex))
-            v_diag = np.array([v.shape[0] == v.shape[1] and np.count_nonzero(v - np.diag(np.diag(v))) == 0
-                               for v in self.v_next] or [False], dtype=np.bool_)
-            cached = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
-            object.__setattr__(self, "_flat", cached)
-        return cached
+        """Flat buffers for the compiled kernels: (h_flat, h_off, sizes, v_flat, v_off, v_diag)."""
+        return self.__dict__["_flat"]
 
 
 def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> LayerBlocks:
-    """Cut the model's Hamiltonian into dense layer blocks (slicing it first if needed)."""
+    """Cut the model's Hamiltonian into dense layer blocks (slicing it first if needed).
+
+    The default slicing and its blocks are computed once per model and kept
+    on it, so repeated calls (energy batches, sweeps over energies) pay
+    nothing; an explicit ``slicing`` is cut afresh.
+    """
     if slicing is None:
-        slicing = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
-                               positions=model.orbital_positions())
-    ham = model.hamiltonian.tocsr()
-    layer_of = slicing.layer_of_sites(model.n_orbitals)
-    coo = ham.tocoo()
-    jump = np.abs(layer_of[coo.row] - layer_of[coo.col])
-    if np.any(jump > 1):
+        cached = model.__dict__.get("_default_blocks")
+        if cached is not None:
+            return cached
+        auto = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
+                            positions=model.orbital_positions())
+        blocks = _cut_blocks(model, auto)
+        object.__setattr__(model, "_default_blocks", blocks)
+        return blocks
+    return _cut_blocks(model, slicing)
+
+
+def _cut_blocks(model: TightBindingModel, slicing: Slicing) -> LayerBlocks:
+    """Scatter the nonzeros of H into flat layer buffers in one vectorised pass."""
+    coo = model.hamiltonian.tocoo()
+    n = model.n_orbitals
+    layer_of = slicing.layer_of_sites(n)
+    pos_in = np.empty(n, dtype=np.int64)
+    for layer in slicing.layers:
+        pos_in[layer] = np.arange(len(layer))
+    lr, lc = layer_of[coo.row], layer_of[coo.col]
+    if np.any(np.abs(lr - lc) > 1):
         raise ValueError("slicing is not block-tridiagonal: a bond skips a layer")
-    h_layers, v_next = [], []
-    for k, layer in enumerate(slicing.layers):
-        h_layers.append(ham[layer][:, layer].toarray())
-        if k + 1 < slicing.n_layers:
-            v_next.append(ham[layer][:, slicing.layers[k + 1]].toarray())
+    sizes = np.array([len(layer) for layer in slicing.layers], dtype=np.int64)
+    h_off = np.concatenate([[0], np.cumsum(sizes**2)]).astype(np.int64)
+    v_sizes = sizes[:-1] * sizes[1:]
+    v_off = np.concatenate([[0], np.cumsum(v_sizes)]).astype(np.int64)
+    h_flat = np.zeros(h_off[-1], dtype=complex)
+    v_flat = np.zeros(max(int(v_off[-1]), 1), dtype=complex)
+    same = lr == lc
+    np.add.at(h_flat, h_off[lr[same]] + pos_in[coo.row[same]] * sizes[lr[same]] + pos_in[coo.col[same]],
+              coo.data[same])
+    up = lc == lr + 1  # <i|H|i+1>
+    np.add.at(v_flat, v_off[lr[up]] + pos_in[coo.row[up]] * sizes[lc[up]] + pos_in[coo.col[up]], coo.data[up])
+    h_layers = tuple(h_flat[h_off[i]:h_off[i + 1]].reshape(sizes[i], sizes[i]) for i in range(len(sizes)))
+    v_next = tuple(v_flat[v_off[i]:v_off[i + 1]].reshape(sizes[i], sizes[i + 1]) for i in range(len(sizes) - 1))
     slots = []
     for p, lead in enumerate(model.leads):
-        layer = slicing.layers[slicing.lead_layer[p]]
-        pos = np.searchsorted(layer, lead.interface, sorter=np.argsort(layer))
-        pos = np.argsort(layer)[pos]
-        if not np.array_equal(layer[pos], lead.interface):
+        if np.any(layer_of[lead.interface] != slicing.lead_layer[p]):
             raise ValueError(f"lead {lead.name!r}: interface not inside its layer")
-        slots.append(pos)
-    return LayerBlocks(slicing=slicing, h_layers=tuple(h_layers), v_next=tuple(v_next), lead_slots=tuple(slots))
+        slots.append(pos_in[lead.interface])
+    blocks = LayerBlocks(slicing=slicing, h_layers=h_layers, v_next=v_next, lead_slots=tuple(slots))
+    v_diag = np.array([v.shape[0] == v.shape[1] and np.count_nonzero(v - np.diag(np.diag(v))) == 0
+                       for v in v_next] or [False], dtype=np.bool_)
+    object.__setattr__(blocks, "_flat", (h_flat, h_off, sizes, v_flat, v_off, v_diag))
+    return blocks
 
 
 def lead_self_energies(model: TightBindingModel, energy: float, *, warn: bool = True):
@@ -262,7 +277,23 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
     for k, w in enumerate(w_cols):
         w0[k, :, :w.shape[1]] = w
     h_flat, h_off, sizes, v_flat, v_off, v_diag = blocks.flat()
-    trans = two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0, sigk, w0, gk)
+    args = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
+    try:
+        trans = two_terminal(z_all, *args, sig0, sigk, w0, gk)
+    except np.linalg.LinAlgError:  # an exactly singular large block: redo the energies one by one
+        trans = np.full(n_e, np.nan)
+        for k in range(n_e):
+            try:
+                trans[k] = two_terminal(z_all[k:k + 1], *args, sig0[k:k + 1], sigk[k:k + 1], w0[k:k + 1],
+                                        gk[k:k + 1])[0]
+            except np.linalg.LinAlgError:
+                pass
+    # A singular intermediate block (a bound state of a partial system at exactly this energy) breaks
+    # the recursion, not the physics: those energies are solved directly by sparse LU.
+    for k in np.flatnonzero(~np.isfinite(trans)):
+        from .direct import transmission_direct
+
+        trans[k] = transmission_direct(model, [energies[k]], eta=eta)[0, 1, 0]
     return trans, n_open, flagged
 
 
@@ -414,7 +445,15 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
         sigmas, modes = lead_self_energies(model, energy, warn=False)
         flagged[k] = any(m.at_threshold for m in modes)
         n_open[k] = [m.n_open for m in modes]
-        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, columns=need_columns)
+        try:
+            gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, columns=need_columns)
+        except np.linalg.LinAlgError:  # singular partial system at exactly this energy: solve directly
+            from .direct import transmission_direct
+
+            trans[k] = transmission_direct(model, [energy], eta=eta)[0]
+            for p in range(n_leads):
+                trans[k, p, p] = n_open[k, p] - (trans[k, :, p].sum() - trans[k, p, p])
+            continue
         gammas = [_gamma(s) for s in sigmas]
         for p in range(n_leads):
             for q in range(n_leads):

@@ -269,3 +269,21 @@ def test_conductance_in_siemens_uses_codata_quantum():
     result = transmission(case.model, in_band_energies(np.random.default_rng(7), 6))
     np.testing.assert_allclose(result.conductance_siemens, result.transmission * g0, rtol=1e-15, atol=0)
     np.testing.assert_array_equal(result.conductance_g0, result.transmission)
+
+
+def test_singular_partial_system_falls_back_to_a_direct_solve():
+    """A 3x2 patch with one-row leads at E = onsite: the left-connected block of the first two columns is exactly
+    singular (a bound state of that partial system), while the whole open system is regular.  The recursion must
+    not crash and must give the sparse-LU value (scipy), here and just beside it."""
+    from rgftrans.device import Device, Lead
+    from rgftrans.geometry import rectangle
+    from rgftrans.lattices import square
+    from rgftrans.rgf import transmission_matrix
+
+    model = Device(rectangle(0, 0, 2, 1), [Lead("s", "left", (0, 0)), Lead("d", "right", (0, 0))],
+                   lattice=square(1.0), hopping=1.0).discretise()
+    energies = [4.0, 3.9]
+    ref = transmission_direct(model, energies)[:, 1, 0]
+    assert ref[1] > 0.01  # the neighbouring energy transmits: the comparison is not 0 = 0 everywhere
+    assert np.allclose(transmission(model, energies).transmission, ref, atol=1e-12)
+    assert np.allclose(transmission_matrix(model, energies).transmission[:, 1, 0], ref, atol=1e-9)
