@@ -155,3 +155,82 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
                 acc += (np.conj(x[r, c]) * gx[r, c]).real
         out[e] = np.nan if bad else acc
     return out
+
+
+@njit(cache=True)
+def _schur(g, v, diag, forward):
+    """``V^dag g V`` (forward: V = <i-1|H|i>) or ``V g V^dag`` (backward: V = <i|H|i+1>)."""
+    if diag:
+        n = g.shape[0]
+        out = np.empty_like(g)
+        for r in range(n):
+            for c in range(n):
+                if forward:
+                    out[r, c] = np.conj(v[r, r]) * g[r, c] * v[c, c]
+                else:
+                    out[r, c] = v[r, r] * g[r, c] * np.conj(v[c, c])
+        return out
+    if forward:
+        return np.ascontiguousarray(v.conj().T) @ (g @ v)
+    return v @ (g @ np.ascontiguousarray(v.conj().T))
+
+
+@njit(cache=True)
+def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, out):
+    """Diagonal of G at many energies, leads in the first and last layer.
+
+    ``G_ii = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1} - V_i gR_{i+1} V_i^dag)^-1``
+    with left- and right-connected functions from a forward and a backward
+    sweep; both ends carry a lead, so every inverted block is an open
+    system.  ``out`` is (n_E, n_orbitals) in layer order; rows where a block
+    was singular are set to NaN.
+    """
+    n_e = z_all.shape[0]
+    n_layers = sizes.shape[0]
+    for e in range(n_e):
+        z = z_all[e]
+        bad = False
+        a_list = []
+        for i in range(n_layers):
+            mi = sizes[i]
+            a = -h_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi).copy()
+            for k in range(mi):
+                a[k, k] += z
+            if i == 0:
+                a -= sig0_all[e]
+            if i == n_layers - 1:
+                a -= sigk_all[e]
+            a_list.append(a)
+        # left self-energies sl[i] = V_{i-1}^dag gL_{i-1} V_{i-1}
+        sl = []
+        g = a_list[0]
+        for i in range(n_layers):
+            if i == 0:
+                sl.append(np.zeros_like(a_list[0]))
+                g, singular = _inv(a_list[0])
+            else:
+                mp, mi = sizes[i - 1], sizes[i]
+                v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
+                s = _schur(g, v, v_diag[i - 1], True)
+                sl.append(s)
+                g, singular = _inv(a_list[i] - s)
+            bad = bad or singular
+        # backward: right self-energy, and G_ii
+        pos = out.shape[1]
+        sr = np.zeros_like(a_list[n_layers - 1])
+        for i in range(n_layers - 1, -1, -1):
+            mi = sizes[i]
+            gii, singular = _inv(a_list[i] - sl[i] - sr)
+            bad = bad or singular
+            pos -= mi
+            for k in range(mi):
+                out[e, pos + k] = gii[k, k]
+            if i > 0:
+                gr, singular = _inv(a_list[i] - sr)
+                bad = bad or singular
+                mp = sizes[i - 1]
+                v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
+                sr = _schur(gr, v, v_diag[i - 1], False)
+        if bad:
+            for k in range(out.shape[1]):
+                out[e, k] = np.nan

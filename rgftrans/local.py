@@ -87,9 +87,52 @@ def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.
                        lead_names=tuple(l.name for l in model.leads))
 
 
-def ldos(model: TightBindingModel, energy: float, *, eta: float = 0.0) -> np.ndarray:
-    """Local density of states ``-Im G_ii / pi`` per site (1/meV) at one energy (meV)."""
-    return local_quantities(model, energy, eta=eta).ldos
+def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
+    """Local density of states ``-Im G_ii / pi`` per site (1/meV), summed over orbitals.
+
+    Parameters
+    ----------
+    energies : float or (n_E,) array, meV
+
+    Returns
+    -------
+    (n_sites,) or (n_E, n_sites) float ndarray
+
+    With two leads (one at each end of the slicing) the diagonal comes from
+    the compiled kernel: forward and backward sweeps, both starting at a
+    lead, and one more inversion per layer.  Otherwise (one lead, three or
+    more, or a closed system) it comes from :func:`local_quantities`.
+    """
+    scalar = np.ndim(energies) == 0
+    energies = np.atleast_1d(np.asarray(energies, dtype=float))
+    blocks = layer_blocks(model)
+    lead_layers = blocks.slicing.lead_layer
+    if len(model.leads) != 2 or lead_layers[0] == lead_layers[1]:
+        out = np.array([local_quantities(model, e, eta=eta).ldos for e in energies])
+        return out[0] if scalar else out
+    from ._kernels import diagonal_two_terminal
+
+    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
+    slots0, slots1 = blocks.lead_slots
+    n_e = len(energies)
+    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
+    sigk = np.zeros((n_e, mk, mk), dtype=complex)
+    z_all = np.empty(n_e, dtype=complex)
+    for k, energy in enumerate(energies):
+        sigmas, modes = lead_self_energies(model, energy)
+        z_all[k] = device_energy(energy, modes, eta)
+        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
+        sigk[k][np.ix_(slots1, slots1)] = sigmas[1]
+    diag = np.empty((n_e, model.n_orbitals), dtype=complex)
+    diagonal_two_terminal(z_all, *blocks.flat(), sig0, sigk, diag)
+    order = _site_order(blocks)
+    out = np.empty((n_e, model.n_orbitals))
+    out[:, order] = -diag.imag / np.pi
+    result = np.array([model.per_site(row) for row in out])
+    bad = ~np.all(np.isfinite(result), axis=1)
+    for k in np.flatnonzero(bad):  # a singular partial system at exactly this energy: the other sweep order
+        result[k] = local_quantities(model, energies[k], eta=eta).ldos
+    return result[0] if scalar else result
 
 
 @dataclass(frozen=True, eq=False)

@@ -41,7 +41,7 @@ from rgftrans.leads import clear_lead_cache
 from rgftrans.local import local_quantities
 from rgftrans.rgf import lead_self_energies, transmission
 
-ENERGIES = np.linspace(0.6, 1.0, 16)
+ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
 
 
 def strip(width: int, length: int):

@@ -66,6 +66,8 @@ def test_ldos_and_lead_densities_match_dense_inverse(seed, n_leads):
     # lead densities add up to the LDOS (Datta 1995, ch. 3, from memory).
     assert np.abs(loc.lead_density.sum(axis=0) - loc.ldos).max() < 1e-10 * scale
     assert loc.ldos.min() > -1e-12 * scale  # LDOS >= 0
+    # The compiled two-lead diagonal (forward + backward sweeps) against the same dense reference.
+    assert np.abs(ldos(model, energy) - (-np.diag(g).imag / np.pi)).max() < 1e-10 * scale
 
 
 @pytest.mark.parametrize("seed,n_leads", CASES)
