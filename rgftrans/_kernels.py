@@ -234,3 +234,140 @@ def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, si
         if bad:
             for k in range(out.shape[1]):
                 out[e, k] = np.nan
+
+
+@njit(cache=True)
+def _gauss_jordan_into(m, inv):
+    """Invert ``m`` (destroyed) into ``inv`` by Gauss-Jordan with partial pivoting; True if singular."""
+    n = m.shape[0]
+    scale = 0.0
+    for r in range(n):
+        for c in range(n):
+            inv[r, c] = 1.0 if r == c else 0.0
+            scale = max(scale, abs(m[r, c]))
+    for col in range(n):
+        piv = col
+        best = abs(m[col, col])
+        for r in range(col + 1, n):
+            val = abs(m[r, col])
+            if val > best:
+                best = val
+                piv = r
+        if best <= SINGULAR_PIVOT * scale:
+            return True
+        if piv != col:
+            for c in range(n):
+                tmp = m[col, c]
+                m[col, c] = m[piv, c]
+                m[piv, c] = tmp
+                tmp = inv[col, c]
+                inv[col, c] = inv[piv, c]
+                inv[piv, c] = tmp
+        d = 1.0 / m[col, col]
+        for c in range(n):
+            m[col, c] *= d
+            inv[col, c] *= d
+        for r in range(n):
+            if r != col:
+                f = m[r, col]
+                if f != 0:
+                    for c in range(n):
+                        m[r, c] -= f * m[col, c]
+                        inv[r, c] -= f * inv[col, c]
+    return False
+
+
+@njit(cache=True)
+def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, w0_all, gk_all):
+    """:func:`two_terminal` for narrow devices (every layer at most SMALL_BLOCK wide).
+
+    Same arguments and result; all products are explicit loops over
+    preallocated work buffers, so a layer costs no allocation and no BLAS
+    call overhead -- at widths of a few sites that overhead would exceed the
+    arithmetic.
+    """
+    n_e = z_all.shape[0]
+    n_layers = sizes.shape[0]
+    mmax = 0
+    for i in range(n_layers):
+        mmax = max(mmax, sizes[i])
+    n_ch = w0_all.shape[2]
+    out = np.empty(n_e)
+    work = np.empty(mmax * mmax, dtype=np.complex128)
+    g_buf = np.empty(mmax * mmax, dtype=np.complex128)
+    x_buf = np.empty(mmax * n_ch, dtype=np.complex128)
+    y_buf = np.empty(mmax * n_ch, dtype=np.complex128)
+    for e in range(n_e):
+        z = z_all[e]
+        bad = False
+        m_prev = 0
+        for i in range(n_layers):
+            mi = sizes[i]
+            a = work[:mi * mi].reshape(mi, mi)
+            h = h_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)
+            for r in range(mi):
+                for c in range(mi):
+                    a[r, c] = -h[r, c]
+                a[r, r] += z
+            if i == 0:
+                for r in range(mi):
+                    for c in range(mi):
+                        a[r, c] -= sig0_all[e, r, c]
+            if i == n_layers - 1:
+                for r in range(mi):
+                    for c in range(mi):
+                        a[r, c] -= sigk_all[e, r, c]
+            x = x_buf[:mi * n_ch].reshape(mi, n_ch)
+            y = y_buf[:mi * n_ch].reshape(mi, n_ch)
+            if i == 0:
+                for r in range(mi):
+                    for c in range(n_ch):
+                        y[r, c] = w0_all[e, r, c]
+            else:
+                g = g_buf[:m_prev * m_prev].reshape(m_prev, m_prev)
+                v = v_flat[v_off[i - 1]:v_off[i - 1] + m_prev * mi].reshape(m_prev, mi)
+                xp = x_buf[:m_prev * n_ch].reshape(m_prev, n_ch)
+                if v_diag[i - 1]:
+                    for r in range(mi):
+                        cr = np.conj(v[r, r])
+                        for c in range(mi):
+                            a[r, c] -= cr * g[r, c] * v[c, c]
+                        for c in range(n_ch):
+                            y[r, c] = cr * xp[r, c]
+                else:
+                    for r in range(mi):
+                        for c in range(mi):
+                            acc = 0j
+                            for p in range(m_prev):
+                                vpr = np.conj(v[p, r])
+                                if vpr != 0:
+                                    for q in range(m_prev):
+                                        acc += vpr * g[p, q] * v[q, c]
+                            a[r, c] -= acc
+                        for c in range(n_ch):
+                            acc = 0j
+                            for p in range(m_prev):
+                                acc += np.conj(v[p, r]) * xp[p, c]
+                            y[r, c] = acc
+            g = g_buf[:mi * mi].reshape(mi, mi)
+            if _gauss_jordan_into(a, g):
+                bad = True
+            x = x_buf[:mi * n_ch].reshape(mi, n_ch)
+            for r in range(mi):
+                for c in range(n_ch):
+                    acc = 0j
+                    for q in range(mi):
+                        acc += g[r, q] * y[q, c]
+                    x[r, c] = acc
+            m_prev = mi
+        mk = sizes[n_layers - 1]
+        x = x_buf[:mk * n_ch].reshape(mk, n_ch)
+        total = 0.0
+        for c in range(n_ch):
+            for r in range(mk):
+                acc = 0j
+                for q in range(mk):
+                    acc += gk_all[e, r, q] * x[q, c]
+                total += (np.conj(x[r, c]) * acc).real
+        out[e] = np.nan if bad else total
+    return out

@@ -249,7 +249,7 @@ def _gamma_columns(gamma: np.ndarray) -> np.ndarray:
 
 def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
     """Lead terms in Python (cached), the slice loop in the compiled kernel."""
-    from ._kernels import two_terminal
+    from ._kernels import SMALL_BLOCK, two_terminal, two_terminal_small
 
     n_e = len(energies)
     m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
@@ -278,6 +278,8 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
         w0[k, :, :w.shape[1]] = w
     h_flat, h_off, sizes, v_flat, v_off, v_diag = blocks.flat()
     args = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
+    if sizes.max() <= SMALL_BLOCK:
+        two_terminal = two_terminal_small  # noqa: F811 - narrow devices: loops over work buffers
     try:
         trans = two_terminal(z_all, *args, sig0, sigk, w0, gk)
     except np.linalg.LinAlgError:  # an exactly singular large block: redo the energies one by one
