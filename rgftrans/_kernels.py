@@ -17,67 +17,36 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-#: Below this layer width the kernels invert with their own Gauss-Jordan
-#: elimination (partial pivoting), which beats a LAPACK call's fixed overhead.
-SMALL_BLOCK = 12
+#: Up to this layer width the kernels use explicit loops over preallocated
+#: buffers for everything but the inversion (LAPACK), so a layer costs no
+#: allocation and no BLAS call overhead beyond the inverse itself.
+SMALL_BLOCK = 24
 
 
-#: A pivot below this fraction of the largest entry marks a (numerically) singular block.
-SINGULAR_PIVOT = 1e-13
+#: ``max|A| max|A^-1|`` above this marks a block as numerically singular (a crude,
+#: O(m^2) condition estimate): the energy is then redone by the caller.
+ILL_CONDITIONED = 1e11
 
 
 @njit(cache=True)
-def _inv_small(a):
-    """Inverse of a small complex matrix by Gauss-Jordan elimination with partial pivoting.
-
-    Returns the inverse and False, or (garbage, True) if a pivot vanished.
-    """
-    n = a.shape[0]
-    m = a.copy()
-    inv = np.eye(n, dtype=np.complex128)
-    scale = 0.0
-    for r in range(n):
-        for c in range(n):
-            scale = max(scale, abs(a[r, c]))
-    for col in range(n):
-        piv = col
-        best = abs(m[col, col])
-        for r in range(col + 1, n):
-            val = abs(m[r, col])
-            if val > best:
-                best = val
-                piv = r
-        if piv != col:
-            for c in range(n):
-                tmp = m[col, c]
-                m[col, c] = m[piv, c]
-                m[piv, c] = tmp
-                tmp = inv[col, c]
-                inv[col, c] = inv[piv, c]
-                inv[piv, c] = tmp
-        if best <= SINGULAR_PIVOT * scale:
-            return inv, True
-        d = 1.0 / m[col, col]
-        for c in range(n):
-            m[col, c] *= d
-            inv[col, c] *= d
-        for r in range(n):
-            if r != col:
-                f = m[r, col]
-                if f != 0:
-                    for c in range(n):
-                        m[r, c] -= f * m[col, c]
-                        inv[r, c] -= f * inv[col, c]
-    return inv, False
+def _ill(a, g):
+    big_a = 0.0
+    big_g = 0.0
+    for r in range(a.shape[0]):
+        for c in range(a.shape[1]):
+            big_a = max(big_a, abs(a[r, c]))
+            big_g = max(big_g, abs(g[r, c]))
+    return big_a * big_g > ILL_CONDITIONED
 
 
 @njit(cache=True)
 def _inv(a):
-    """Inverse and a singular flag.  Large blocks go to LAPACK, which raises on an exactly singular block."""
-    if a.shape[0] <= SMALL_BLOCK:
-        inv, bad = _inv_small(a)
-        return np.ascontiguousarray(inv), bad
-    return np.ascontiguousarray(np.linalg.inv(a)), False
+    """LAPACK inverse (getrf + getri) and whether the block is numerically singular.
+
+    An exactly singular block raises LinAlgError, which the caller handles.
+    """
+    g = np.ascontiguousarray(np.linalg.inv(a))
+    return g, _ill(a, g)
 
 
 @njit(cache=True)
@@ -104,8 +73,10 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
     Returns
     -------
     (n_E,) float
-        NaN where an intermediate block was singular (the caller falls back
-        to a direct solve there).
+        NaN where an intermediate block is numerically singular (a bound
+        state of a partial system, or of the whole open device, at this
+        energy); an exactly singular one raises LinAlgError.  The caller
+        redoes those energies.
     """
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
@@ -182,8 +153,8 @@ def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, si
     ``G_ii = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1} - V_i gR_{i+1} V_i^dag)^-1``
     with left- and right-connected functions from a forward and a backward
     sweep; both ends carry a lead, so every inverted block is an open
-    system.  ``out`` is (n_E, n_orbitals) in layer order; rows where a block
-    was singular are set to NaN.
+    system.  ``out`` is (n_E, n_orbitals) in layer order.  An exactly
+    singular block raises LinAlgError (the caller falls back).
     """
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
@@ -234,47 +205,6 @@ def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, si
         if bad:
             for k in range(out.shape[1]):
                 out[e, k] = np.nan
-
-
-@njit(cache=True)
-def _gauss_jordan_into(m, inv):
-    """Invert ``m`` (destroyed) into ``inv`` by Gauss-Jordan with partial pivoting; True if singular."""
-    n = m.shape[0]
-    scale = 0.0
-    for r in range(n):
-        for c in range(n):
-            inv[r, c] = 1.0 if r == c else 0.0
-            scale = max(scale, abs(m[r, c]))
-    for col in range(n):
-        piv = col
-        best = abs(m[col, col])
-        for r in range(col + 1, n):
-            val = abs(m[r, col])
-            if val > best:
-                best = val
-                piv = r
-        if best <= SINGULAR_PIVOT * scale:
-            return True
-        if piv != col:
-            for c in range(n):
-                tmp = m[col, c]
-                m[col, c] = m[piv, c]
-                m[piv, c] = tmp
-                tmp = inv[col, c]
-                inv[col, c] = inv[piv, c]
-                inv[piv, c] = tmp
-        d = 1.0 / m[col, col]
-        for c in range(n):
-            m[col, c] *= d
-            inv[col, c] *= d
-        for r in range(n):
-            if r != col:
-                f = m[r, col]
-                if f != 0:
-                    for c in range(n):
-                        m[r, c] -= f * m[col, c]
-                        inv[r, c] -= f * inv[col, c]
-    return False
 
 
 @njit(cache=True)
@@ -350,8 +280,8 @@ def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_
                                 acc += np.conj(v[p, r]) * xp[p, c]
                             y[r, c] = acc
             g = g_buf[:mi * mi].reshape(mi, mi)
-            if _gauss_jordan_into(a, g):
-                bad = True
+            g[:, :] = np.linalg.inv(a)
+            bad = bad or _ill(a, g)
             x = x_buf[:mi * n_ch].reshape(mi, n_ch)
             for r in range(mi):
                 for c in range(n_ch):
@@ -371,3 +301,108 @@ def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_
                 total += (np.conj(x[r, c]) * acc).real
         out[e] = np.nan if bad else total
     return out
+
+
+@njit(cache=True)
+def diagonal_two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, out):
+    """:func:`diagonal_two_terminal` for narrow devices: loops over preallocated buffers, no BLAS calls."""
+    n_e = z_all.shape[0]
+    n_layers = sizes.shape[0]
+    mmax = 0
+    for i in range(n_layers):
+        mmax = max(mmax, sizes[i])
+    sl_flat = np.zeros(h_off[n_layers], dtype=np.complex128)  # left self-energies, layer by layer
+    work = np.empty(mmax * mmax, dtype=np.complex128)
+    g_buf = np.empty(mmax * mmax, dtype=np.complex128)
+    sr_buf = np.zeros(mmax * mmax, dtype=np.complex128)
+    for e in range(n_e):
+        z = z_all[e]
+        bad = False
+        # forward sweep: sl[i] = V_{i-1}^dag gL_{i-1} V_{i-1}
+        for i in range(n_layers):
+            mi = sizes[i]
+            a = work[:mi * mi].reshape(mi, mi)
+            h = h_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)
+            sl = sl_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)
+            if i == 0:
+                sl[:, :] = 0
+            else:
+                mp = sizes[i - 1]
+                g = g_buf[:mp * mp].reshape(mp, mp)
+                v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
+                for r in range(mi):
+                    for c in range(mi):
+                        if v_diag[i - 1]:
+                            sl[r, c] = np.conj(v[r, r]) * g[r, c] * v[c, c]
+                        else:
+                            acc = 0j
+                            for p in range(mp):
+                                vpr = np.conj(v[p, r])
+                                if vpr != 0:
+                                    for q in range(mp):
+                                        acc += vpr * g[p, q] * v[q, c]
+                            sl[r, c] = acc
+            for r in range(mi):
+                for c in range(mi):
+                    a[r, c] = -h[r, c] - sl[r, c]
+                    if i == 0:
+                        a[r, c] -= sig0_all[e, r, c]
+                    if i == n_layers - 1:
+                        a[r, c] -= sigk_all[e, r, c]
+                a[r, r] += z
+            g = g_buf[:mi * mi].reshape(mi, mi)
+            g[:, :] = np.linalg.inv(a)
+            bad = bad or _ill(a, g)
+        # backward sweep: G_ii = (A_i - sl_i - sr_i)^-1, then the right self-energy for layer i-1
+        pos = out.shape[1]
+        m_next = 0
+        for i in range(n_layers - 1, -1, -1):
+            mi = sizes[i]
+            h = h_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)
+            sl = sl_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)
+            sr = sr_buf[:mi * mi].reshape(mi, mi)
+            if i == n_layers - 1:
+                sr[:, :] = 0
+            a = work[:mi * mi].reshape(mi, mi)
+            for r in range(mi):
+                for c in range(mi):
+                    a[r, c] = -h[r, c] - sl[r, c] - sr[r, c]
+                    if i == 0:
+                        a[r, c] -= sig0_all[e, r, c]
+                    if i == n_layers - 1:
+                        a[r, c] -= sigk_all[e, r, c]
+                a[r, r] += z
+            g = g_buf[:mi * mi].reshape(mi, mi)
+            g[:, :] = np.linalg.inv(a)
+            bad = bad or _ill(a, g)
+            pos -= mi
+            for k in range(mi):
+                out[e, pos + k] = g[k, k]
+            if i > 0:
+                # right-connected gR_i = (A_i - sr_i)^-1, then sr_{i-1} = V_{i-1} gR_i V_{i-1}^dag
+                for r in range(mi):
+                    for c in range(mi):
+                        a[r, c] = -h[r, c] - sr[r, c]
+                        if i == n_layers - 1:
+                            a[r, c] -= sigk_all[e, r, c]
+                    a[r, r] += z
+                g[:, :] = np.linalg.inv(a)
+                bad = bad or _ill(a, g)
+                mp = sizes[i - 1]
+                v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
+                srp = sr_buf[:mp * mp].reshape(mp, mp)
+                for r in range(mp):
+                    for c in range(mp):
+                        if v_diag[i - 1]:
+                            srp[r, c] = v[r, r] * g[r, c] * np.conj(v[c, c])
+                        else:
+                            acc = 0j
+                            for p in range(mi):
+                                vrp = v[r, p]
+                                if vrp != 0:
+                                    for q in range(mi):
+                                        acc += vrp * g[p, q] * np.conj(v[c, q])
+                            srp[r, c] = acc
+        if bad:
+            for k in range(out.shape[1]):
+                out[e, k] = np.nan

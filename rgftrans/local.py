@@ -18,14 +18,19 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import warnings
+
 import numpy as np
 import scipy.sparse as sp
 
 from .device import TightBindingModel
-from .errors import LeadError
+from .errors import LeadError, ThresholdWarning
 from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
 from .rgf import LayerBlocks, device_energy, green_blocks, layer_blocks, lead_self_energies
 from .slicing import Slicing
+
+#: Imaginary part (in units of the hopping) used where the recursion meets a singular block.
+SINGULAR_ETA = 1e-10
 
 __all__ = ["LocalResult", "local_quantities", "ldos", "ScatteringStates", "scattering_states", "bond_currents"]
 
@@ -69,10 +74,25 @@ def _lead_index(model: TightBindingModel, lead: int | str) -> int:
 
 def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.0,
                      slicing: Slicing | None = None) -> LocalResult:
-    """LDOS and lead-resolved densities at one energy (meV) by RGF."""
+    """LDOS and lead-resolved densities at one energy (meV) by RGF.
+
+    If a partial system of the recursion has a bound state at exactly this
+    energy (a singular block), the energy is moved by
+    ``SINGULAR_ETA * energy_scale`` into the upper half plane and a
+    ThresholdWarning says so.
+    """
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
-    gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas)
+    try:
+        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas)
+    except np.linalg.LinAlgError:
+        shift = SINGULAR_ETA * model.energy_scale
+        warnings.warn(
+            f"E = {energy:.10g} meV is an exact eigenvalue of a part of the device seen by the recursion; the local "
+            f"quantities were computed at E + {shift:.1e}i meV -- shift the energy slightly for exact values",
+            ThresholdWarning, stacklevel=2,
+        )
+        gb = green_blocks(device_energy(energy, modes, eta + shift), blocks, sigmas)
     order = _site_order(blocks)
     n = model.n_orbitals
     ldos = np.empty(n)
@@ -110,7 +130,7 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
     if len(model.leads) != 2 or lead_layers[0] == lead_layers[1]:
         out = np.array([local_quantities(model, e, eta=eta).ldos for e in energies])
         return out[0] if scalar else out
-    from ._kernels import diagonal_two_terminal
+    from ._kernels import SMALL_BLOCK, diagonal_two_terminal, diagonal_two_terminal_small
 
     m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
     slots0, slots1 = blocks.lead_slots
@@ -124,7 +144,16 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
         sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
         sigk[k][np.ix_(slots1, slots1)] = sigmas[1]
     diag = np.empty((n_e, model.n_orbitals), dtype=complex)
-    diagonal_two_terminal(z_all, *blocks.flat(), sig0, sigk, diag)
+    flat = blocks.flat()
+    kernel = diagonal_two_terminal_small if flat[2].max() <= SMALL_BLOCK else diagonal_two_terminal
+    try:
+        kernel(z_all, *flat, sig0, sigk, diag)
+    except np.linalg.LinAlgError:  # a singular partial system at one energy: those energies take full sweeps
+        for k in range(n_e):
+            try:
+                kernel(z_all[k:k + 1], *flat, sig0[k:k + 1], sigk[k:k + 1], diag[k:k + 1])
+            except np.linalg.LinAlgError:
+                diag[k] = np.nan
     order = _site_order(blocks)
     out = np.empty((n_e, model.n_orbitals))
     out[:, order] = -diag.imag / np.pi

@@ -234,6 +234,8 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
     )
 
 
+#: Imaginary part (in units of the hopping) used where the whole device is singular at a sampled energy.
+SINGULAR_ETA = 1e-10
 #: Energies handed to the compiled kernel at once (bounds the self-energy buffers).
 ENERGY_CHUNK = 64
 #: Eigenvalues of Gamma below this fraction of the largest are dropped from W (closed channels).
@@ -290,12 +292,25 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
                                         gk[k:k + 1])[0]
             except np.linalg.LinAlgError:
                 pass
-    # A singular intermediate block (a bound state of a partial system at exactly this energy) breaks
-    # the recursion, not the physics: those energies are solved directly by sparse LU.
+    # A singular intermediate block (a bound state of a partial system at exactly this energy) breaks the
+    # recursion, not the physics: those energies are solved directly by sparse LU.  If the whole open device
+    # is singular there (a bound state in the continuum sitting exactly on the energy), T is taken just above
+    # the real axis, where it is continuous, and the user is told.
     for k in np.flatnonzero(~np.isfinite(trans)):
         from .direct import transmission_direct
 
-        trans[k] = transmission_direct(model, [energies[k]], eta=eta)[0, 1, 0]
+        try:
+            trans[k] = transmission_direct(model, [energies[k]], eta=eta)[0, 1, 0]
+            continue
+        except RuntimeError:  # splu: "Factor is exactly singular"
+            pass
+        shift = SINGULAR_ETA * model.energy_scale
+        warnings.warn(
+            f"E = {energies[k]:.10g} meV is an eigenvalue of the open device (a bound state in the continuum sits "
+            f"exactly there); T was computed at E + {shift:.1e}i meV",
+            ThresholdWarning, stacklevel=3,
+        )
+        trans[k] = transmission_direct(model, [energies[k]], eta=eta + shift)[0, 1, 0]
     return trans, n_open, flagged
 
 

@@ -7,10 +7,10 @@ one process, so the ratios compare like with like on this machine:
 * sparse  -- scipy.sparse.linalg.splu of (E - H - Sigma_L - Sigma_R), solved for
              the columns of the first interface, then Caroli's formula: the
              route a user would write by hand (same lead self-energies);
-* floor   -- L back-to-back inversions of a dense W x W complex matrix
-             (numpy.linalg.inv on a stack: LAPACK with no Python in between),
-             the irreducible work of one RGF sweep;
-* LDOS    -- the full diagonal of G per energy (rgftrans.local), as a ratio to ours.
+* floor   -- L back-to-back inversions of a dense W x W complex matrix, the
+             faster of numpy.linalg.inv on a stack and a compiled loop of
+             LAPACK inverses: the irreducible work of one RGF sweep;
+* LDOS    -- the full diagonal of G per energy (rgftrans.local.ldos), as a ratio to ours.
 
 System: a square-lattice strip, W x L sites, onsite disorder uniform in
 [-t/2, t/2] (seeded), clean leads, t = 1, energies in the lower quarter of the
@@ -32,13 +32,14 @@ from concurrent.futures import ProcessPoolExecutor
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+from numba import njit
 
 from rgftrans.device import Device, Lead
 from rgftrans.fields import Disorder
 from rgftrans.geometry import rectangle
 from rgftrans.lattices import square
 from rgftrans.leads import clear_lead_cache
-from rgftrans.local import local_quantities
+from rgftrans.local import ldos
 from rgftrans.rgf import lead_self_energies, transmission
 
 ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
@@ -59,9 +60,9 @@ def median_time(fn, repeats: int) -> float:
     return float(np.median(times))
 
 
-def ours_per_energy(model, repeats):
-    transmission(model, ENERGIES[:2])  # compile / warm the lead cache
-    return median_time(lambda: transmission(model, ENERGIES), repeats) / len(ENERGIES)
+def ours_per_energy(model, repeats, energies=ENERGIES):
+    transmission(model, energies[:2])  # compile / warm the lead cache
+    return median_time(lambda: transmission(model, energies), repeats) / len(energies)
 
 
 def sparse_per_energy(model, energies, repeats):
@@ -86,16 +87,26 @@ def sparse_per_energy(model, energies, repeats):
     return median_time(run, repeats) / len(energies)
 
 
+@njit(cache=True)
+def _inv_each(stack):
+    out = np.empty_like(stack)
+    for i in range(stack.shape[0]):
+        out[i] = np.linalg.inv(stack[i])
+    return out
+
+
 def floor_per_sweep(width, length, repeats):
+    """The faster of numpy's batched inverse and a compiled loop of LAPACK inverses (getrf + getri)."""
     rng = np.random.default_rng(0)
     stack = rng.normal(size=(length, width, width)) + 1j * rng.normal(size=(length, width, width))
     stack += 4 * width * np.eye(width)
-    return median_time(lambda: np.linalg.inv(stack), repeats)
+    _inv_each(stack[:2])
+    return min(median_time(lambda: np.linalg.inv(stack), repeats), median_time(lambda: _inv_each(stack), repeats))
 
 
-def ldos_per_energy(model, repeats):
-    local_quantities(model, ENERGIES[0])
-    return median_time(lambda: local_quantities(model, ENERGIES[1]), repeats)
+def ldos_per_energy(model, repeats, energies=ENERGIES):
+    ldos(model, energies[:2])
+    return median_time(lambda: ldos(model, energies), repeats) / len(energies)
 
 
 def blas_threads() -> str:
@@ -109,19 +120,23 @@ def blas_threads() -> str:
 
 
 def width_table(widths, length, repeats):
-    print(f"\nTransmission per energy, strip W x {length}, {len(ENERGIES)} energies per call, median of {repeats}")
+    print(f"\nTransmission per energy, strip W x {length}, {len(ENERGIES)} energies per call (4 from W = 128), "
+          f"median of {repeats} (3 from W = 128)")
     print(f"{'W':>5} {'ours (ms)':>10} {'sparse (ms)':>12} {'floor (ms)':>11} {'sparse/ours':>12} "
           f"{'ours/floor':>11} {'LDOS/ours':>10}")
     rows = []
     for w in widths:
         model = strip(w, length)
-        ours = ours_per_energy(model, repeats)
-        sparse = sparse_per_energy(model, ENERGIES[:4], max(1, repeats // 2))
-        floor = floor_per_sweep(w, length, repeats)
-        ldos = ldos_per_energy(model, max(1, repeats // 2))
+        wide = w >= 128  # keep the run in minutes: fewer energies and repeats for the widest strips
+        energies = ENERGIES[::4] if wide else ENERGIES
+        reps = 3 if wide else repeats
+        ours = ours_per_energy(model, reps, energies)
+        sparse = sparse_per_energy(model, ENERGIES[:2] if wide else ENERGIES[:4], 1 if wide else max(1, repeats // 2))
+        floor = floor_per_sweep(w, length, reps)
+        ldos_t = ldos_per_energy(model, 1 if wide else max(1, repeats // 2), energies)
         rows.append((w, ours, sparse, floor))
         print(f"{w:>5} {ours * 1e3:>10.3f} {sparse * 1e3:>12.3f} {floor * 1e3:>11.3f} {sparse / ours:>12.2f} "
-              f"{ours / floor:>11.2f} {ldos / ours:>10.2f}", flush=True)
+              f"{ours / floor:>11.2f} {ldos_t / ours:>10.2f}", flush=True)
         clear_lead_cache()
     return rows
 
@@ -194,12 +209,16 @@ def process_scaling(width, length, n_energies):
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer widths and repeats (a smoke run)")
+    parser.add_argument("--widths", type=int, nargs="*", help="only the width table, for these widths")
     args = parser.parse_args(argv)
     for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(var, "1")  # children inherit it; this process was started with it by scripts/bench
     print("rgftrans benchmark; BLAS:", blas_threads(), f"; cores: {os.cpu_count()}")
     if args.quick:
         width_table([8, 32], 100, 3)
+        return
+    if args.widths:
+        width_table(args.widths, 400, 5)
         return
     width_table([8, 16, 32, 64, 128, 256], 400, 5)
     length_scan(32, [100, 200, 400, 800, 1600], 5)

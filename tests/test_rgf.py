@@ -287,3 +287,23 @@ def test_singular_partial_system_falls_back_to_a_direct_solve():
     assert ref[1] > 0.01  # the neighbouring energy transmits: the comparison is not 0 = 0 everywhere
     assert np.allclose(transmission(model, energies).transmission, ref, atol=1e-12)
     assert np.allclose(transmission_matrix(model, energies).transmission[:, 1, 0], ref, atol=1e-9)
+
+
+def test_energy_exactly_on_a_bound_state_in_the_continuum():
+    """A 3x3 patch with one-row leads on rows 0 and 1 has a bound state in the continuum at E = onsite = 4t:
+    E - H - Sigma is exactly singular there (scipy's splu refuses it).  T is continuous across it, so the value
+    at E (computed just above the axis, with a warning) must match the average of its neighbours E +- 1e-6 to
+    1e-5 (T varies by O(1e-6) over that step away from a resonance of finite width)."""
+    from rgftrans.device import Device, Lead
+    from rgftrans.errors import ThresholdWarning
+    from rgftrans.geometry import rectangle
+    from rgftrans.lattices import square
+
+    model = Device(rectangle(0, 0, 2, 2), [Lead("s", "left", (0, 0)), Lead("d", "right", (1, 1))],
+                   lattice=square(1.0), hopping=1.0).discretise()
+    with pytest.raises(RuntimeError, match="singular"):
+        transmission_direct(model, [4.0])
+    with pytest.warns(ThresholdWarning, match="bound state in the continuum"):
+        t_on = transmission(model, [4.0]).transmission[0]
+    beside = transmission_direct(model, [4.0 - 1e-6, 4.0 + 1e-6])[:, 1, 0]
+    assert t_on == pytest.approx(beside.mean(), abs=1e-5)
