@@ -1,0 +1,1258 @@
+"""Run configuration: the TOML schema, its loader, and the builders it feeds.
+
+A run is described by one TOML file.  :func:`load_config` (or
+:func:`parse_config` for text) reads it with :mod:`tomllib` -- nothing in a
+config is ever executed -- and validates it up front against the pydantic
+schema below, :class:`RunConfig`.  Every problem becomes a
+:class:`ConfigError` with a one-line message of the form::
+
+    <file>: <key.path>: <what is wrong>, got <value>; <what is allowed / how to fix>
+
+The validated config then builds what a run needs, with no I/O besides
+reading a GDSII gate layout if one is named:
+
+* :meth:`RunConfig.energies` -- the energy grid (meV, absolute);
+* :meth:`RunConfig.axes` -- the sweep axes, each with units and a long name;
+* :meth:`RunConfig.build_device` -- the :class:`~rgftrans.device.Device` at
+  one point of the sweep (a mapping parameter -> value on top of the file);
+* :meth:`RunConfig.geometry_key` -- the geometry-changing part of a point, so
+  a sweep can reuse a discretisation;
+* :meth:`RunConfig.canonical_json` and :meth:`RunConfig.config_hash` -- a
+  normalised record of the run and its content hash (comments, whitespace,
+  key order and ``4`` versus ``4.0`` do not change it).
+
+Sections (``*`` required): material, lattice*, geometry*, gates, leads*,
+potential, field, spin, disorder, temperature, energy*, sweep, output,
+cluster.  Units are in the key names (``_nm``, ``_meV``, ``_V``, ...) except
+``field.tesla`` and ``temperature.kelvin``.
+
+Sweep parameters are dotted paths into the config: ``field.tesla``,
+``potential.constant_meV``, ``spin.rashba_meV_nm``, ``disorder.width_meV``,
+``disorder.seed``, ``gates.<gate>.voltage_V``, ``leads.<lead>.potential_meV``
+and ``leads.<lead>.offset_nm`` (a shift of that lead's span along its side;
+the only parameter that changes the discretised geometry).
+
+Examples
+--------
+>>> cfg = parse_config('''
+... [lattice]
+... kind = "square"
+... spacing_nm = 4.0
+... [geometry]
+... rectangle_nm = [0.0, 0.0, 40.0, 20.0]
+... [[leads]]
+... name = "source"
+... side = "left"
+... span_nm = [0.0, 20.0]
+... [energy]
+... values_meV = [1.0, 2.0]
+... [[sweep.axis]]
+... parameter = "leads.source.offset_nm"
+... values = [0.0, 4.0]
+... ''')
+>>> cfg.energies().tolist()
+[1.0, 2.0]
+>>> cfg.build_device({"leads.source.offset_nm": 4.0}).leads[0].span
+(4.0, 24.0)
+>>> parse_config('[lattice]\\nspacing = 4.0')
+Traceback (most recent call last):
+...
+rgftrans.config.ConfigError: <string>: lattice.spacing: unknown key 'spacing'; did you mean 'spacing_nm'? (+5 more)
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import math
+import re
+import tomllib
+import types
+import typing
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated, Any, ClassVar, Literal, NamedTuple, Union
+
+import numpy as np
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    StringConstraints,
+    ValidationError,
+    ValidationInfo,
+    model_validator,
+)
+from pydantic_core import PydanticCustomError
+
+from rgftrans.device import Device, Lead
+from rgftrans.errors import GeometryError, RgftransError
+from rgftrans.fields import Disorder, MagneticField
+from rgftrans.gates import Gate, GateLayout, gates_from_gds
+from rgftrans.geometry import Region, disk, polygon, rectangle
+from rgftrans.lattices import Lattice, honeycomb, square, triangular
+from rgftrans.materials import MATERIALS, Material, fermi_energy_meV
+
+__all__ = [
+    "Axis",
+    "ConfigError",
+    "Parameter",
+    "RunConfig",
+    "load_config",
+    "parse_config",
+    "validate_config",
+]
+
+# Longest rendering of a bad value in an error message before it is cut.
+_MAX_VALUE_CHARS = 60
+
+# Error type of the problems raised by the validators below.
+_PROBLEM = "rgftrans_config"
+
+# Lead and gate names appear inside dotted sweep paths, so they hold no dots or spaces.
+_NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_\-]*$"
+
+# A Dask scheduler address: protocol, host, port.
+_ADDRESS_PATTERN = re.compile(r"^(tcp|tls|ucx)://[A-Za-z0-9.\-\[\]:]+:\d{1,5}$")
+
+_LAYER_MAX = 65535  # GDSII layer numbers are 16-bit
+
+
+class ConfigError(RgftransError):
+    """A run configuration that cannot be used; the message is one line.
+
+    Attributes
+    ----------
+    problems : tuple of str
+        Every problem found (the message shows the first and counts the rest).
+    """
+
+    def __init__(self, message: str, *, problems: tuple[str, ...] = ()) -> None:
+        message = _one_line(message)
+        super().__init__(message)
+        self.problems = tuple(_one_line(p) for p in problems) or (message,)
+
+
+# --- small helpers -------------------------------------------------------------------------------
+
+
+def _one_line(text: str) -> str:
+    return text.replace("\r\n", " ").replace("\n", " ").replace("\r", " ")
+
+
+def _show(value: Any) -> str:
+    """A bad value as TOML-like text for messages, cut to _MAX_VALUE_CHARS."""
+
+    def render(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, str):
+            return repr(v)
+        if isinstance(v, float):
+            if v != 0 and math.isfinite(v) and not 1e-4 <= abs(v) < 1e6:
+                return np.format_float_scientific(v, trim="-")  # 2e+11 rather than 200000000000.0
+            return repr(v)
+        if isinstance(v, Mapping):
+            return "{" + ", ".join(f"{k} = {render(x)}" for k, x in v.items()) + "}"
+        if isinstance(v, (list, tuple)):
+            return "[" + ", ".join(render(x) for x in v) + "]"
+        return repr(v)
+
+    text = render(value)
+    return text if len(text) <= _MAX_VALUE_CHARS else text[: _MAX_VALUE_CHARS - 3] + "..."
+
+
+def _with_value(message: str, value: Any) -> str:
+    """A library error message ('what; fix') with ', got <value>' after the 'what', unless it quotes one."""
+    what, sep, fix = message.partition("; ")
+    if "got" in what:
+        return message
+    return f"{what}, got {_show(value)}{sep}{fix}"
+
+
+def _problem(message: str, key: str = "") -> PydanticCustomError:
+    """A validation problem; ``key`` is the path below the validated table."""
+    return PydanticCustomError(_PROBLEM, "{message}", {"message": message, "key": key})
+
+
+def _quoted(names) -> str:
+    return ", ".join(repr(n) for n in names)
+
+
+def _did_you_mean(word: str, choices) -> str:
+    close = difflib.get_close_matches(word, list(choices), n=1)
+    return f"did you mean {close[0]!r}? " if close else ""
+
+
+# --- schema --------------------------------------------------------------------------------------
+
+PositiveFloat = Annotated[float, Field(gt=0)]
+NonNegativeFloat = Annotated[float, Field(ge=0)]
+Pair = Annotated[list[float], Field(min_length=2, max_length=2)]
+Name = Annotated[str, StringConstraints(pattern=_NAME_PATTERN)]
+NonEmptyString = Annotated[str, StringConstraints(min_length=1)]
+
+_SHAPE_KEYS = ("rectangle_nm", "polygon_nm", "disk_nm")
+# Coordinate a lead's span runs along, for each side.
+_SPAN_COORDINATE = {"left": "y", "right": "y", "bottom": "x", "top": "x"}
+
+
+class _Table(BaseModel):
+    """A TOML table: no unknown keys, no type coercion, no NaN or infinity."""
+
+    model_config = ConfigDict(extra="forbid", strict=True, frozen=True, allow_inf_nan=False)
+
+    # Extra advice for an unknown key in this table (see _translate).
+    unknown_key_advice: ClassVar[str] = ""
+
+
+class ShapeSpec(_Table):
+    """One shape in nm: exactly one of ``rectangle_nm``, ``polygon_nm``, ``disk_nm``."""
+
+    rectangle_nm: Annotated[list[float], Field(min_length=4, max_length=4)] | None = None
+    polygon_nm: Annotated[list[Pair], Field(min_length=3)] | None = None
+    disk_nm: Annotated[list[float], Field(min_length=3, max_length=3)] | None = None
+
+    _region: Region | None = PrivateAttr(default=None)
+    # Said when more than one shape is given.
+    _several_advice: ClassVar[str] = "give exactly one shape per table"
+
+    @model_validator(mode="after")
+    def _check_shape(self):
+        self._region = _one_shape(self, self._several_advice)
+        return self
+
+    def region(self) -> Region:
+        """The shape as a :class:`~rgftrans.geometry.Region` (nm)."""
+        assert self._region is not None  # set by validation
+        return self._region
+
+
+def _one_shape(spec: BaseModel, several_advice: str) -> Region:
+    given = [key for key in _SHAPE_KEYS if getattr(spec, key) is not None]
+    if len(given) > 1:
+        raise _problem(f"more than one shape, got {' and '.join(given)}; {several_advice}")
+    if not given:
+        raise _problem(
+            "no shape, got none; give one of rectangle_nm = [x0, y0, x1, y1], "
+            "polygon_nm = [[x, y], ...] or disk_nm = [cx, cy, r] (nm)"
+        )
+    key = given[0]
+    value = getattr(spec, key)
+    try:
+        if key == "rectangle_nm":
+            return rectangle(*value)
+        if key == "polygon_nm":
+            return polygon(value)
+        return disk(value[:2], value[2])
+    except GeometryError as error:
+        raise _problem(_with_value(str(error), value), key) from None
+
+
+class GeometrySpec(ShapeSpec):
+    """The device region: one base shape, plus ``add`` shapes, minus ``remove`` shapes."""
+
+    add: list[ShapeSpec] = []
+    remove: list[ShapeSpec] = []
+
+    _several_advice: ClassVar[str] = "give exactly one base shape and put the others in [[geometry.add]] tables"
+
+    @model_validator(mode="after")
+    def _check_shape(self):
+        region = _one_shape(self, self._several_advice)
+        for extra in self.add:
+            region = region | extra.region()
+        for k, hole in enumerate(self.remove):
+            region = region - hole.region()
+            if region.is_empty:
+                raise _problem(
+                    f"the shape removes the whole device, got bounds {hole.region().bounds} nm; "
+                    "shrink or move it",
+                    f"remove[{k}]",
+                )
+        self._region = region
+        return self
+
+
+class MaterialSpec(_Table):
+    """A preset by ``name``, or a custom material with all of m_eff, g_factor, eps_r."""
+
+    name: NonEmptyString
+    m_eff: PositiveFloat | None = None
+    g_factor: float | None = None
+    eps_r: Annotated[float, Field(ge=1)] | None = None
+    density_cm2: PositiveFloat | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_name(cls, data: Any) -> Any:
+        # A preset's name is written in its canonical case; a table of values
+        # without a name is called "custom"; an empty table means GaAs.
+        if not isinstance(data, Mapping):
+            return data
+        data = dict(data)
+        explicit = any(key in data for key in ("m_eff", "g_factor", "eps_r"))
+        name = data.get("name")
+        if name is None:
+            data["name"] = "custom" if explicit else "GaAs"
+        elif isinstance(name, str):
+            presets = {key.lower(): key for key in MATERIALS}
+            data["name"] = presets.get(name.strip().lower(), name)
+        return data
+
+    @model_validator(mode="after")
+    def _check_values(self):
+        values = {"m_eff": self.m_eff, "g_factor": self.g_factor, "eps_r": self.eps_r}
+        given = [key for key, v in values.items() if v is not None]
+        if not given:
+            if self.name not in MATERIALS:
+                raise _problem(
+                    f"unknown material, got {self.name!r}; {_did_you_mean(self.name, MATERIALS)}"
+                    f"pick one of {_quoted(MATERIALS)}, or give m_eff, g_factor and eps_r for another one",
+                    "name",
+                )
+            return self
+        if self.name in MATERIALS:
+            raise _problem(
+                f"{self.name!r} is a preset, got it with explicit {', '.join(given)}; drop the values, "
+                f"or rename the material (e.g. name = \"{self.name}-custom\") and give m_eff, g_factor and eps_r",
+                "name",
+            )
+        missing = [key for key, v in values.items() if v is None]
+        if missing:
+            raise _problem(
+                f"a custom material needs m_eff, g_factor and eps_r, got only {', '.join(given)}; "
+                f"add {', '.join(missing)}",
+                missing[0],
+            )
+        return self
+
+    def material(self) -> Material:
+        """The :class:`~rgftrans.materials.Material` this table describes."""
+        if self.m_eff is None:
+            return MATERIALS[self.name]
+        return Material(self.name, self.m_eff, self.g_factor, self.eps_r, source="run configuration")
+
+
+_LATTICES = {"square": square, "honeycomb": honeycomb, "triangular": triangular}
+
+
+class LatticeSpec(_Table):
+    """Lattice kind, nearest-neighbour spacing (nm) and an optional hopping override (meV)."""
+
+    kind: Literal["square", "honeycomb", "triangular"]
+    spacing_nm: PositiveFloat
+    hopping_meV: PositiveFloat | None = None
+
+    @model_validator(mode="after")
+    def _check_hopping(self):
+        if self.kind == "honeycomb" and self.hopping_meV is None:
+            raise _problem(
+                "the honeycomb lattice has no effective-mass hopping, got none; "
+                "give hopping_meV (e.g. 2700.0 for graphene)",
+                "hopping_meV",
+            )
+        return self
+
+    def lattice(self) -> Lattice:
+        """The :class:`~rgftrans.lattices.Lattice`."""
+        return _LATTICES[self.kind](self.spacing_nm)
+
+
+class GateSpec(ShapeSpec):
+    """One surface gate: a name, an outline in nm and a voltage in V."""
+
+    name: Name
+    voltage_V: float
+
+    _several_advice: ClassVar[str] = "a gate has one outline: split it into two gates or draw one polygon"
+
+
+class GdsSpec(_Table):
+    """Gates read from a GDSII layout: one gate per layer."""
+
+    path: NonEmptyString
+    layers: Annotated[dict[str, Name], Field(min_length=1)]
+    voltages: dict[str, float]
+    cell: NonEmptyString | None = None
+
+    @model_validator(mode="after")
+    def _check_layers(self):
+        for key in self.layers:
+            if not (key.isdigit() and int(key) <= _LAYER_MAX):
+                raise _problem(
+                    f"a GDS layer number must be an integer 0..{_LAYER_MAX}, got {key!r}; "
+                    'write layers = {"1" = "plunger"}',
+                    f"layers.{key}",
+                )
+        names = list(self.layers.values())
+        for name in names:
+            if names.count(name) > 1:
+                raise _problem(f"two layers are the same gate, got {name!r} twice; give each gate its own name",
+                               "layers")
+        missing = [n for n in names if n not in self.voltages]
+        extra = [n for n in self.voltages if n not in names]
+        if missing:
+            raise _problem(f"no voltage for gate {missing[0]!r}, got {_show(self.voltages)}; "
+                           f"give a voltage (V) for each of {_quoted(names)}", "voltages")
+        if extra:
+            raise _problem(f"voltage for a gate that no layer defines, got {extra[0]!r}; "
+                           f"the layers define {_quoted(names)}", f"voltages.{extra[0]}")
+        return self
+
+    def layer_names(self) -> dict[int, str]:
+        return {int(key): name for key, name in self.layers.items()}
+
+
+class GatesSpec(_Table):
+    """Surface gates over the 2DEG (frozen-surface electrostatics)."""
+
+    depth_nm: PositiveFloat
+    gate: list[GateSpec] = []
+    gds: GdsSpec | None = None
+
+    @model_validator(mode="after")
+    def _check_gates(self):
+        if not self.gate and self.gds is None:
+            raise _problem("no gates, got none; add [[gates.gate]] tables or a [gates.gds] table, "
+                           "or remove [gates]", "gate")
+        seen: set[str] = set()
+        for k, spec in enumerate(self.gate):
+            if spec.name in seen:
+                raise _problem(f"duplicate gate name, got {spec.name!r}; give every gate its own name",
+                               f"gate[{k}].name")
+            seen.add(spec.name)
+        if self.gds is not None:
+            for layer, name in self.gds.layers.items():
+                if name in seen:
+                    raise _problem(f"duplicate gate name, got {name!r} (also a [[gates.gate]]); "
+                                   "give every gate its own name", f"gds.layers.{layer}")
+        return self
+
+    def names(self) -> list[str]:
+        """Gate names, inline gates first, then the GDS layers."""
+        return [g.name for g in self.gate] + (list(self.gds.layers.values()) if self.gds else [])
+
+    def voltages(self) -> dict[str, float]:
+        """Gate voltages (V) as written in the config."""
+        return {g.name: g.voltage_V for g in self.gate} | (dict(self.gds.voltages) if self.gds else {})
+
+
+class LeadSpec(_Table):
+    """A semi-infinite lead on one side of the device."""
+
+    name: Name
+    side: Literal["left", "right", "bottom", "top"]
+    span_nm: Pair
+    potential_meV: float = 0.0
+
+    @model_validator(mode="after")
+    def _check_span(self):
+        lo, hi = self.span_nm
+        if not lo < hi:
+            raise _problem(f"span must be [lo, hi] with lo < hi, got {_show(self.span_nm)}; "
+                           f"give the {_SPAN_COORDINATE[self.side]} range of the lead (nm), lower end first",
+                           "span_nm")
+        return self
+
+
+class PotentialSpec(_Table):
+    """A constant potential energy (meV) added everywhere in the device (not the leads)."""
+
+    constant_meV: float = 0.0
+
+
+class FieldSpec(_Table):
+    """Perpendicular magnetic field (T), orbital (Peierls) and Zeeman parts."""
+
+    tesla: float = 0.0
+    orbital: bool = True
+    zeeman: bool = True
+
+
+class SpinSpec(_Table):
+    """Two spin orbitals per site, and the Rashba coupling alpha (meV nm)."""
+
+    enabled: bool = False
+    rashba_meV_nm: float = 0.0
+
+    @model_validator(mode="after")
+    def _check_rashba(self):
+        if self.rashba_meV_nm != 0.0 and not self.enabled:
+            raise _problem(f"Rashba coupling needs spin, got {self.rashba_meV_nm!r} with enabled = false; "
+                           "set enabled = true", "rashba_meV_nm")
+        return self
+
+
+class DisorderSpec(_Table):
+    """Anderson disorder: onsite energies uniform in [-W/2, W/2] meV, reproducible from the seed."""
+
+    width_meV: NonNegativeFloat
+    seed: Annotated[int, Field(ge=0)] = 0
+
+
+class TemperatureSpec(_Table):
+    """Temperatures (K) at which conductances are thermally averaged."""
+
+    kelvin: Annotated[list[NonNegativeFloat], Field(min_length=1)]
+
+
+class EnergySpec(_Table):
+    """Energy grid: ``start_meV``, ``stop_meV``, ``points`` or ``values_meV``; optionally offsets from E_F."""
+
+    start_meV: float | None = None
+    stop_meV: float | None = None
+    points: Annotated[int, Field(ge=1)] | None = None
+    values_meV: Annotated[list[float], Field(min_length=1)] | None = None
+    relative_to_fermi: bool = False
+
+    @model_validator(mode="after")
+    def _check_grid(self):
+        span = {"start_meV": self.start_meV, "stop_meV": self.stop_meV, "points": self.points}
+        given = [key for key, v in span.items() if v is not None]
+        if self.values_meV is not None:
+            if given:
+                raise _problem(f"two energy grids, got values_meV and {', '.join(given)}; "
+                               "give either start_meV, stop_meV, points or values_meV")
+            _check_increasing(self.values_meV, "values_meV", "energies")
+            return self
+        if len(given) < 3:
+            missing = [key for key, v in span.items() if v is None]
+            raise _problem(f"incomplete energy grid, got {', '.join(given) or 'no keys'}; "
+                           f"add {', '.join(missing)} (or give values_meV = [...])", missing[0])
+        _check_range(self.start_meV, self.stop_meV, self.points, "start_meV", "stop_meV", ascending=True)
+        return self
+
+    def offsets(self) -> np.ndarray:
+        """The grid as written (meV; offsets from E_F when relative_to_fermi)."""
+        if self.values_meV is not None:
+            return np.array(self.values_meV, dtype=float)
+        return np.linspace(self.start_meV, self.stop_meV, self.points)
+
+
+def _check_increasing(values: list[float], key: str, what: str) -> None:
+    steps = np.diff(values)
+    if np.any(steps <= 0):
+        k = int(np.argmax(steps <= 0))
+        raise _problem(f"{what} must increase strictly, got {values[k]!r} then {values[k + 1]!r}; "
+                       "sort them and drop repeats", f"{key}[{k + 1}]")
+
+
+def _check_range(start, stop, points, start_key, stop_key, *, ascending: bool) -> None:
+    if points == 1 and start != stop:
+        raise _problem(f"one point takes only {start_key}, got points = 1 with {stop_key} = {stop!r}; "
+                       f"set {stop_key} = {start_key} or give more points", "points")
+    if points > 1 and start == stop:
+        raise _problem(f"{stop_key} equals {start_key}, got {stop!r} with {points} points; "
+                       f"widen the range or set points = 1", stop_key)
+    if ascending and stop < start:
+        raise _problem(f"{stop_key} is below {start_key}, got {stop!r} < {start!r}; swap them", stop_key)
+
+
+class SweepAxisSpec(_Table):
+    """One sweep axis: a parameter path and ``start``, ``stop``, ``points`` or ``values``."""
+
+    parameter: NonEmptyString
+    start: float | None = None
+    stop: float | None = None
+    points: Annotated[int, Field(ge=1)] | None = None
+    values: Annotated[list[float], Field(min_length=1)] | None = None
+
+    @model_validator(mode="after")
+    def _check_values(self):
+        span = {"start": self.start, "stop": self.stop, "points": self.points}
+        given = [key for key, v in span.items() if v is not None]
+        if self.values is not None:
+            if given:
+                raise _problem(f"two ways to give the values, got values and {', '.join(given)}; "
+                               "give either start, stop, points or values")
+            repeated = [v for v in self.values if self.values.count(v) > 1]
+            if repeated:
+                raise _problem(f"values repeat, got {repeated[0]!r} twice; give each value once", "values")
+            return self
+        if len(given) < 3:
+            missing = [key for key, v in span.items() if v is None]
+            raise _problem(f"incomplete axis, got {', '.join(given) or 'no values'}; "
+                           f"add {', '.join(missing)} (or give values = [...])", missing[0])
+        _check_range(self.start, self.stop, self.points, "start", "stop", ascending=False)
+        return self
+
+    def array(self) -> np.ndarray:
+        """The axis values, in the units of the parameter."""
+        if self.values is not None:
+            return np.array(self.values, dtype=float)
+        return np.linspace(self.start, self.stop, self.points)
+
+
+class SweepSpec(_Table):
+    """The sweep: a list of axes, the first outermost."""
+
+    axis: Annotated[list[SweepAxisSpec], Field(min_length=1)]
+
+    unknown_key_advice: ClassVar[str] = (
+        'a sweep is a list of [[sweep.axis]] tables, e.g. parameter = "gates.plunger.voltage_V", '
+        "start = -0.056, stop = -0.036, points = 41; temperatures go in [temperature] kelvin = [...]"
+    )
+
+
+class OutputSpec(_Table):
+    """Result file (HDF5), overwrite policy and optional LDOS maps."""
+
+    path: NonEmptyString
+    overwrite: bool = False
+    ldos_at_meV: list[float] = []
+
+    @model_validator(mode="after")
+    def _check_suffix(self):
+        if Path(self.path).suffix not in (".h5", ".hdf5"):
+            raise _problem(f"the result file is HDF5, got {self.path!r}; "
+                           f"end the name in .h5, e.g. path = \"{Path(self.path).with_suffix('.h5')}\"", "path")
+        return self
+
+
+class ClusterSpec(_Table):
+    """Where sweep points are computed: local processes or a Dask scheduler."""
+
+    executor: Literal["local", "dask"] = "local"
+    workers: Annotated[int, Field(ge=1)] = 2
+    address: NonEmptyString | None = None
+
+    @model_validator(mode="after")
+    def _check_address(self):
+        if self.address is None:
+            return self
+        if self.executor != "dask":
+            raise _problem(f"an address needs executor = \"dask\", got {self.address!r} with executor = "
+                           f"{self.executor!r}; set executor = \"dask\" or drop the address", "address")
+        if not _ADDRESS_PATTERN.match(self.address):
+            raise _problem(f"not a scheduler address, got {self.address!r}; "
+                           "write protocol://host:port, e.g. \"tcp://127.0.0.1:8786\"", "address")
+        return self
+
+
+# --- sweep parameters ----------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """A device parameter a sweep may vary.
+
+    Attributes
+    ----------
+    name : str
+        Dotted path, e.g. ``"gates.plunger.voltage_V"``.
+    units : str
+        Units of its values (``"1"`` for dimensionless).
+    long_name : str
+        Description for axis labels and result files.
+    changes_geometry : bool
+        True if a new value changes the discretised sites (lead offsets).
+    """
+
+    name: str
+    units: str
+    long_name: str
+    changes_geometry: bool = False
+
+
+class Axis(NamedTuple):
+    """A sweep axis: parameter path, values, units and long name."""
+
+    name: str
+    values: np.ndarray
+    units: str
+    long_name: str
+
+
+@dataclass(frozen=True)
+class _ShiftedPotential:
+    """Gate potential plus a constant (meV), picklable for worker processes."""
+
+    layout: GateLayout
+    constant_meV: float
+
+    def __call__(self, x, y):
+        return self.layout(x, y) + self.constant_meV
+
+
+class RunConfig(_Table):
+    """A validated run configuration; build it with :func:`load_config` or :func:`parse_config`.
+
+    The fields are the TOML sections.  Builders: :meth:`energies`,
+    :meth:`axes`, :meth:`build_device`, :meth:`geometry_key`; records:
+    :meth:`canonical_json`, :meth:`config_hash`.
+    """
+
+    material: MaterialSpec = MaterialSpec(name="GaAs")
+    lattice: LatticeSpec
+    geometry: GeometrySpec
+    gates: GatesSpec | None = None
+    leads: Annotated[list[LeadSpec], Field(min_length=1)]
+    potential: PotentialSpec = PotentialSpec()
+    field: FieldSpec = FieldSpec()
+    spin: SpinSpec = SpinSpec()
+    disorder: DisorderSpec | None = None
+    temperature: TemperatureSpec | None = None
+    energy: EnergySpec
+    sweep: SweepSpec | None = None
+    output: OutputSpec
+    cluster: ClusterSpec = ClusterSpec()
+
+    _source: str = PrivateAttr(default="<dict>")
+    _base_dir: Path | None = PrivateAttr(default=None)
+    _text: str | None = PrivateAttr(default=None)
+    _layout: GateLayout | None = PrivateAttr(default=None)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_output(cls, data: Any, info: ValidationInfo) -> Any:
+        # The default result file is named after the config file.
+        if not isinstance(data, Mapping):
+            return data
+        output = data.get("output", {})
+        if isinstance(output, Mapping) and "path" not in output:
+            stem = (info.context or {}).get("stem", "run")
+            data = {**data, "output": {**output, "path": f"out/{stem}.h5"}}
+        return data
+
+    @model_validator(mode="after")
+    def _check_cross_references(self):
+        names = [lead.name for lead in self.leads]
+        for k, name in enumerate(names):
+            if name in names[:k]:
+                raise _problem(f"duplicate lead name, got {name!r}; give every lead its own name",
+                               f"leads[{k}].name")
+        xmin, ymin, xmax, ymax = self.geometry.region().bounds
+        extent = {"x": (xmin, xmax), "y": (ymin, ymax)}
+        for k, lead in enumerate(self.leads):
+            coord = _SPAN_COORDINATE[lead.side]
+            lo, hi = extent[coord]
+            if lead.span_nm[1] < lo or lead.span_nm[0] > hi:
+                raise _problem(f"the lead misses the device, got {_show(lead.span_nm)}; the device covers "
+                               f"{coord} = [{lo:g}, {hi:g}] nm, so move the span into that range", f"leads[{k}].span_nm")
+        if self.energy.relative_to_fermi and self.material.density_cm2 is None:
+            raise _problem("energies relative to the Fermi energy need a density, got no material.density_cm2; "
+                           "add density_cm2 to [material] or set relative_to_fermi = false",
+                           "energy.relative_to_fermi")
+        if self.sweep is not None:
+            self._check_axes()
+        return self
+
+    def _check_axes(self) -> None:
+        catalogue = self.parameters()
+        seen: set[str] = set()
+        for k, axis in enumerate(self.sweep.axis):
+            key = f"sweep.axis[{k}]"
+            if axis.parameter not in catalogue:
+                raise _problem(f"unknown sweep parameter, got {axis.parameter!r}; "
+                               f"{_did_you_mean(axis.parameter, catalogue)}"
+                               f"allowed here: {', '.join(catalogue)}", f"{key}.parameter")
+            if axis.parameter in seen:
+                raise _problem(f"parameter swept twice, got {axis.parameter!r} again; "
+                               "merge the two axes into one", f"{key}.parameter")
+            seen.add(axis.parameter)
+            for value in axis.array():
+                message = self._bad_value(axis.parameter, float(value))
+                if message:
+                    raise _problem(message, f"{key}.values" if axis.values is not None else key)
+
+    def _bad_value(self, name: str, value: float) -> str:
+        """Why ``value`` is not allowed for parameter ``name`` ('' if it is)."""
+        if not math.isfinite(value):
+            return f"{name} must be finite, got {value!r}; give a finite number"
+        if name == "disorder.seed" and (value != int(value) or value < 0):
+            return f"disorder.seed must be a whole number >= 0, got {value!r}; give integer seeds"
+        if name == "disorder.width_meV" and value < 0:
+            return f"disorder.width_meV must be >= 0, got {value!r}; give non-negative widths"
+        if name == "spin.rashba_meV_nm" and value != 0 and not self.spin.enabled:
+            return (f"Rashba coupling needs spin, got spin.rashba_meV_nm = {value!r} with spin.enabled = false; "
+                    "set enabled = true in [spin]")
+        return ""
+
+    # --- properties of the run ---
+
+    @property
+    def source(self) -> str:
+        """Where the config came from (file path, or ``"<string>"``)."""
+        return self._source
+
+    @property
+    def source_text(self) -> str | None:
+        """The TOML text as read (None if built from a dict), for result files."""
+        return self._text
+
+    @property
+    def fermi_energy_meV(self) -> float | None:
+        """Fermi energy E_F = pi hbar^2 n / m* (meV) from material.density_cm2; None without a density."""
+        if self.material.density_cm2 is None:
+            return None
+        return fermi_energy_meV(self.material.density_cm2, self.material.material().m_eff)
+
+    def energies(self) -> np.ndarray:
+        """Energy grid (n_E,) float ndarray, meV, absolute (E_F added when relative_to_fermi)."""
+        return self._absolute(self.energy.offsets())
+
+    def ldos_energies(self) -> np.ndarray:
+        """Energies (meV, absolute) of the optional LDOS maps; read like the [energy] values."""
+        return self._absolute(np.array(self.output.ldos_at_meV, dtype=float))
+
+    def _absolute(self, offsets: np.ndarray) -> np.ndarray:
+        return offsets + self.fermi_energy_meV if self.energy.relative_to_fermi else offsets
+
+    def temperatures(self) -> np.ndarray:
+        """Temperatures (n_T,) float ndarray, K; empty without a [temperature] table."""
+        return np.array(self.temperature.kelvin if self.temperature else [], dtype=float)
+
+    def parameters(self) -> dict[str, Parameter]:
+        """Every parameter a sweep of this config may vary, by dotted path."""
+        out = [
+            Parameter("field.tesla", "T", "perpendicular magnetic field B"),
+            Parameter("potential.constant_meV", "meV", "constant potential energy in the device"),
+            Parameter("spin.rashba_meV_nm", "meV nm", "Rashba spin-orbit coupling alpha"),
+            Parameter("disorder.width_meV", "meV", "Anderson disorder width W"),
+            Parameter("disorder.seed", "1", "Anderson disorder seed"),
+        ]
+        for name in self.gates.names() if self.gates else []:
+            out.append(Parameter(f"gates.{name}.voltage_V", "V", f"voltage on gate '{name}'"))
+        for lead in self.leads:
+            out.append(Parameter(f"leads.{lead.name}.potential_meV", "meV", f"band offset of lead '{lead.name}'"))
+            out.append(Parameter(f"leads.{lead.name}.offset_nm", "nm",
+                                 f"shift of lead '{lead.name}' along {_SPAN_COORDINATE[lead.side]} "
+                                 f"(its {lead.side} side)", changes_geometry=True))
+        return {p.name: p for p in out}
+
+    def base_point(self) -> dict[str, float]:
+        """The value of every sweep parameter as the config writes it (offsets 0)."""
+        point = {
+            "field.tesla": self.field.tesla,
+            "potential.constant_meV": self.potential.constant_meV,
+            "spin.rashba_meV_nm": self.spin.rashba_meV_nm,
+            "disorder.width_meV": self.disorder.width_meV if self.disorder else 0.0,
+            "disorder.seed": float(self.disorder.seed) if self.disorder else 0.0,
+        }
+        for name, volts in (self.gates.voltages() if self.gates else {}).items():
+            point[f"gates.{name}.voltage_V"] = volts
+        for lead in self.leads:
+            point[f"leads.{lead.name}.potential_meV"] = lead.potential_meV
+            point[f"leads.{lead.name}.offset_nm"] = 0.0
+        return point
+
+    def axes(self) -> list[Axis]:
+        """The sweep axes, outermost first: (name, values, units, long_name) each; [] without a sweep."""
+        if self.sweep is None:
+            return []
+        catalogue = self.parameters()
+        return [Axis(a.parameter, a.array(), catalogue[a.parameter].units, catalogue[a.parameter].long_name)
+                for a in self.sweep.axis]
+
+    # --- builders ---
+
+    def _point(self, point: Mapping[str, float] | None) -> dict[str, float]:
+        """The base point with ``point`` applied, every value checked."""
+        values = self.base_point()
+        if point is None:
+            return values
+        if not isinstance(point, Mapping):
+            raise ConfigError(f"{self._source}: point: must be a mapping parameter -> value, got {_show(point)}; "
+                              'pass e.g. {"field.tesla": 1.0}')
+        for name, value in point.items():
+            if name not in values:
+                raise ConfigError(f"{self._source}: point: unknown parameter, got {name!r}; "
+                                  f"{_did_you_mean(str(name), values)}allowed here: {', '.join(values)}")
+            if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+                raise ConfigError(f"{self._source}: point.{name}: must be a number, got {_show(value)}; "
+                                  "give a float")
+            message = self._bad_value(name, float(value))
+            if message:
+                raise ConfigError(f"{self._source}: point.{name}: {message}")
+            values[name] = float(value)
+        return values
+
+    def gate_layout(self) -> GateLayout | None:
+        """The gates as written in the config (reads the GDS file once), or None without gates."""
+        if self.gates is None:
+            return None
+        if self._layout is None:
+            gates = [Gate(spec.name, spec.region(), spec.voltage_V) for spec in self.gates.gate]
+            if self.gates.gds is not None:
+                gds = self.gates.gds
+                path = Path(gds.path)
+                if not path.is_absolute() and self._base_dir is not None:
+                    path = self._base_dir / path
+                try:
+                    read = gates_from_gds(path, layers=gds.layer_names(), voltages=gds.voltages,
+                                          depth_nm=self.gates.depth_nm, cell=gds.cell)
+                except GeometryError as error:
+                    raise ConfigError(f"{self._source}: gates.gds: {error}") from None
+                gates.extend(read.gates)
+            self._layout = GateLayout(tuple(gates), self.gates.depth_nm)
+        return self._layout
+
+    def build_device(self, point: Mapping[str, float] | None = None) -> Device:
+        """The device at one point of the sweep.
+
+        Parameters
+        ----------
+        point : mapping of str to float, optional
+            Parameter path -> value (units of the parameter, see
+            :meth:`parameters`), applied on top of the config; parameters
+            not named keep their config values.  Any parameter of
+            :meth:`parameters` may be given, swept or not.
+
+        Returns
+        -------
+        Device
+            Not yet discretised.
+
+        Raises
+        ------
+        ConfigError
+            If a parameter is unknown or its value not allowed, or the GDS
+            layout cannot be read.
+        """
+        p = self._point(point)
+        leads = []
+        for lead in self.leads:
+            offset = p[f"leads.{lead.name}.offset_nm"]
+            leads.append(Lead(lead.name, lead.side, (lead.span_nm[0] + offset, lead.span_nm[1] + offset),
+                              potential=p[f"leads.{lead.name}.potential_meV"]))
+        potential: float | GateLayout | _ShiftedPotential = p["potential.constant_meV"]
+        layout = self.gate_layout()
+        if layout is not None:
+            layout = layout.with_voltages({name: p[f"gates.{name}.voltage_V"] for name in layout.names})
+            potential = layout if potential == 0.0 else _ShiftedPotential(layout, potential)
+        width = p["disorder.width_meV"]
+        return Device(
+            self.geometry.region(),
+            leads,
+            lattice=self.lattice.lattice(),
+            material=self.material.material(),
+            potential=potential,
+            hopping=self.lattice.hopping_meV,
+            field=MagneticField(p["field.tesla"], orbital=self.field.orbital, zeeman=self.field.zeeman),
+            spin=self.spin.enabled,
+            rashba=p["spin.rashba_meV_nm"],
+            disorder=Disorder(width, int(p["disorder.seed"])) if width > 0.0 else None,
+        )
+
+    def geometry_key(self, point: Mapping[str, float] | None = None) -> tuple[float, ...]:
+        """The geometry-changing values of a point: every lead's offset (nm), in lead order.
+
+        Two points with equal keys discretise to the same sites, leads and
+        slicing, so a sweep may cache that work under this key.
+        """
+        p = self._point(point)
+        return tuple(p[f"leads.{lead.name}.offset_nm"] for lead in self.leads)
+
+    # --- records ---
+
+    def canonical_json(self, *, run_settings: bool = True) -> str:
+        """The whole config, defaults filled in, as compact JSON with sorted keys.
+
+        Parameters
+        ----------
+        run_settings : bool, keyword-only
+            Include ``output.path``, ``output.overwrite`` and ``[cluster]``,
+            which say where and how a run goes but not what it computes.
+        """
+        data = self.model_dump(mode="json", exclude_none=True)
+        if not run_settings:
+            del data["cluster"]
+            del data["output"]["path"], data["output"]["overwrite"]
+        return json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+    def config_hash(self) -> str:
+        """sha256 (hex) of :meth:`canonical_json` without the run settings.
+
+        Equal for configs that compute the same results: comments,
+        whitespace, key order, ``4`` versus ``4.0``, the output path and the
+        cluster do not change it.  A GDS layout enters by its path only.
+        """
+        return hashlib.sha256(self.canonical_json(run_settings=False).encode()).hexdigest()
+
+
+# --- loading -------------------------------------------------------------------------------------
+
+
+def load_config(path: str | Path) -> RunConfig:
+    """Read and validate a TOML run configuration.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The TOML file.  A GDS path inside it is relative to the file's folder.
+
+    Returns
+    -------
+    RunConfig
+
+    Raises
+    ------
+    ConfigError
+        One line naming the file, the key, the bad value and the fix.
+    """
+    file = Path(path)
+    try:
+        text = file.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ConfigError(f"{file}: cannot read the config, got a path that does not exist; check the path") from None
+    except (OSError, UnicodeDecodeError) as error:
+        reason = getattr(error, "strerror", None) or type(error).__name__
+        raise ConfigError(f"{file}: cannot read the config ({reason}); give a readable UTF-8 TOML file") from None
+    return parse_config(text, source=str(file), base_dir=file.parent)
+
+
+def parse_config(text: str, *, source: str = "<string>", base_dir: str | Path | None = None) -> RunConfig:
+    """Validate a TOML run configuration given as text.
+
+    Parameters
+    ----------
+    text : str
+        TOML.
+    source : str, keyword-only
+        Name used in error messages and for the default output file
+        (``out/<stem of source>.h5``; ``out/run.h5`` for ``"<...>"`` names).
+    base_dir : str or path-like, optional, keyword-only
+        Folder a relative GDS path is taken from (default: the working directory).
+
+    Returns
+    -------
+    RunConfig
+    """
+    if not isinstance(text, str):
+        raise ConfigError(f"{source}: the config must be TOML text, got {type(text).__name__}; pass a str")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(_toml_message(source, text, error)) from None
+    config = validate_config(data, source=source, base_dir=base_dir)
+    config._text = text
+    return config
+
+
+def validate_config(data: Mapping[str, Any], *, source: str = "<dict>",
+                    base_dir: str | Path | None = None) -> RunConfig:
+    """Validate a config already parsed into a dict (TOML types: str, int, float, bool, list, dict)."""
+    stem = "run" if source.startswith("<") else Path(source).stem
+    try:
+        config = RunConfig.model_validate(data, context={"stem": stem})
+    except ValidationError as error:
+        # Unknown keys first: a misspelled key also shows up as a missing one.
+        errors = sorted(error.errors(include_url=False), key=lambda e: e["type"] != "extra_forbidden")
+        problems = tuple(_translate(e) for e in errors)
+        more = f" (+{len(problems) - 1} more)" if len(problems) > 1 else ""
+        raise ConfigError(f"{source}: {problems[0]}{more}", problems=tuple(f"{source}: {p}" for p in problems)) from None
+    config._source = source
+    config._base_dir = Path(base_dir) if base_dir is not None else None
+    return config
+
+
+def _toml_message(source: str, text: str, error: tomllib.TOMLDecodeError) -> str:
+    """A TOML syntax error as one line, with the line number and the line's text."""
+    message = str(error)
+    lines = text.splitlines() or [""]
+    where = re.search(r"\(at line (\d+), column (\d+)\)", message)
+    if where:
+        number = int(where.group(1))
+        place = f"line {number}, column {where.group(2)}"
+    else:  # "(at end of document)"
+        number = len(lines)
+        place = f"line {number} (end of file)"
+    reason = re.sub(r"\s*\(at [^)]*\)\s*$", "", message)
+    line = lines[number - 1].strip() if 0 < number <= len(lines) else ""
+    return (f"{source}: {place}: invalid TOML ({reason}), got {_show(line)}; "
+            "fix the syntax there: quote strings, close arrays and [table] headers")
+
+
+# --- ValidationError -> one line -----------------------------------------------------------------
+
+# Advice for a key, by its pattern in the schema ("[]" stands for any index).
+_ADVICE = {
+    "lattice": 'add a [lattice] table, e.g. kind = "square", spacing_nm = 4.0',
+    "lattice.spacing_nm": "give the nearest-neighbour distance in nm, e.g. spacing_nm = 4.0",
+    "lattice.hopping_meV": "give the hopping in meV, > 0, or leave it out for the effective-mass value",
+    "geometry": "add a [geometry] table with one of rectangle_nm = [x0, y0, x1, y1], "
+                "polygon_nm = [[x, y], ...] or disk_nm = [cx, cy, r] (nm)",
+    "geometry.rectangle_nm": "give the corners [x0, y0, x1, y1] in nm",
+    "geometry.disk_nm": "give [cx, cy, r] in nm, r > 0",
+    "geometry.polygon_nm": "give the vertices [[x, y], ...] in nm, at least 3",
+    "leads": "give one [[leads]] table per lead (double brackets) with name, side and span_nm",
+    "leads[].span_nm": "give [lo, hi] in nm along the lead's side",
+    "leads[].name": "lead names go into sweep paths such as leads.<name>.offset_nm; rename it, e.g. 'source_1'",
+    "leads[].side": "the lead leaves the device on this side and runs to infinity",
+    "gates.gate[].name": "gate names go into sweep paths such as gates.<name>.voltage_V; rename it, e.g. 'plunger_1'",
+    "gates.gate[].voltage_V": "give the gate voltage in V, e.g. voltage_V = -0.05",
+    "gates.depth_nm": "give the depth of the 2DEG below the surface gates in nm, > 0",
+    "gates.gate": "give one [[gates.gate]] table per gate (double brackets)",
+    "energy": "add an [energy] table with start_meV, stop_meV and points, or values_meV = [...]",
+    "energy.points": "give the number of energies, a whole number >= 1",
+    "material.density_cm2": "give the 2DEG sheet density in cm^-2, e.g. 2.0e11",
+    "material.eps_r": "give the static relative permittivity, >= 1 (e.g. 12.9)",
+    "temperature.kelvin": "give temperatures in K, e.g. kelvin = [0.1, 1.0]",
+    "temperature.kelvin[]": "temperatures are absolute, in K",
+    "sweep.axis": "give one [[sweep.axis]] table per axis, with parameter and start, stop, points or values",
+    "sweep.axis[].points": "give the number of values, a whole number >= 1",
+    "disorder.width_meV": "give the full width W of the uniform distribution in meV, >= 0",
+    "disorder.seed": "give a whole number >= 0",
+    "output.path": 'name an HDF5 file ending in .h5, e.g. path = "out/run.h5"',
+    "cluster.workers": "give the number of worker processes, a whole number >= 1",
+}
+
+_GENERIC_ADVICE = {
+    "float_type": "write a number without quotes",
+    "float_parsing": "write a number without quotes",
+    "int_type": "write a whole number without quotes or decimal point",
+    "int_from_float": "write a whole number without a decimal point",
+    "bool_type": "write true or false",
+    "string_type": "write a quoted string",
+    "list_type": "write an array [a, b, ...]",
+    "model_type": "write a table",
+    "dict_type": "write a table",
+    "finite_number": "nan and inf are not allowed; give a finite number",
+    "literal_error": "pick one of these",
+    "string_pattern_mismatch": "fix the spelling",
+    "string_too_short": "give a non-empty string",
+    "missing": "add it",
+}
+
+
+def _strip(annotation: Any) -> Any:
+    """Remove Annotated[...] and Optional from a type annotation."""
+    while True:
+        origin = typing.get_origin(annotation)
+        if origin is Annotated:
+            annotation = typing.get_args(annotation)[0]
+        elif origin in (Union, types.UnionType):
+            args = [a for a in typing.get_args(annotation) if a is not type(None)]
+            if len(args) != 1:
+                return annotation
+            annotation = args[0]
+        else:
+            return annotation
+
+
+def _walk(loc: tuple) -> tuple[Any, str, list]:
+    """Follow an error location through the schema.
+
+    Returns the annotation reached, the pattern of the key (indices as
+    ``[]``, mapping keys as ``*``) and the constraints on the value there.
+    """
+    node: Any = RunConfig
+    pattern = ""
+    metadata: list = []
+    for segment in loc:
+        node = _strip(node)
+        origin = typing.get_origin(node)
+        metadata = []
+        if isinstance(node, type) and issubclass(node, BaseModel) and isinstance(segment, str):
+            field = node.model_fields.get(segment)
+            pattern += ("." if pattern else "") + segment
+            node = field.annotation if field is not None else None
+            metadata = list(field.metadata) if field is not None else []
+        elif origin is list and isinstance(segment, int):
+            pattern += "[]"
+            node = typing.get_args(node)[0]
+        elif origin is dict:
+            pattern += ".*"
+            node = typing.get_args(node)[1]
+        else:
+            pattern += ("." if pattern else "") + str(segment)
+            node = None
+    # Constraints written as Annotated[...] inside an Optional stay in the annotation.
+    inner = node
+    while inner is not None:
+        origin = typing.get_origin(inner)
+        if origin is Annotated:
+            args = typing.get_args(inner)
+            for item in args[1:]:
+                metadata.extend(getattr(item, "metadata", [item]))
+            inner = args[0]
+        elif origin in (Union, types.UnionType):
+            args = [a for a in typing.get_args(inner) if a is not type(None)]
+            inner = args[0] if len(args) == 1 else None
+        else:
+            break
+    return node, pattern, metadata
+
+
+def _path(loc: tuple) -> str:
+    text = ""
+    for segment in loc:
+        if isinstance(segment, int):
+            text += f"[{segment}]"
+        elif segment:
+            text += ("." if text else "") + segment
+    return text
+
+
+def _translate(error: dict) -> str:
+    """One pydantic error as ``<key.path>: <what>, got <value>; <fix>``."""
+    kind, loc, ctx = error["type"], tuple(error["loc"]), error.get("ctx") or {}
+    path = _path(loc)
+    if kind == _PROBLEM:
+        key = ctx.get("key", "")
+        where = f"{path}.{key}" if path and key else path or key or "config"
+        return f"{where}: {ctx['message']}"
+    path = path or "config"
+    if kind == "extra_forbidden":
+        parent, _, _ = _walk(loc[:-1])
+        parent = _strip(parent)
+        allowed = list(parent.model_fields) if isinstance(parent, type) and issubclass(parent, BaseModel) else []
+        key = str(loc[-1])
+        close = difflib.get_close_matches(key, allowed, n=1)
+        advice = getattr(parent, "unknown_key_advice", "")
+        if close:
+            hint = f"did you mean {close[0]!r}?"
+        else:
+            hint = advice or f"allowed keys here: {', '.join(allowed)}"
+        return f"{path}: unknown key {key!r}; {hint}"
+    _, pattern, metadata = _walk(loc)
+    if kind in ("too_short", "too_long"):
+        for item in metadata:
+            for name in ("min_length", "max_length"):
+                if getattr(item, name, None) is not None:
+                    ctx = {**ctx, name: getattr(item, name)}
+    section = f"[{loc[0]}]" if loc else "RunConfig"
+    advice = _ADVICE.get(pattern) or _GENERIC_ADVICE.get(kind) or f"see the schema of {section} in rgftrans.config"
+    if kind == "missing":
+        what = f"missing required section [{loc[0]}]" if len(loc) == 1 else f"missing required key {loc[-1]!r}"
+        return f"{path}: {what}, got nothing; {advice}"
+    return f"{path}: {_describe(kind, ctx, error['msg'])}, got {_show(error['input'])}; {advice}"
+
+
+def _describe(kind: str, ctx: dict, msg: str) -> str:
+    """What is wrong, for a pydantic error type."""
+    fixed = {
+        "float_type": "must be a number",
+        "float_parsing": "must be a number",
+        "int_type": "must be an integer",
+        "int_from_float": "must be a whole number",
+        "bool_type": "must be true or false",
+        "string_type": "must be a string",
+        "list_type": "must be an array",
+        "model_type": "must be a table",
+        "dict_type": "must be a table",
+        "finite_number": "must be finite",
+        "string_too_short": "must not be empty",
+    }
+    if kind in fixed:
+        return fixed[kind]
+    if kind == "greater_than":
+        return f"must be > {ctx['gt']:g}"
+    if kind == "greater_than_equal":
+        return f"must be >= {ctx['ge']:g}"
+    if kind == "literal_error":
+        return f"must be one of {ctx['expected']}"
+    if kind == "string_pattern_mismatch":
+        return "must start with a letter and hold only letters, digits, '_' and '-'"
+    if kind in ("too_short", "too_long"):
+        low, high = ctx.get("min_length"), ctx.get("max_length")
+        if low is not None and low == high:
+            return f"needs exactly {low} item(s)"
+        if kind == "too_short":
+            return f"needs at least {low} item(s)"
+        return f"takes at most {high} item(s)"
+    return msg[:1].lower() + msg[1:]
