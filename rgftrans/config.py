@@ -500,19 +500,40 @@ class TemperatureSpec(_Table):
     kelvin: Annotated[list[NonNegativeFloat], Field(min_length=1)]
 
 
+class EnergyRange(_Table):
+    """One uniform piece of a composite energy grid."""
+
+    start_meV: float
+    stop_meV: float
+    points: Annotated[int, Field(ge=1)]
+
+    @model_validator(mode="after")
+    def _check(self):
+        _check_range(self.start_meV, self.stop_meV, self.points, "start_meV", "stop_meV", ascending=True)
+        return self
+
+
 class EnergySpec(_Table):
-    """Energy grid: ``start_meV``, ``stop_meV``, ``points`` or ``values_meV``; optionally offsets from E_F."""
+    """Energy grid: ``start_meV``, ``stop_meV``, ``points``; or ``values_meV``; or a list of ``range`` tables
+    (merged, sorted, duplicates dropped: a fine grid around E_F inside a coarse one); optionally offsets from E_F."""
 
     start_meV: float | None = None
     stop_meV: float | None = None
     points: Annotated[int, Field(ge=1)] | None = None
     values_meV: Annotated[list[float], Field(min_length=1)] | None = None
+    range: Annotated[list[EnergyRange], Field(min_length=1)] | None = None
     relative_to_fermi: bool = False
 
     @model_validator(mode="after")
     def _check_grid(self):
         span = {"start_meV": self.start_meV, "stop_meV": self.stop_meV, "points": self.points}
         given = [key for key, v in span.items() if v is not None]
+        if self.range is not None:
+            if given or self.values_meV is not None:
+                others = given + (["values_meV"] if self.values_meV is not None else [])
+                raise _problem(f"two energy grids, got [[energy.range]] and {', '.join(others)}; "
+                               "give either ranges, start_meV/stop_meV/points or values_meV")
+            return self
         if self.values_meV is not None:
             if given:
                 raise _problem(f"two energy grids, got values_meV and {', '.join(given)}; "
@@ -528,6 +549,9 @@ class EnergySpec(_Table):
 
     def offsets(self) -> np.ndarray:
         """The grid as written (meV; offsets from E_F when relative_to_fermi)."""
+        if self.range is not None:
+            parts = np.concatenate([np.linspace(r.start_meV, r.stop_meV, r.points) for r in self.range])
+            return np.unique(np.round(parts, 12))
         if self.values_meV is not None:
             return np.array(self.values_meV, dtype=float)
         return np.linspace(self.start_meV, self.stop_meV, self.points)

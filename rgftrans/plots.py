@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 
-__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors"]
+__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result"]
 
 _LEAD_COLOURS = ("tab:red", "tab:blue", "tab:green", "tab:purple", "tab:orange", "tab:brown")
 
@@ -166,4 +168,63 @@ def plot_currents(model, currents, *, ax=None, background=None, max_arrows: int 
     ax.quiver(xy[pick, 0], xy[pick, 1], vec[pick, 0], vec[pick, 1], mag, cmap="viridis", pivot="middle",
               angles="xy", scale_units="xy", scale=mag.max() / (spacing * stride * 1.2) if mag.max() > 0 else 1.0,
               width=0.003)
+    return fig, ax
+
+
+def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None, energy: float | None = None,
+                ax=None):
+    """Conductance from a result file: lines, a map over (axis, energy), or a map over two axes at one energy.
+
+    Points not yet computed are left blank.  Conductance is ``(2e^2/h) T``
+    from ``lead_in`` (default: the first lead) into ``lead_out`` (default:
+    the second).
+    """
+    from .errors import RgftransError
+    from .store import read_result
+
+    data = read_result(path)
+    names = list(data.lead_names)
+
+    def pick(name, default):
+        if name is None:
+            return default
+        if name not in names:
+            raise RgftransError(f"{path}: no lead named {name!r}; the file has leads {names}")
+        return names.index(name)
+
+    q_in = pick(lead_in, 0)
+    p_out = pick(lead_out, 1 if len(names) > 1 else 0)
+    trans = data.quantities["transmission"][..., p_out, q_in]
+    label = f"G ({names[q_in]} → {names[p_out]}) (2e²/h)"
+    energies = data.energies_meV
+    axes = list(data.axes)
+    extra = ""
+    while len(axes) > 2:  # show the first value of further axes
+        extra += f", {axes[-1].name} = {axes[-1].values[0]:g} {axes[-1].units}"
+        trans = trans[..., 0, :] if trans.ndim > 2 else trans
+        axes.pop()
+    fig, ax = _axes(ax)
+    if not axes:
+        ax.plot(energies, trans, color="k", lw=1.2)
+        ax.set_xlabel("energy E (meV)")
+        ax.set_ylabel(label)
+        ax.set_ylim(bottom=0)
+    elif len(axes) == 1:
+        a = axes[0]
+        mesh = ax.pcolormesh(energies, a.values, np.ma.masked_invalid(trans), shading="nearest", cmap="viridis")
+        fig.colorbar(mesh, ax=ax, label=label)
+        ax.set_xlabel("energy E (meV)")
+        ax.set_ylabel(f"{a.long_name} ({a.units})")
+    else:
+        k = int(np.argmin(np.abs(energies - (energy if energy is not None else energies[len(energies) // 2]))))
+        a0, a1 = axes
+        mesh = ax.pcolormesh(a1.values, a0.values, np.ma.masked_invalid(trans[..., k]), shading="nearest",
+                             cmap="viridis")
+        fig.colorbar(mesh, ax=ax, label=label)
+        ax.set_xlabel(f"{a1.long_name} ({a1.units})")
+        ax.set_ylabel(f"{a0.long_name} ({a0.units})")
+        extra = f", E = {energies[k]:.4g} meV" + extra
+    done = int(np.count_nonzero(data.completed))
+    total = int(np.size(data.completed))
+    ax.set_title(f"{Path(str(path)).name}: {done}/{total} points{extra}", fontsize="medium")
     return fig, ax

@@ -16,9 +16,6 @@ Figures and tables go to out/.
 from __future__ import annotations
 
 import argparse
-import multiprocessing
-import os
-from concurrent.futures import ProcessPoolExecutor
 import sys
 import time
 import tomllib
@@ -32,15 +29,18 @@ import numpy as np  # noqa: E402
 
 from rgftrans.device import Device, Lead  # noqa: E402
 from rgftrans.errors import RgftransError  # noqa: E402
-from rgftrans.gates import Gate, GateLayout, plot_gate_potential  # noqa: E402
-from rgftrans.geometry import disk, polygon, rectangle  # noqa: E402
+from rgftrans.config import load_config  # noqa: E402
+from rgftrans.gates import plot_gate_potential  # noqa: E402
+from rgftrans.geometry import disk, rectangle  # noqa: E402
 from rgftrans.lattices import square  # noqa: E402
 from rgftrans.local import bond_currents, local_quantities, scattering_states  # noqa: E402
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S, fermi_energy_meV, material  # noqa: E402
+from rgftrans.materials import CONDUCTANCE_QUANTUM_S  # noqa: E402
 from rgftrans.plots import plot_currents, plot_device, plot_map, plot_transmission  # noqa: E402
 from rgftrans.rgf import four_terminal_resistance, transmission, transmission_matrix  # noqa: E402
 from rgftrans.slicing import slice_layers  # noqa: E402
-from rgftrans.thermal import thermal_conductance, thermal_energy_meV  # noqa: E402
+from rgftrans.store import read_result  # noqa: E402
+from rgftrans.sweeps import run_sweep  # noqa: E402
+from rgftrans.thermal import thermal_conductance  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -152,67 +152,39 @@ def multi_terminal(out: Path, name: str, title: str) -> None:
               f"Hall R = {r_h:.2e} ohm (zero by the cross's mirror symmetry)")
 
 
-def thermal_grid(e_fermi: float, temperatures) -> np.ndarray:
-    """Energies resolving every thermal window: spacing kT/2.5 over E_F +- 21 kT for each temperature."""
-    parts = []
-    for temp in temperatures:
-        kt = thermal_energy_meV(temp)
-        parts.append(np.arange(e_fermi - 21 * kt, e_fermi + 21 * kt + kt / 4, kt / 2.5))
-    return np.unique(np.round(np.concatenate(parts), 9))
-
-
-def _transmission_of(device: Device, energies: np.ndarray) -> np.ndarray:
-    return transmission(device.discretise(), energies).transmission
-
-
 def gated_dot(out: Path) -> None:
+    """The gated dot through the sweep engine: config -> local processes -> HDF5 -> thermal conductance."""
     import matplotlib.pyplot as plt
 
-    path = ROOT / "configs" / "gated_dot.toml"
-    cfg = tomllib.loads(path.read_text())
-    gates = []
-    for g in cfg["gates"]["gate"]:
-        shape = rectangle(*g["rectangle_nm"]) if "rectangle_nm" in g else polygon(g["polygon_nm"])
-        gates.append(Gate(g["name"], shape, g["voltage_V"]))
-    layout = GateLayout(tuple(gates), depth_nm=cfg["gates"]["depth_nm"])
-    mat = material(cfg["material"]["name"])
-    e_fermi = fermi_energy_meV(cfg["material"]["density_cm2"], mat.m_eff)
-    region = rectangle(*cfg["geometry"]["rectangle_nm"])
-    leads = [Lead(lead["name"], lead["side"], tuple(lead["span_nm"])) for lead in cfg["leads"]]
-    lattice = square(cfg["lattice"]["spacing_nm"])
-    sweep = cfg["sweep"]
-    volts = np.linspace(sweep["start_V"], sweep["stop_V"], sweep["points"])
-    temps = sweep["temperatures_K"]
-    energies = thermal_grid(e_fermi, temps)
-    t0 = time.perf_counter()
-    devices = [Device(region, leads, lattice=lattice, material=mat, potential=layout.with_voltages({sweep["gate"]: v}))
-               for v in volts]
-    # Two local processes, one BLAS thread each (children inherit the environment at spawn).
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ[var] = "1"
-    with ProcessPoolExecutor(max_workers=2, mp_context=multiprocessing.get_context("spawn")) as pool:
-        trans = np.array(list(pool.map(_transmission_of, devices, [energies] * len(devices), chunksize=4)))
-    elapsed = time.perf_counter() - t0
-    g_t = {temp: np.array([thermal_conductance(energies, tr, e_fermi, temp).conductance_g0 for tr in trans])
+    cfg = load_config(ROOT / "configs" / "gated_dot.toml")
+    report = run_sweep(cfg, quiet=True, path=out / "gated_dot.h5")
+    data = read_result(report.path)
+    (axis,) = data.axes
+    e_fermi = cfg.fermi_energy_meV
+    trans = data.quantities["transmission"][:, :, 1, 0]  # source -> drain
+    temps = cfg.temperatures()
+    g_t = {temp: np.array([thermal_conductance(data.energies_meV, tr, e_fermi, temp).conductance_g0 for tr in trans])
            for temp in temps}
-    print(f"[gated dot] invented example: E_F = {e_fermi:.3f} meV (n = {cfg['material']['density_cm2']:.2g} cm^-2), "
-          f"{len(volts)} plunger voltages x {len(energies)} energies in {elapsed:.1f} s")
+    print(f"[gated dot] invented example: E_F = {e_fermi:.3f} meV, {report.n_points} plunger voltages x "
+          f"{len(data.energies_meV)} energies on 2 processes in {report.seconds:.1f} s -> {report.path}")
     for temp in temps:
         print(f"[gated dot]   T = {temp:g} K: G from {g_t[temp].min():.3f} to {g_t[temp].max():.3f} 2e²/h")
-    fig, ax = plot_gate_potential(layout, extent_nm=region.bounds)
+    layout = cfg.gate_layout()
+    fig, ax = plot_gate_potential(layout, extent_nm=cfg.build_device().region.bounds)
     ax.set_title("Invented gated dot: 2DEG potential energy")
     fig.savefig(out / "gated_dot_potential.png", dpi=150)
     fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
+    volts = axis.values
     for temp, style in zip(temps, ("-", "--", ":")):
-        ax.plot(volts * 1e3, np.ravel(g_t[temp]), style, lw=1.3, label=f"T = {temp:g} K")
-    ax.set_xlabel(f"{sweep['gate']} gate voltage (mV)")
+        ax.plot(volts * 1e3, g_t[temp], style, lw=1.3, label=f"T = {temp:g} K")
+    ax.set_xlabel("plunger gate voltage (mV)")
     ax.set_ylabel("conductance G (2e²/h)")
     ax.set_title("Invented gated dot: conductance at the Fermi energy")
     ax.legend(frameon=False)
     fig.savefig(out / "gated_dot_conductance.png", dpi=150)
     header = "invented scenario, not a measurement: gated GaAs dot (configs/gated_dot.toml)\nplunger_V, " + \
         ", ".join(f"G_2e2_over_h_at_{t:g}K" for t in temps)
-    np.savetxt(out / "gated_dot_conductance.csv", np.column_stack([volts] + [np.ravel(g_t[t]) for t in temps]),
+    np.savetxt(out / "gated_dot_conductance.csv", np.column_stack([volts] + [g_t[t] for t in temps]),
                delimiter=",", header=header, fmt="%.8g")
 
 

@@ -27,33 +27,9 @@ E_F_RTOL = 1e-6
 #: configs/gated_dot.toml in the schema's sweep form: its old [sweep] table (gate, start_V, stop_V,
 #: points, temperatures_K) becomes a [temperature] table, an [energy] window around E_F and one
 #: [[sweep.axis]].  Spacing 4 meV / 1200 = 3.3 ueV = kT/2.6 at 0.1 K; the window covers E_F +- 23 kT at 1 K.
-GATED_NEW_SWEEP = """
-[temperature]
-kelvin = [0.1, 1.0]
-
-[energy]
-relative_to_fermi = true        # offsets from E_F (set by material.density_cm2)
-start_meV = -2.0
-stop_meV = 2.0
-points = 1201
-
-[[sweep.axis]]
-parameter = "gates.plunger.voltage_V"
-start = -0.056
-stop = -0.036
-points = 41
-"""
-
-_LEGACY_SWEEP = re.compile(r"^\[sweep\]\s*\n\s*gate\s*=", re.MULTILINE)
-
-
 def demo_text(path: Path) -> str:
-    """The demo's TOML; a demo still in the old [sweep] form is rewritten to the new form."""
-    text = path.read_text()
-    match = _LEGACY_SWEEP.search(text)
-    if match:
-        text = text[: match.start()] + GATED_NEW_SWEEP
-    return text
+    """The demo's TOML text."""
+    return path.read_text()
 
 
 # A small valid config, section by section; tests replace or drop sections.
@@ -101,13 +77,9 @@ def test_demo_config_loads_and_discretises(path):
     assert [lead.name for lead in model.leads] == [lead.name for lead in config.leads]
 
 
-def test_demo_files_load_from_disk_unless_in_the_old_sweep_form():
+def test_demo_files_load_from_disk():
     for path in sorted(CONFIGS.glob("*.toml")):
-        if _LEGACY_SWEEP.search(path.read_text()):
-            with pytest.raises(ConfigError, match=re.escape("sweep.gate: unknown key 'gate'; a sweep is a list")):
-                load_config(path)
-        else:
-            assert load_config(path).source == str(path)
+        assert load_config(path).source == str(path)
 
 
 def test_gated_demo_new_form_sweeps_the_plunger_around_the_fermi_energy():
@@ -119,7 +91,22 @@ def test_gated_demo_new_form_sweeps_the_plunger_around_the_fermi_energy():
     np.testing.assert_allclose(plunger.values, np.linspace(-0.056, -0.036, 41))
     np.testing.assert_allclose(config.temperatures(), [0.1, 1.0])
     e_f = config.fermi_energy_meV
-    np.testing.assert_allclose(config.energies()[[0, 600, -1]], [e_f - 2.0, e_f, e_f + 2.0], rtol=1e-12)
+    energies = config.energies()
+    np.testing.assert_allclose(energies[[0, -1]], [e_f - 1.81, e_f + 1.81], rtol=1e-12)
+    # Composite grid: fine around E_F (kT/2 at 0.1 K is 4.3 ueV, k_B from scipy.constants), coarse outside.
+    fine = np.abs(energies - e_f) < 0.18
+    assert np.diff(energies[fine]).max() < 0.5 * 8.617333e-3
+    assert np.diff(energies).max() < 0.5 * 8.617333e-2
+
+
+def test_energy_ranges_merge_and_exclude_other_grids():
+    config = parse_config(toml(energy="[energy]\n[[energy.range]]\nstart_meV = 1.0\nstop_meV = 3.0\npoints = 3\n"
+                                      "[[energy.range]]\nstart_meV = 1.5\nstop_meV = 2.0\npoints = 2\n"))
+    np.testing.assert_allclose(config.energies(), [1.0, 1.5, 2.0, 3.0])
+    with pytest.raises(ConfigError, match="two energy grids") as err:
+        parse_config(toml(energy="[energy]\nstart_meV = 1.0\n[[energy.range]]\nstart_meV = 1.0\nstop_meV = 3.0\n"
+                                 "points = 3\n"))
+    assert "\n" not in str(err.value)
 
 
 # --- malformed configs ---------------------------------------------------------------------------

@@ -1,0 +1,182 @@
+"""The ``rgftrans`` command line.
+
+Subcommands::
+
+    rgftrans check CONFIG [--draw PNG]      validate a config, discretise it, report (and draw) the device
+    rgftrans run CONFIG [options]           run or resume the config's sweep into its HDF5 file
+    rgftrans info RESULT                    summary of a result file
+    rgftrans plot RESULT [--out PNG]        conductance lines or maps from a result file
+
+Exit status: 0 success; 1 the computation failed or was interrupted (finished
+points are kept; rerun to resume); 2 bad input (config, file, arguments),
+reported in one line on standard error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import warnings
+from pathlib import Path
+
+from . import __version__
+
+EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # argparse's own errors: one line, exit status 2
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see --help)\n")
+
+
+def _one_line_warnings() -> None:
+    def show(message, category, filename, lineno, file=None, line=None):
+        print(f"rgftrans: warning: {message}", file=sys.stderr)
+
+    warnings.showwarning = show
+
+
+def _cmd_check(args) -> int:
+    import numpy as np
+
+    from .config import load_config
+    from .rgf import layer_blocks, lead_self_energies
+
+    cfg = load_config(args.config)
+    device = cfg.build_device(cfg.base_point())
+    model = device.discretise()
+    blocks = layer_blocks(model)
+    energies = cfg.energies()
+    axes = cfg.axes()
+    n_points = int(np.prod([len(ax.values) for ax in axes])) if axes else 1
+    print(f"{args.config}: valid")
+    print(f"  device: {model.n_sites} sites ({model.norbs} orbital(s) each), lattice {cfg.lattice.kind} "
+          f"a = {cfg.lattice.spacing_nm:g} nm, t = {device.t:.5g} meV")
+    print(f"  slicing: {blocks.slicing.n_layers} layers, largest {blocks.slicing.max_width} orbitals")
+    _, modes = lead_self_energies(model, float(energies[len(energies) // 2]), warn=False)
+    for lead, m in zip(model.leads, modes):
+        print(f"  lead {lead.name!r}: {len(lead.cell_positions)} sites across, {m.n_open} open channel(s) at "
+              f"E = {energies[len(energies) // 2]:.4g} meV")
+    if cfg.fermi_energy_meV is not None:
+        print(f"  Fermi energy {cfg.fermi_energy_meV:.4f} meV")
+    print(f"  energies: {len(energies)} from {energies[0]:.4g} to {energies[-1]:.4g} meV")
+    for ax in axes:
+        print(f"  sweep axis {ax.name}: {len(ax.values)} values from {ax.values[0]:.4g} to {ax.values[-1]:.4g} "
+              f"{ax.units}")
+    print(f"  {n_points} parameter point(s) x {len(energies)} energies -> {cfg.output.path}")
+    if args.draw:
+        import matplotlib
+
+        matplotlib.use("Agg")
+        from .plots import plot_device
+
+        fig, ax = plot_device(model)
+        ax.set_title(Path(args.config).name)
+        Path(args.draw).parent.mkdir(parents=True, exist_ok=True)
+        fig.savefig(args.draw, dpi=150)
+        print(f"  drawn to {args.draw}")
+    return EXIT_OK
+
+
+def _cmd_run(args) -> int:
+    from .config import load_config
+    from .sweeps import run_sweep
+
+    cfg = load_config(args.config)
+    report = run_sweep(cfg, overwrite=args.overwrite or None, quiet=args.quiet, workers=args.workers,
+                       address=args.cluster, path=args.output)
+    print(f"{report.path}: {report.n_points} point(s), {report.n_computed} computed now, "
+          f"{report.n_resumed} already done, {report.seconds:.1f} s")
+    return EXIT_OK
+
+
+def _cmd_info(args) -> int:
+    from .store import summary
+
+    print(summary(args.result))
+    return EXIT_OK
+
+
+def _cmd_plot(args) -> int:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from .plots import plot_result
+
+    fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy)
+    out = Path(args.out or Path(args.result).with_suffix(".png"))
+    out.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(out, dpi=150)
+    print(f"wrote {out}")
+    return EXIT_OK
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="rgftrans", description="Tight-binding quantum transport by recursive Green's functions.",
+                     epilog="Exit status: 0 success, 1 computation failed or interrupted (rerun resumes), "
+                            "2 bad input.")
+    parser.add_argument("--version", action="version", version=f"rgftrans {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    p = sub.add_parser("check", help="validate a config and report the discretised device",
+                       description="Validate a TOML config, discretise its device and report sites, layers, "
+                                   "open channels and the sweep size.")
+    p.add_argument("config", help="TOML config file")
+    p.add_argument("--draw", metavar="PNG", help="also draw the discretised device to this PNG file")
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("run", help="run or resume a sweep into its HDF5 file",
+                       description="Run the config's sweep.  An existing result file of the same config is "
+                                   "resumed (only missing points are computed); one of another config is refused "
+                                   "unless --overwrite is given.")
+    p.add_argument("config", help="TOML config file")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing result file of another sweep")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--workers", type=int, metavar="N", help="worker processes (default: [cluster] workers, 2)")
+    p.add_argument("--cluster", metavar="ADDRESS", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786")
+    p.add_argument("--output", metavar="H5", help="result file (default: [output] path)")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("info", help="summarise a result file", description="Print axes, quantities, progress "
+                                                                          "and provenance of a result file.")
+    p.add_argument("result", help="HDF5 result file")
+    p.set_defaults(func=_cmd_info)
+
+    p = sub.add_parser("plot", help="plot conductance from a result file",
+                       description="Conductance lines (no sweep axis), a map over one sweep axis and energy, or "
+                                   "a map over two sweep axes at one energy.")
+    p.add_argument("result", help="HDF5 result file")
+    p.add_argument("--out", metavar="PNG", help="output file (default: the result file with .png)")
+    p.add_argument("--lead-out", help="receiving lead (default: the second lead)")
+    p.add_argument("--lead-in", help="sending lead (default: the first lead)")
+    p.add_argument("--energy", type=float, metavar="MEV", help="energy for maps over two sweep axes")
+    p.set_defaults(func=_cmd_plot)
+    return parser
+
+
+def main(argv=None) -> int:
+    """Entry point of the ``rgftrans`` command."""
+    from .errors import RgftransError
+    from .sweeps import SweepFailed
+
+    args = build_parser().parse_args(argv)
+    _one_line_warnings()
+    try:
+        return args.func(args)
+    except RgftransError as err:
+        print(f"rgftrans: error: {err}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except SweepFailed as err:
+        print(f"rgftrans: failed: {err}", file=sys.stderr)
+        return EXIT_FAILED
+    except KeyboardInterrupt:
+        print("rgftrans: interrupted; finished points are saved, run the same command again to resume",
+              file=sys.stderr)
+        return EXIT_FAILED
+    except OSError as err:
+        print(f"rgftrans: error: {err.strerror or err} ({getattr(err, 'filename', '')})", file=sys.stderr)
+        return EXIT_BAD_INPUT
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,361 @@
+"""Parameter sweeps: a grid of independent points, computed anywhere, written in one place.
+
+A sweep is the Cartesian product of the config's sweep axes (outermost first);
+each grid point is one task that builds the device for that point and
+computes all energies in one batched call.  Tasks run on local processes
+(:class:`concurrent.futures.ProcessPoolExecutor`, spawned, one BLAS thread
+each) or on a Dask cluster (``dask.distributed``; a scheduler address, or a
+local cluster on the loopback interface).  Workers only compute; the driving
+process is the only writer of the result file.
+
+Nothing finished is ever lost: each point's arrays are first written
+atomically to a journal folder beside the result file (``<file>.journal/``),
+then into the HDF5 file, which is flushed and its ``completed`` mask set.  A
+rerun of the same config computes only the missing points; if the HDF5 file
+was damaged by a crash in the middle of a write, it is rebuilt from the
+journal.  The journal is removed when the sweep completes.
+"""
+
+from __future__ import annotations
+
+import itertools
+import multiprocessing
+import os
+import shutil
+import time
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .config import RunConfig
+from .errors import RgftransError
+from .store import Axis, QuantitySpec, ResultFile, StoreError
+
+__all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name"]
+
+#: Environment that pins each worker process to one BLAS/OpenMP thread.
+_ONE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+
+
+class SweepFailed(RuntimeError):
+    """The computation broke down (a worker died); finished points are kept and a rerun resumes."""
+
+
+@dataclass(frozen=True)
+class SweepReport:
+    """What a sweep did.
+
+    Attributes
+    ----------
+    path : Path
+        The HDF5 result file.
+    n_points, n_computed, n_resumed : int
+        Grid points in all, computed by this run, found done from before.
+    seconds : float
+        Wall time of this run.
+    """
+
+    path: Path
+    n_points: int
+    n_computed: int
+    n_resumed: int
+    seconds: float
+
+
+def grid_points(cfg: RunConfig) -> Iterator[tuple[tuple[int, ...], dict[str, float]]]:
+    """All grid points as (index tuple, {parameter: value}), outermost axis first."""
+    axes = cfg.axes()
+    for index in itertools.product(*(range(len(ax.values)) for ax in axes)):
+        yield index, {ax.name: float(ax.values[i]) for ax, i in zip(axes, index)}
+
+
+def axis_dataset_name(parameter: str) -> str:
+    """HDF5/xarray name of a sweep axis: the parameter path with '.' as '__' and '-' as '_'.
+
+    ``gates.plunger.voltage_V`` is stored as ``gates__plunger__voltage_V``.
+    """
+    return parameter.replace(".", "__").replace("-", "_")
+
+
+def _quantities(n_leads: int) -> dict[str, QuantitySpec]:
+    return {
+        "transmission": QuantitySpec(shape_tail=(("lead_out", n_leads), ("lead_in", n_leads)),
+                                     units="1",
+                                     long_name="transmission from lead_in into lead_out (diagonal: reflection)"),
+        "n_open": QuantitySpec(shape_tail=(("lead", n_leads),), dtype=np.int64, units="1",
+                               long_name="open channels of each lead"),
+    }
+
+
+# --------------------------------------------------------------------------
+# Worker side
+# --------------------------------------------------------------------------
+
+_WORKER_SLICING: dict = {}
+
+
+def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarray]:
+    """Compute one grid point (runs in a worker).
+
+    Returns the arrays of the point: ``transmission`` (n_E, n_leads, n_leads)
+    and ``n_open`` (n_E, n_leads), plus ``ldos`` (n_ldos, n_sites) when the
+    config asks for LDOS maps.  The slicing of a geometry is reused across
+    points that change only potentials or the field (same sparsity pattern).
+    """
+    from .local import ldos
+    from .rgf import layer_blocks, transmission, transmission_matrix
+
+    model = cfg.build_device(point).discretise()
+    key = (cfg.config_hash(), cfg.geometry_key(point))
+    slicing = _WORKER_SLICING.get(key)
+    if slicing is None:
+        slicing = layer_blocks(model).slicing
+        _WORKER_SLICING.clear()
+        _WORKER_SLICING[key] = slicing
+    energies = cfg.energies()
+    n_leads = len(model.leads)
+    if n_leads == 2:
+        res = transmission(model, energies, slicing=slicing)
+        t = np.zeros((len(energies), 2, 2))
+        t[:, 1, 0] = t[:, 0, 1] = res.transmission  # two terminals: T_10 = T_01 by unitarity
+        t[:, 0, 0] = res.n_open[:, 0] - res.transmission
+        t[:, 1, 1] = res.n_open[:, 1] - res.transmission
+        out = {"transmission": t, "n_open": res.n_open}
+    else:
+        res = transmission_matrix(model, energies, slicing=slicing)
+        out = {"transmission": res.transmission, "n_open": res.n_open}
+    ldos_e = cfg.ldos_energies()
+    if len(ldos_e):
+        out["ldos"] = np.atleast_2d(ldos(model, ldos_e))
+    return out
+
+
+def _task(args):
+    cfg, index, point = args
+    return index, compute_point(cfg, point)
+
+
+# --------------------------------------------------------------------------
+# Journal: one atomic file per finished point
+# --------------------------------------------------------------------------
+
+class _Journal:
+    def __init__(self, result_path: Path, config_hash: str):
+        self.dir = result_path.with_name(result_path.name + ".journal")
+        self.hash = config_hash
+
+    def open(self) -> None:
+        if self.dir.exists() and self._stored_hash() != self.hash:
+            shutil.rmtree(self.dir)  # a journal of another sweep: the result file decides what survives
+        self.dir.mkdir(parents=True, exist_ok=True)
+        (self.dir / "config_hash").write_text(self.hash)
+
+    def _stored_hash(self) -> str | None:
+        f = self.dir / "config_hash"
+        return f.read_text().strip() if f.exists() else None
+
+    def matches(self) -> bool:
+        return self.dir.exists() and self._stored_hash() == self.hash
+
+    def _name(self, index) -> Path:
+        return self.dir / ("p_" + "_".join(str(i) for i in index) + ".npz")
+
+    def write(self, index, values: dict[str, np.ndarray]) -> None:
+        tmp = self.dir / f".tmp_{os.getpid()}.npz"
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **values)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, self._name(index))
+
+    def entries(self) -> Iterable[tuple[tuple[int, ...], dict[str, np.ndarray]]]:
+        for f in sorted(self.dir.glob("p_*.npz")):
+            index = tuple(int(i) for i in f.stem[2:].split("_") if i != "")
+            try:
+                with np.load(f) as data:
+                    yield index, {k: data[k] for k in data.files}
+            except (OSError, ValueError, EOFError):
+                f.unlink()  # an unreadable entry: the point is recomputed
+
+    def remove(self) -> None:
+        shutil.rmtree(self.dir, ignore_errors=True)
+
+
+# --------------------------------------------------------------------------
+# Driver side
+# --------------------------------------------------------------------------
+
+def _open_result(cfg: RunConfig, path: Path, overwrite: bool, journal: _Journal, n_leads: int) -> ResultFile:
+    axes = [Axis(axis_dataset_name(ax.name), np.asarray(ax.values, float), ax.units, ax.long_name)
+            for ax in cfg.axes()]
+    create = dict(config_text=cfg.source_text or cfg.canonical_json(), config_hash=cfg.config_hash(), axes=axes,
+                  energies_meV=cfg.energies(), lead_names=[lead.name for lead in cfg.leads],
+                  quantities=_quantities(n_leads))
+    if overwrite:
+        journal.remove()
+        return ResultFile.create(path, overwrite=True, **create)
+    if not path.exists():
+        return ResultFile.create(path, **create)
+    try:
+        return ResultFile.open_for_resume(path, config_hash=cfg.config_hash())
+    except StoreError:
+        if not journal.matches():
+            raise
+    # Our sweep's journal is there but the file is unreadable: a crash hit a write.  Rebuild from the journal.
+    damaged = path.with_name(path.name + ".damaged")
+    os.replace(path, damaged)
+    rf = ResultFile.create(path, **create)
+    damaged.unlink()
+    return rf
+
+
+def _replay(rf: ResultFile, journal: _Journal) -> int:
+    done = rf.completed
+    n = 0
+    for index, values in journal.entries():
+        if not done[index]:
+            _write(rf, index, values)
+            n += 1
+    return n
+
+
+def _write(rf: ResultFile, index, values: dict[str, np.ndarray]) -> None:
+    if "ldos" in values:
+        rf.write_extra("ldos", index, "ldos", values["ldos"], units="1/meV", long_name="local density of states",
+                       dims=("ldos_energy", "site"))
+    rf.write_point(index, {k: v for k, v in values.items() if k != "ldos"})
+
+
+class _OneBlasThread:
+    """Context: child processes started inside inherit one BLAS/OpenMP thread each.
+
+    Spawned children read the environment when they import numpy, which
+    happens when the pool starts them -- lazily, at submit time -- so the
+    variables must stay set for the whole life of the pool.
+    """
+
+    def __enter__(self):
+        self.saved = {k: os.environ.get(k) for k in _ONE_THREAD}
+        os.environ.update(_ONE_THREAD)
+
+    def __exit__(self, *exc):
+        for k, v in self.saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+def _iterate_local(tasks, workers: int):
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures.process import BrokenProcessPool
+
+    if workers == 1:
+        for task in tasks:
+            yield _task(task)
+        return
+    with _OneBlasThread(), ProcessPoolExecutor(max_workers=workers,
+                                               mp_context=multiprocessing.get_context("spawn")) as pool:
+        pending = set()
+        queue = iter(tasks)
+        for task in itertools.islice(queue, 2 * workers):
+            pending.add(pool.submit(_task, task))
+        while pending:
+            done, pending = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                try:
+                    result = fut.result()
+                except BrokenProcessPool:
+                    raise SweepFailed("a worker process died (out of memory, or killed); finished points are "
+                                      "saved -- run the same command again to resume") from None
+                yield result
+                nxt = next(queue, None)
+                if nxt is not None:
+                    pending.add(pool.submit(_task, nxt))
+
+
+def _iterate_dask(tasks, workers: int, address: str | None):
+    try:
+        from dask.distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise RgftransError("the dask executor needs dask[distributed]; install it with pip install "
+                            "'rgftrans[cluster]'") from None
+    if address:
+        client = Client(address, timeout="20s")
+        cluster = None
+    else:
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+                               dashboard_address=None, env=_ONE_THREAD)
+        client = Client(cluster)
+    try:
+        tasks = list(tasks)
+        futures = client.map(_task, tasks, pure=False)
+        for fut in as_completed(futures):
+            yield fut.result()
+            fut.release()
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = False, workers: int | None = None,
+              executor: str | None = None, address: str | None = None, path: str | Path | None = None) -> SweepReport:
+    """Run (or resume) the sweep of a config into its HDF5 result file.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+    overwrite : bool, optional
+        Replace an existing file of another sweep (default: the config's
+        ``output.overwrite``).  Without it a file of the same sweep is resumed
+        and a file of another sweep is refused.
+    quiet : bool
+        No progress bar.
+    workers, executor, address : optional
+        Override the config's ``[cluster]`` section: ``executor`` is
+        ``"local"`` or ``"dask"``; ``address`` a Dask scheduler
+        (``tcp://host:port``).
+    path : optional
+        Override the config's ``output.path``.
+
+    Returns
+    -------
+    SweepReport
+    """
+    t0 = time.perf_counter()
+    path = Path(path if path is not None else cfg.output.path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    overwrite = cfg.output.overwrite if overwrite is None else overwrite
+    workers = workers or cfg.cluster.workers
+    executor = executor or (cfg.cluster.executor if address is None else "dask")
+    address = address or cfg.cluster.address
+
+    # Validate the device up front: a bad geometry fails here, before any file or process exists.
+    model = cfg.build_device(cfg.base_point()).discretise()
+    journal = _Journal(path, cfg.config_hash())
+    rf = _open_result(cfg, path, overwrite, journal, len(model.leads))
+    try:
+        journal.open()
+        _replay(rf, journal)
+        done = rf.completed
+        points = list(grid_points(cfg))
+        todo = [(cfg, idx, pt) for idx, pt in points if not done[idx]]
+        n_resumed = len(points) - len(todo)
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(points), initial=n_resumed, disable=quiet, unit="point", dynamic_ncols=True,
+                   desc=path.name)
+        iterator = (_iterate_dask(todo, workers, address) if executor == "dask" else _iterate_local(todo, workers))
+        for index, values in iterator:
+            journal.write(index, values)
+            _write(rf, index, values)
+            bar.update(1)
+        bar.close()
+    finally:
+        rf.close()
+    journal.remove()
+    return SweepReport(path=path, n_points=len(points), n_computed=len(todo), n_resumed=n_resumed,
+                       seconds=time.perf_counter() - t0)
