@@ -171,11 +171,12 @@ def test_sigkill_at_random_moments_then_resume_equals_uninterrupted(tmp_path):
     Nothing finished may be lost or duplicated: every point equals the reference bit for bit.
     """
     rng = random.Random(20261202)
-    text = CONFIG.format(path=tmp_path / "killed.h5", n_v=10, n_e=60)
+    text = CONFIG.format(path=tmp_path / "killed.h5", n_v=20, n_e=60)
     (tmp_path / "killed.toml").write_text(text)
     ref = read_result(run_sweep(parse_config(text), quiet=True, workers=1, path=tmp_path / "ref.h5").path)
     env = {**os.environ, "OPENBLAS_NUM_THREADS": "1"}
     kills = 0
+    partial = []  # completed fractions seen after each kill (if the file was readable)
     for _ in range(4):
         proc = subprocess.Popen([sys.executable, "-c", _RUNNER, str(tmp_path / "killed.toml")], env=env,
                                 stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
@@ -184,7 +185,12 @@ def test_sigkill_at_random_moments_then_resume_equals_uninterrupted(tmp_path):
             proc.send_signal(signal.SIGKILL)
             kills += 1
         proc.wait()
+        try:
+            partial.append(read_result(tmp_path / "killed.h5").completed.mean())
+        except StoreError:
+            pass  # killed before the file existed, or mid-write: the journal covers it
     assert kills >= 2  # the test really interrupted the sweep
+    assert any(0 < f < 1 for f in partial), partial  # ... in the middle, with points done and points to do
     done = subprocess.run([sys.executable, "-c", _RUNNER, str(tmp_path / "killed.toml")], env=env,
                           capture_output=True, text=True)
     assert done.returncode == 0, done.stderr

@@ -1,0 +1,141 @@
+"""The rgftrans command: bad input gives one line and exit status 2, never a traceback; happy paths work."""
+
+from __future__ import annotations
+
+import pytest
+
+from rgftrans.cli import EXIT_BAD_INPUT, EXIT_OK, main
+
+GOOD = """
+[lattice]
+kind = "square"
+spacing_nm = 5.0
+
+[geometry]
+rectangle_nm = [0.0, 0.0, 100.0, 60.0]
+
+[[leads]]
+name = "source"
+side = "left"
+span_nm = [10.0, 50.0]
+
+[[leads]]
+name = "drain"
+side = "right"
+span_nm = [0.0, 30.0]
+
+[energy]
+start_meV = 2.0
+stop_meV = 5.0
+points = 7
+
+[output]
+path = "{out}"
+"""
+
+# (name, replacement (old -> new) applied to GOOD, or extra text appended, expected fragment of the message)
+BAD = [
+    ("misspelled section", ("[lattice]", "[latice]"), "did you mean 'lattice'"),
+    ("misspelled key", ("spacing_nm = 5.0", "spacing = 5.0"), "spacing"),
+    ("negative spacing", ("spacing_nm = 5.0", "spacing_nm = -5.0"), "spacing_nm"),
+    ("zero spacing", ("spacing_nm = 5.0", "spacing_nm = 0.0"), "spacing_nm"),
+    ("string spacing", ("spacing_nm = 5.0", 'spacing_nm = "five"'), "spacing_nm"),
+    ("unknown lattice", ('kind = "square"', 'kind = "hexagonal"'), "kind"),
+    ("no geometry", ("[geometry]\nrectangle_nm = [0.0, 0.0, 100.0, 60.0]", ""), "geometry"),
+    ("short rectangle", ("[0.0, 0.0, 100.0, 60.0]", "[0.0, 0.0, 100.0]"), "rectangle_nm"),
+    ("two base shapes", ("rectangle_nm = [0.0, 0.0, 100.0, 60.0]",
+                         "rectangle_nm = [0.0, 0.0, 100.0, 60.0]\ndisk_nm = [50.0, 30.0, 20.0]"), "geometry"),
+    ("bad lead side", ('side = "left"', 'side = "west"'), "side"),
+    ("reversed span", ("span_nm = [10.0, 50.0]", "span_nm = [50.0, 10.0]"), "span_nm"),
+    ("duplicate lead names", ('name = "drain"', 'name = "source"'), "source"),
+    ("lead misses the device", ("span_nm = [0.0, 30.0]", "span_nm = [200.0, 230.0]"), "misses the device"),
+    ("lead wider than its side", ("span_nm = [0.0, 30.0]", "span_nm = [-40.0, 30.0]"), "drain"),
+    ("zero energy points", ("points = 7", "points = 0"), "points"),
+    ("energy stop below start", ("stop_meV = 5.0", "stop_meV = 1.0"), "stop_meV"),
+    ("incomplete energy grid", ("points = 7\n", ""), "points"),
+    ("NaN energy", ("start_meV = 2.0", "start_meV = nan"), "start_meV"),
+    ("infinite field", None, "tesla", "\n[field]\ntesla = inf\n"),
+    ("negative temperature", None, "kelvin", "\n[temperature]\nkelvin = [-1.0]\n"),
+    ("unknown material", None, "material", '\n[material]\nname = "Unobtainium"\n'),
+    ("rashba without spin", None, "rashba", "\n[spin]\nrashba_meV_nm = 10.0\n"),
+    ("unknown sweep parameter", None, "parameter",
+     '\n[[sweep.axis]]\nparameter = "gates.nosuch.voltage_V"\nvalues = [0.0, 1.0]\n'),
+    ("sweep axis with no values", None, "sweep", '\n[[sweep.axis]]\nparameter = "field.tesla"\n'),
+    ("bad output suffix", ('path = "{out}"', 'path = "result.txt"'), "path"),
+    ("bad cluster address", None, "address", '\n[cluster]\nexecutor = "dask"\naddress = "not an address"\n'),
+    ("zero workers", None, "workers", "\n[cluster]\nworkers = 0\n"),
+    ("negative disorder", None, "width_meV", "\n[disorder]\nwidth_meV = -1.0\n"),
+    ("TOML syntax", ("points = 7", "points = = 7"), "line"),
+    ("gate without depth", None, "depth_nm",
+     '\n[gates]\n[[gates.gate]]\nname = "g"\nrectangle_nm = [0.0, 0.0, 1.0, 1.0]\nvoltage_V = -0.1\n'),
+]
+
+
+def _write(tmp_path, case) -> str:
+    text = GOOD.format(out=tmp_path / "out.h5")
+    if case[1] is not None:
+        old, new = case[1]
+        old = old.replace("{out}", str(tmp_path / "out.h5"))
+        assert old in text, case[0]
+        text = text.replace(old, new)
+    if len(case) > 3:
+        text += case[3]
+    path = tmp_path / "bad.toml"
+    path.write_text(text)
+    return str(path)
+
+
+def test_catalogue_is_large_enough():
+    assert len(BAD) >= 25
+
+
+@pytest.mark.parametrize("case", BAD, ids=[c[0] for c in BAD])
+@pytest.mark.parametrize("command", ["check", "run"])
+def test_bad_config_one_line_exit_2(tmp_path, capsys, case, command):
+    status = main([command, _write(tmp_path, case)] + (["--quiet"] if command == "run" else []))
+    err = capsys.readouterr().err.strip()
+    assert status == EXIT_BAD_INPUT
+    assert "Traceback" not in err
+    lines = [line for line in err.splitlines() if not line.startswith("rgftrans: warning:")]
+    assert len(lines) == 1 and lines[0].startswith("rgftrans: error:"), err
+    assert case[2].lower() in lines[0].lower(), lines[0]
+    assert not (tmp_path / "out.h5").exists()  # nothing written for a config that does not validate
+
+
+def test_missing_config_file(tmp_path, capsys):
+    assert main(["check", str(tmp_path / "nope.toml")]) == EXIT_BAD_INPUT
+    assert capsys.readouterr().err.count("\n") == 1
+
+
+def test_argument_errors_exit_2(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["frobnicate"])
+    assert exc.value.code == EXIT_BAD_INPUT
+
+
+@pytest.mark.parametrize("command", ["check", "run", "info", "plot"])
+def test_help_for_every_command(command, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main([command, "--help"])
+    assert exc.value.code == 0
+    assert "usage: rgftrans " + command in capsys.readouterr().out
+
+
+def test_check_run_info_plot(tmp_path, capsys):
+    cfg = tmp_path / "good.toml"
+    cfg.write_text(GOOD.format(out=tmp_path / "out.h5"))
+    assert main(["check", str(cfg), "--draw", str(tmp_path / "device.png")]) == EXIT_OK
+    assert main(["run", str(cfg), "--quiet", "--workers", "1"]) == EXIT_OK
+    assert main(["info", str(tmp_path / "out.h5")]) == EXIT_OK
+    assert "completed: 1/1" in capsys.readouterr().out
+    assert main(["plot", str(tmp_path / "out.h5"), "--out", str(tmp_path / "g.png")]) == EXIT_OK
+    assert (tmp_path / "g.png").stat().st_size > 0 and (tmp_path / "device.png").stat().st_size > 0
+
+
+@pytest.mark.parametrize("content", [b"", b"not an hdf5 file at all\n"])
+def test_info_on_a_bad_file(tmp_path, capsys, content):
+    bad = tmp_path / "bad.h5"
+    bad.write_bytes(content)
+    assert main(["info", str(bad)]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "Traceback" not in err
