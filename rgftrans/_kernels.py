@@ -51,7 +51,8 @@ def _inv(a):
 
 
 @njit(cache=True)
-def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, w0_all, gk_all):
+def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, w0_all, gk_all,
+                 ward=False):
     """Two-terminal transmission at many energies.
 
     Parameters
@@ -70,6 +71,11 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
         ``Gamma_0 = W_0 W_0^dag`` (zero-padded columns allowed).
     gk_all : (n_E, m_K, m_K) complex
         ``Gamma_K`` embedded in the last layer.
+    ward : bool
+        Skip the column propagation and use the Ward identity on the last
+        layer, ``T = i Tr[Gamma_K (G_KK - G_KK^dag)] - Tr[Gamma_K G_KK Gamma_K G_KK^dag]``
+        (valid for real energies and a Hermitian device; loses relative
+        accuracy when T is tiny -- the caller checks).
 
     Returns
     -------
@@ -92,7 +98,7 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
         if n_layers == 1:
             a -= sigk_all[e]
         g, bad = _inv(a)
-        x = g @ w0_all[e]
+        x = g @ w0_all[e] if not ward else w0_all[e]
         for i in range(1, n_layers):
             mp = sizes[i - 1]
             mi = sizes[i]
@@ -105,20 +111,37 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
                     cr = np.conj(v[r, r])
                     for c in range(mi):
                         a[r, c] -= cr * g[r, c] * v[c, c]
-                vx = np.empty_like(x)
-                for r in range(mi):
-                    cr = np.conj(v[r, r])
-                    for c in range(x.shape[1]):
-                        vx[r, c] = cr * x[r, c]
+                if not ward:
+                    vx = np.empty((mi, x.shape[1]), dtype=np.complex128)
+                    for r in range(mi):
+                        cr = np.conj(v[r, r])
+                        for c in range(x.shape[1]):
+                            vx[r, c] = cr * x[r, c]
             else:
                 vh = np.ascontiguousarray(v.conj().T)
                 a -= vh @ (g @ v)
-                vx = vh @ x
+                if not ward:
+                    vx = vh @ x
             if i == n_layers - 1:
                 a -= sigk_all[e]
             g, singular = _inv(a)
             bad = bad or singular
-            x = g @ vx
+            if not ward:
+                x = g @ vx
+        if ward:
+            gam = gk_all[e]
+            gg = gam @ g
+            acc = 0.0
+            for r in range(g.shape[0]):
+                for c in range(g.shape[0]):
+                    # i Tr[Gamma (g - g^dag)] - Tr[Gamma g Gamma g^dag]
+                    acc += (1j * gam[r, c] * (g[c, r] - np.conj(g[r, c]))).real
+            gg2 = gg @ gam
+            for r in range(g.shape[0]):
+                for c in range(g.shape[0]):
+                    acc -= (gg2[r, c] * np.conj(g[r, c])).real
+            out[e] = np.nan if bad else acc
+            continue
         # T = Tr[x^dag Gamma_K x]
         gx = gk_all[e] @ x
         acc = 0.0

@@ -236,6 +236,9 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
 
 #: Imaginary part (in units of the hopping) used where the whole device is singular at a sampled energy.
 SINGULAR_ETA = 1e-10
+#: Below this transmission (per open channel) the Ward-identity shortcut of wide devices is replaced by the
+#: column propagation: T = N - R there is a difference of nearly equal numbers.
+WARD_MIN_T = 1e-3
 #: Energies handed to the compiled kernel at once (bounds the self-energy buffers).
 ENERGY_CHUNK = 64
 #: Eigenvalues of Gamma below this fraction of the largest are dropped from W (closed channels).
@@ -280,18 +283,37 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
         w0[k, :, :w.shape[1]] = w
     h_flat, h_off, sizes, v_flat, v_off, v_diag = blocks.flat()
     args = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
-    if sizes.max() <= SMALL_BLOCK:
-        two_terminal = two_terminal_small  # noqa: F811 - narrow devices: loops over work buffers
-    try:
-        trans = two_terminal(z_all, *args, sig0, sigk, w0, gk)
-    except np.linalg.LinAlgError:  # an exactly singular large block: redo the energies one by one
-        trans = np.full(n_e, np.nan)
-        for k in range(n_e):
-            try:
-                trans[k] = two_terminal(z_all[k:k + 1], *args, sig0[k:k + 1], sigk[k:k + 1], w0[k:k + 1],
-                                        gk[k:k + 1])[0]
-            except np.linalg.LinAlgError:
-                pass
+    wide = sizes.max() > SMALL_BLOCK
+    kernel = two_terminal if wide else two_terminal_small
+
+    def call(sel, ward):
+        if ward:
+            return two_terminal(z_all[sel], *args, sig0[sel], sigk[sel], w0[sel], gk[sel], True)
+        return kernel(z_all[sel], *args, sig0[sel], sigk[sel], w0[sel], gk[sel])
+
+    def run(sel, ward):
+        try:
+            return call(sel, ward)
+        except np.linalg.LinAlgError:  # an exactly singular block: redo the energies one by one, NaN where singular
+            out = np.full(len(sel), np.nan)
+            for j, k in enumerate(sel):
+                try:
+                    out[j] = call(np.array([k]), ward)[0]
+                except np.linalg.LinAlgError:
+                    pass
+            return out
+
+    # Wide layers: the Ward identity on the last layer saves the column propagation (real energies only);
+    # where T comes out small it has lost relative accuracy, so those energies are redone with columns.
+    real = z_all.imag == 0
+    trans = np.full(n_e, np.nan)
+    if wide and np.any(real):
+        sel = np.flatnonzero(real)
+        trans[sel] = run(sel, True)
+        trans[sel[trans[sel] < WARD_MIN_T * np.maximum(n_open[sel].min(axis=1), 1)]] = np.nan
+    redo = np.flatnonzero(~np.isfinite(trans))
+    if len(redo):
+        trans[redo] = run(redo, False)
     # A singular intermediate block (a bound state of a partial system at exactly this energy) breaks the
     # recursion, not the physics: those energies are solved directly by sparse LU.  If the whole open device
     # is singular there (a bound state in the continuum sitting exactly on the energy), T is taken just above
