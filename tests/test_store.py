@@ -245,8 +245,7 @@ def test_h5py_sees_dimension_scales(tmp_path, n_axes):
 
 @pytest.mark.parametrize("n_axes", [0, 1, 2])
 def test_xarray_reads_results_group(tmp_path, n_axes):
-    xr = pytest.importorskip("xarray")  # test dependency (extra "test"); h5netcdf is the engine
-    pytest.importorskip("h5netcdf")
+    import xarray as xr  # a test dependency (extra "test"); h5netcdf is the engine
     path = make_file(tmp_path / "x.h5", n_axes, points=all_points(n_axes))
     with xr.open_dataset(path, engine="h5netcdf", group="results") as ds:
         axis_names = [a.name for a in AXES[n_axes]]
@@ -266,8 +265,7 @@ def test_xarray_reads_results_group(tmp_path, n_axes):
 
 
 def test_xarray_reads_extras_group(tmp_path):
-    xr = pytest.importorskip("xarray")
-    pytest.importorskip("h5netcdf")
+    import xarray as xr  # a test dependency (extra "test"); h5netcdf is the engine
     path = make_file(tmp_path / "xe.h5", 1)
     x = Axis("x", np.arange(3) * 5.0, "nm", "position along the wire")
     with ResultFile.open_for_resume(path, config_hash=HASH) as rf:
