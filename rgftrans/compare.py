@@ -1,0 +1,1286 @@
+"""Comparison of a measured conductance trace with a stored sweep: read, correct, model, fit, plot.
+
+* :func:`read_trace` reads a measured trace (CSV with a header row, or plain
+  two-column text) into a :class:`MeasuredTrace` in siemens;
+* :func:`remove_series_resistance` and :func:`add_series_resistance` convert
+  between the measured two-terminal conductance and the device's own;
+* :func:`model_conductance` is the conductance a stored sweep predicts at given
+  gate voltages;
+* :func:`fit_trace` fits lever arm, offset, series resistance and temperature
+  by least squares and returns a :class:`TraceFit` (values, standard errors,
+  correlations, reduced chi-square, residuals), which writes itself into an
+  HDF5 group (:meth:`TraceFit.to_hdf5`, read back with :func:`read_fit`);
+* :func:`plot_fit` overlays measurement and model, with the residuals below.
+
+Gate-voltage convention
+-----------------------
+A stored sweep gives T(E) on an energy axis E (meV) whose zero is arbitrary
+(the band edge of the leads, the bottom of a potential).  A plunger gate at
+voltage V_g lowers every level of the dot by alpha * e * (V_g - V_0); seen from
+the levels, the chemical potential of the leads therefore rises, and the
+conductance measured at V_g is the thermal conductance at
+
+    mu(V_g) = mu_ref + alpha * (V_g - V_0),
+
+    G_model(V_g) = G(mu(V_g), T) = G0 ∫ T(E) (-df/dE)(E - mu(V_g)) dE,
+
+with alpha the lever arm in meV/V (positive for a gate that attracts
+electrons), V_0 the offset in V (the gate voltage at which mu = mu_ref) and
+mu_ref a fixed reference on the stored energy axis (default 0 meV; it only
+relabels V_0).  A sweep whose parameter axis already is a gate voltage (units
+V or mV) is compared directly: G_j = G(mu_ref, T) is computed at each stored
+gate value g_j from that point's T(E), interpolated (monotone cubic, PCHIP) and
+evaluated at V_g - V_0, so only the offset (no lever arm) can be fitted.
+
+What is measured is the device in series with a resistance R_s (contacts,
+lines, the amplifier's input): G_meas = 1 / (1/G_dev + R_s).  The fit runs on
+the measured quantity: residual = G_meas - add_series_resistance(G_model, R_s).
+
+Noise model: every point has the same Gaussian noise sigma, either given
+(``noise_S``; then the reduced chi-square tests the model) or estimated from
+the residual rms with n_points - n_fitted degrees of freedom (then the reduced
+chi-square is 1 by construction and the standard errors are scaled by the
+estimate).  Standard errors and correlations come from the covariance
+(J^T J)^-1 of the whitened residuals at the optimum (Gauss-Newton; Press et
+al., Numerical Recipes, 3rd ed. (2007), sec. 15.5).
+
+References
+----------
+S. Datta, *Electronic Transport in Mesoscopic Systems* (Cambridge, 1995), ch. 2
+(thermal conductance); L. P. Kouwenhoven et al., in *Mesoscopic Electron
+Transport* (Kluwer, 1997) (lever arm of a gate-defined dot).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import re
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Mapping
+
+import h5py
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+from scipy.optimize import least_squares
+from scipy.special import expit
+
+from .errors import ResolutionWarning, RgftransError, RgftransWarning
+from .materials import CONDUCTANCE_QUANTUM_S
+from .store import ResultData, read_result
+from .thermal import BOLTZMANN_MEV_PER_K
+
+__all__ = [
+    "PARAMETER_UNITS",
+    "CompareError",
+    "FitWarning",
+    "MeasuredTrace",
+    "TraceFit",
+    "add_series_resistance",
+    "fit_trace",
+    "model_conductance",
+    "plot_fit",
+    "read_fit",
+    "read_trace",
+    "remove_series_resistance",
+]
+
+G0_S = CONDUCTANCE_QUANTUM_S  # 2e²/h in S
+
+# --- named constants --------------------------------------------------------------------------
+#: Fewest data rows a trace may have (a fit needs more rows than fitted parameters, too).
+MIN_TRACE_POINTS = 3
+#: Largest energy step, in k_B T, that one measured gate step may map to: the
+#: thermal window (FWHM 3.5 k_B T) is then sampled by >= 7 points.
+MAX_GATE_STEP_KT = 0.5
+#: Largest stored energy spacing, in k_B T, inside the mapped window (as in rgftrans.thermal).
+MAX_ENERGY_SPACING_KT = 0.5
+#: Half-width, in k_B T, around the mapped chemical potentials that the energy grid must cover:
+#: the weight of -df/dE beyond it is 2/(1 + e^20) = 4e-9.
+COVERAGE_KT = 20.0
+#: The thermal integral drops the window beyond this many k_B T (weight < 1e-17).
+_CUTOFF_KT = 40.0
+#: Chemical potentials evaluated together in one vectorised block (memory: block x window nodes).
+_MU_BLOCK = 64
+#: Points of the dense model curve per measured point, and its bounds.
+_CURVE_DENSITY, _CURVE_MIN, _CURVE_MAX = 4, 200, 2000
+#: Lowest temperature a fitted temperature may reach (K); it must stay positive.
+_MIN_FIT_TEMPERATURE_K = 1e-4
+
+#: Units of the fit parameters.
+PARAMETER_UNITS = {"lever_arm": "meV/V", "offset": "V", "r_series": "ohm", "temperature": "K"}
+_PARAMETER_LONG_NAMES = {
+    "lever_arm": "lever arm alpha in mu = mu_ref + alpha (V_g - V_0)",
+    "offset": "gate-voltage offset V_0 (mu = mu_ref at V_g = V_0)",
+    "r_series": "series resistance R_s, G_meas = 1/(1/G_dev + R_s)",
+    "temperature": "electron temperature",
+}
+
+_CONDUCTANCE_UNITS = {"S": 1.0, "mS": 1e-3, "uS": 1e-6, "nS": 1e-9, "2e2/h": G0_S, "2e^2/h": G0_S, "G0": G0_S}
+_CURRENT_UNITS = {"A": 1.0, "mA": 1e-3, "uA": 1e-6, "nA": 1e-9, "pA": 1e-12}
+_GATE_UNITS = {"V": 1.0, "mV": 1e-3}
+_KINDS = ("conductance", "current")
+#: A header cell "name [unit]" or "name (unit)".
+_HEADER_UNIT = re.compile(r"^(?P<name>.*?)\s*[\[(]\s*(?P<unit>[^\])]*?)\s*[\])]\s*$")
+_HDF5_FORMAT = "rgftrans-trace-fit"
+
+
+class CompareError(RgftransError):
+    """A measured trace, a stored sweep or a fit request that cannot be compared."""
+
+
+class FitWarning(RgftransWarning):
+    """A fit that ended but whose uncertainties are doubtful (singular covariance, parameter at a bound)."""
+
+
+def _unit_key(unit: str) -> str:
+    """Normalise the spelling of a unit: µ/μ -> u, ² -> ^2, no spaces."""
+    return unit.strip().replace("µ", "u").replace("μ", "u").replace("²", "^2").replace(" ", "")
+
+
+# --- the measured trace ---------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class MeasuredTrace:
+    """A measured (or synthetic) conductance trace against gate voltage.
+
+    Attributes
+    ----------
+    gate_V : (n,) float ndarray, V
+        Strictly increasing gate voltages.
+    conductance_S : (n,) float ndarray, S
+        Measured two-terminal conductance (series resistance not removed);
+        for a current measurement, current / bias.
+    source : str
+        Where the trace came from (file path, or e.g. ``"synthetic"``).
+    description : str
+        Human description (columns, units, bias).
+    second_values : (n,) float ndarray or None
+        Values of an optional second column (e.g. a field stepped along), in
+        the file's units, reordered with the gate voltages.
+    second_name : str
+        Header text of that column ("" when there is none).
+    """
+
+    gate_V: np.ndarray
+    conductance_S: np.ndarray
+    source: str = ""
+    description: str = ""
+    second_values: np.ndarray | None = None
+    second_name: str = ""
+
+    def __post_init__(self):
+        where = self.source or "trace"
+        gate = np.array(self.gate_V, dtype=float)
+        g = np.array(self.conductance_S, dtype=float)
+        if gate.ndim != 1 or g.shape != gate.shape:
+            raise CompareError(
+                f"{where}: gate_V has shape {gate.shape} and conductance_S {g.shape}; pass two 1D arrays of equal length"
+            )
+        if gate.size < MIN_TRACE_POINTS:
+            raise CompareError(f"{where}: {gate.size} point(s), need at least {MIN_TRACE_POINTS}; pass the whole trace")
+        for name, arr in (("gate_V", gate), ("conductance_S", g)):
+            bad = np.flatnonzero(~np.isfinite(arr))
+            if bad.size:
+                raise CompareError(f"{where}: {name}[{bad[0]}] = {float(arr[bad[0]])!r}; remove non-finite points")
+        step = np.diff(gate)
+        if np.any(step <= 0.0):
+            k = int(np.flatnonzero(step <= 0.0)[0])
+            raise CompareError(
+                f"{where}: gate_V must increase strictly, but gate_V[{k}] = {float(gate[k])!r} >= gate_V[{k + 1}] = "
+                f"{float(gate[k + 1])!r}; sort the points and drop repeated gate voltages"
+            )
+        second = self.second_values
+        if second is not None:
+            second = np.array(second, dtype=float)
+            if second.shape != gate.shape:
+                raise CompareError(f"{where}: second_values has shape {second.shape}, expected {gate.shape}")
+            second.setflags(write=False)
+        for arr in (gate, g):
+            arr.setflags(write=False)
+        object.__setattr__(self, "gate_V", gate)
+        object.__setattr__(self, "conductance_S", g)
+        object.__setattr__(self, "second_values", second)
+
+    @property
+    def n_points(self) -> int:
+        return self.gate_V.size
+
+
+def _delimiter(line: str) -> str | None:
+    """The delimiter of a data file from its first line: comma, semicolon, tab, or whitespace (None)."""
+    for d in (",", ";", "\t"):
+        if d in line:
+            return d
+    return None
+
+
+def _cells(line: str, delimiter: str | None) -> list[str]:
+    if delimiter is None:
+        return line.split()
+    return [c.strip() for c in next(csv.reader([line], delimiter=delimiter))]
+
+
+def _is_number(cell: str) -> bool:
+    try:
+        float(cell)
+    except ValueError:
+        return False
+    return True
+
+
+def _split_header(cell: str) -> tuple[str, str | None]:
+    m = _HEADER_UNIT.match(cell)
+    if m and m.group("name"):
+        return m.group("name").strip(), m.group("unit")
+    return cell.strip(), None
+
+
+def _read_text(path: Path) -> str:
+    try:
+        return path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise CompareError(f"{path}: no such file; check the path of the measured trace") from None
+    except IsADirectoryError:
+        raise CompareError(f"{path}: is a directory; pass the CSV or text file of the trace") from None
+    except UnicodeDecodeError as exc:
+        raise CompareError(
+            f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start}); export the trace as CSV or plain text"
+        ) from None
+    except OSError as exc:
+        raise CompareError(f"{path}: cannot be read ({exc.strerror}); check the path and its permissions") from None
+
+
+def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conductance", units: str | None = None,
+               bias_V: float | None = None, second_column=None, description: str | None = None) -> MeasuredTrace:
+    """Read a measured gate-voltage trace of conductance or current.
+
+    Two formats: CSV (comma, semicolon or tab separated) whose first
+    non-comment line is a header naming the columns, optionally with units in
+    brackets (``Vg [V], G [uS]`` or ``Vg (mV)``); or plain whitespace-separated
+    columns without a header (columns are then addressed by index).  Lines
+    starting with ``#`` and blank lines are skipped.  A trace recorded with
+    decreasing gate voltage is reversed, so ``gate_V`` always increases.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    gate_column, value_column, second_column : str or int, optional, keyword-only
+        Column by header name (with or without its unit, case-insensitive) or
+        by 0-based index.  Defaults: the gate voltage is the first column; the
+        value is the one column left over (it must be unambiguous).  The
+        optional second column is carried along (e.g. a field stepped with the
+        gate).
+    kind : {"conductance", "current"}, keyword-only
+    units : str, optional, keyword-only
+        Units of the value column: S, mS, uS, nS or 2e2/h (also ``2e^2/h``,
+        ``G0``) for a conductance; A, mA, uA, nA, pA for a current.  Taken from
+        the header's brackets when not given; if both are given they must
+        agree.  The gate column is in V unless its header says ``[mV]``.
+    bias_V : float, keyword-only
+        Source-drain bias of a current trace (required for ``kind="current"``):
+        the conductance is current / bias.
+    description : str, optional, keyword-only
+        Replaces the generated description (say "synthetic" for invented data).
+
+    Returns
+    -------
+    MeasuredTrace
+
+    Raises
+    ------
+    CompareError
+        One line naming the file (and the line number where one applies):
+        missing column (with the columns present), non-numeric cell, NaN or
+        infinite value, a row of the wrong length, a gate voltage that repeats
+        or turns back, a current without a bias, unknown or conflicting units,
+        too few rows.
+    """
+    path = Path(path)
+    if kind not in _KINDS:
+        raise CompareError(f"{path}: kind must be 'conductance' or 'current', got {kind!r}")
+    if kind == "current":
+        if bias_V is None:
+            raise CompareError(
+                f"{path}: a current trace needs the source-drain bias to become a conductance; pass bias_V=<volts>"
+            )
+        try:
+            bias = float(bias_V)
+        except (TypeError, ValueError):
+            raise CompareError(f"{path}: bias_V must be a number in V, got {bias_V!r}") from None
+        if not math.isfinite(bias) or bias == 0.0:
+            raise CompareError(f"{path}: bias_V = {bias!r} V; pass the finite, non-zero bias of the measurement")
+    elif bias_V is not None:
+        raise CompareError(f"{path}: bias_V applies to kind='current' only; drop it or pass kind='current'")
+
+    text = _read_text(path)
+    header: list[str] | None = None
+    delimiter: str | None = "unset"  # type: ignore[assignment]
+    rows: list[tuple[int, list[str]]] = []
+    for line_no, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        if not stripped or stripped.startswith("#"):
+            continue
+        if delimiter == "unset":
+            delimiter = _delimiter(stripped)
+        cells = _cells(stripped, delimiter)
+        if header is None and not rows and not any(_is_number(c) for c in cells):
+            header = cells
+            continue
+        rows.append((line_no, cells))
+
+    n_cols = len(header) if header is not None else (len(rows[0][1]) if rows else 0)
+    if header is not None:
+        names, header_units = zip(*(_split_header(c) for c in header)) if header else ((), ())
+        present = ", ".join(repr(c) for c in header)
+    else:
+        names, header_units = tuple(str(i) for i in range(n_cols)), (None,) * n_cols
+        present = ", ".join(str(i) for i in range(n_cols)) + " (no header row: address columns by index)"
+
+    def resolve(spec, what: str, keyword: str):
+        if isinstance(spec, (int, np.integer)) and not isinstance(spec, bool):
+            if 0 <= spec < n_cols:
+                return int(spec)
+        elif isinstance(spec, str):
+            wanted = spec.strip().lower()
+            for i in range(n_cols):
+                if header is not None and wanted in (header[i].lower(), names[i].lower()):
+                    return i
+        raise CompareError(
+            f"{path}: no column {spec!r} for the {what}; columns present: {present}; pass {keyword}= one of them"
+        )
+
+    if n_cols == 0:
+        raise CompareError(f"{path}: no data rows, need at least {MIN_TRACE_POINTS}; check that this is the trace file")
+    i_gate = 0 if gate_column is None else resolve(gate_column, "gate voltage", "gate_column")
+    i_second = None if second_column is None else resolve(second_column, "second column", "second_column")
+    if value_column is None:
+        left = [i for i in range(n_cols) if i not in (i_gate, i_second)]
+        if len(left) != 1:
+            raise CompareError(
+                f"{path}: cannot tell which column holds the {kind}: columns present: {present}; pass value_column="
+            )
+        i_value = left[0]
+    else:
+        i_value = resolve(value_column, kind, "value_column")
+    if i_value == i_gate:
+        raise CompareError(f"{path}: gate_column and value_column both select column {names[i_gate]!r}; pick two columns")
+
+    # Units of the value column: from the argument and/or the header.
+    table, other = (_CONDUCTANCE_UNITS, _CURRENT_UNITS) if kind == "conductance" else (_CURRENT_UNITS, _CONDUCTANCE_UNITS)
+    head_unit = header_units[i_value]
+    if units is not None and head_unit is not None and _unit_key(units) != _unit_key(head_unit):
+        raise CompareError(
+            f"{path}: column {header[i_value]!r} says [{head_unit}] but units={units!r} was passed; drop one of them"
+        )
+    unit = units if units is not None else head_unit
+    if unit is None:
+        raise CompareError(
+            f"{path}: the units of the {kind} column {names[i_value]!r} are not known; pass units= "
+            f"(one of {', '.join(table)}) or write them in the header as '{names[i_value]} [unit]'"
+        )
+    key = _unit_key(unit)
+    if key not in table:
+        if key in other:
+            hint = "kind='current' and bias_V=" if kind == "conductance" else "kind='conductance'"
+            raise CompareError(f"{path}: the value column is in {unit!r}, which is not a {kind}; pass {hint}")
+        raise CompareError(f"{path}: unknown {kind} unit {unit!r}; use one of {', '.join(table)}")
+    value_scale = table[key]
+    gate_unit = header_units[i_gate] or "V"
+    if _unit_key(gate_unit) not in _GATE_UNITS:
+        raise CompareError(f"{path}: gate column {header[i_gate]!r} is in {gate_unit!r}; give the gate voltage in V or mV")
+    gate_scale = _GATE_UNITS[_unit_key(gate_unit)]
+
+    # Parse the rows.
+    columns = [(i_gate, "gate voltage"), (i_value, kind)] + ([(i_second, "second")] if i_second is not None else [])
+    data = np.empty((len(rows), len(columns)))
+    line_nos = np.array([ln for ln, _ in rows], dtype=int)
+    for r, (line_no, cells) in enumerate(rows):
+        if len(cells) != n_cols:
+            raise CompareError(
+                f"{path}, line {line_no}: {len(cells)} cell(s), expected {n_cols} ({present}); fix or remove the row"
+            )
+        for c, (i, _) in enumerate(columns):
+            cell = cells[i]
+            try:
+                value = float(cell)
+            except ValueError:
+                raise CompareError(
+                    f"{path}, line {line_no}: cell {cell!r} in column {names[i]!r} is not a number; "
+                    f"fix or remove the row"
+                ) from None
+            if not math.isfinite(value):
+                what = "NaN" if math.isnan(value) else "infinite"
+                raise CompareError(
+                    f"{path}, line {line_no}: column {names[i]!r} is {what} ({cell!r}); remove the row or "
+                    f"fill in the value"
+                )
+            data[r, c] = value
+    if len(rows) < MIN_TRACE_POINTS:
+        raise CompareError(
+            f"{path}: {len(rows)} data row(s), need at least {MIN_TRACE_POINTS}; check that the file holds the whole trace"
+        )
+
+    gate = data[:, 0] * gate_scale
+    step = np.diff(gate)
+    if np.any(step == 0.0):
+        k = int(np.flatnonzero(step == 0.0)[0])
+        raise CompareError(
+            f"{path}, line {line_nos[k + 1]}: gate voltage {float(data[k + 1, 0])!r} repeats line {line_nos[k]}; "
+            f"average or remove repeated points (a trace must not revisit a gate voltage)"
+        )
+    direction = np.sign(step[0])
+    turns = np.flatnonzero(np.sign(step) != direction)
+    if turns.size:
+        k = int(turns[0])
+        sense = "rising" if direction > 0 else "falling"
+        raise CompareError(
+            f"{path}, line {line_nos[k + 1]}: gate voltage turns back ({float(data[k, 0])!r} -> {float(data[k + 1, 0])!r} after "
+            f"{sense} from line {line_nos[0]}); split up and down sweeps into separate files"
+        )
+    order = slice(None) if direction > 0 else slice(None, None, -1)
+    value = data[:, 1] * value_scale
+    if kind == "current":
+        value = value / bias
+    unit_text = f"[{unit}]"
+    if description is None:
+        description = f"{kind} column {names[i_value]!r} {unit_text} against gate column {names[i_gate]!r} [{gate_unit}]"
+        if kind == "current":
+            description += f", divided by the bias {bias:g} V"
+        description += f", read from {path.name}"
+    return MeasuredTrace(
+        gate_V=gate[order],
+        conductance_S=value[order],
+        source=str(path),
+        description=description,
+        second_values=None if i_second is None else data[order, 2],
+        second_name="" if i_second is None else (header[i_second] if header is not None else f"column {i_second}"),
+    )
+
+
+# --- series resistance --------------------------------------------------------------------------
+
+
+def _check_resistance(r_series_ohm) -> float:
+    try:
+        r = float(r_series_ohm)
+    except (TypeError, ValueError):
+        raise CompareError(f"r_series_ohm must be a number in ohm, got {r_series_ohm!r}") from None
+    if not math.isfinite(r) or r < 0.0:
+        raise CompareError(f"r_series_ohm = {r!r}; pass a finite series resistance >= 0 ohm")
+    return r
+
+
+def remove_series_resistance(g_meas_S, r_series_ohm):
+    """Device conductance from the measured one, G_dev = 1 / (1/G_meas - R_s).
+
+    Evaluated as G_meas / (1 - R_s G_meas), which is the same and finite at
+    G_meas = 0.
+
+    Parameters
+    ----------
+    g_meas_S : float or ndarray, S
+        Measured two-terminal conductance.
+    r_series_ohm : float, ohm
+        Series resistance, >= 0.
+
+    Raises
+    ------
+    CompareError
+        If some G_meas >= 1/R_s: the device would need an infinite or negative
+        resistance (the correction diverges); the message names the first such point.
+
+    Examples
+    --------
+    >>> float(remove_series_resistance(100e-6, 5e3))  # 1/(10 kOhm - 5 kOhm)
+    0.0002
+    """
+    r = _check_resistance(r_series_ohm)
+    g = np.asarray(g_meas_S, dtype=float)
+    denominator = 1.0 - r * g
+    bad = denominator <= 0.0
+    if np.any(bad):
+        k = np.unravel_index(np.flatnonzero(bad)[0], g.shape) if g.ndim else ()
+        where = f"point {tuple(int(i) for i in k) if len(k) > 1 else int(k[0])}" if g.ndim else "the value"
+        raise CompareError(
+            f"G_meas = {float(g[k]):.6g} S at {where} ({np.count_nonzero(bad)} point(s) in all) is >= 1/R_s = "
+            f"{1.0 / r:.6g} S, so removing R_s = {r:g} ohm diverges; the series resistance must be smaller "
+            f"than 1/max(G_meas) = {1.0 / float(np.max(g)):.6g} ohm"
+        )
+    return g / denominator
+
+
+def add_series_resistance(g_dev_S, r_series_ohm):
+    """Measured conductance of a device in series with R_s, G_meas = 1 / (1/G_dev + R_s).
+
+    Evaluated as G_dev / (1 + R_s G_dev); the inverse of
+    :func:`remove_series_resistance`.
+
+    Parameters
+    ----------
+    g_dev_S : float or ndarray, S
+        Device conductance, > -1/R_s (a physical one is >= 0).
+    r_series_ohm : float, ohm
+
+    Examples
+    --------
+    >>> float(add_series_resistance(200e-6, 5e3))  # 1/(5 kOhm + 5 kOhm)
+    0.0001
+    """
+    r = _check_resistance(r_series_ohm)
+    g = np.asarray(g_dev_S, dtype=float)
+    denominator = 1.0 + r * g
+    if np.any(denominator <= 0.0):
+        k = int(np.flatnonzero(np.ravel(denominator) <= 0.0)[0])
+        raise CompareError(
+            f"G_dev = {float(np.ravel(g)[k]):.6g} S at flat index {k} is <= -1/R_s; a device conductance "
+            f"must be > -1/R_s = {-1.0 / r:.6g} S"
+        )
+    return g / denominator
+
+
+# --- the stored sweep and its model ---------------------------------------------------------------
+
+
+def _thermal_g0(energies, transmission, mu, kT):
+    """G(mu) = ∫ T_lin(E) (-df/dE)(E - mu) dE in 2e²/h for many mu, vectorised.
+
+    The same integral as :func:`rgftrans.thermal.thermal_conductance` (T_lin
+    the piecewise-linear interpolant of the samples, zero off the grid),
+    evaluated here by parts so that a whole block of chemical potentials costs
+    one array operation:
+
+        G = T_0 f(E_0 - mu) - T_N f(E_N - mu) + sum_i s_i [F(E_i+1 - mu) - F(E_i - mu)],
+
+    with s_i the slope of T_lin on cell i and F(x) = -k_B T ln(1 + e^{-x/k_B T})
+    the antiderivative of f.  Cells more than 40 k_B T below every mu of a block
+    contribute their whole rise s_i h_i (to 1e-17) and are summed by
+    telescoping; cells as far above contribute nothing.  The fitting loop calls
+    this many times; the test suite checks it against thermal_conductance.
+    """
+    e, t = energies, transmission
+    mu = np.asarray(mu, dtype=float)
+    if kT == 0.0:
+        return np.interp(mu, e, t, left=0.0, right=0.0)
+    flat = mu.ravel()
+    out = np.empty(flat.size)
+    slope = np.diff(t) / np.diff(e)
+    order = np.argsort(flat)
+    for start in range(0, flat.size, _MU_BLOCK):
+        idx = order[start:start + _MU_BLOCK]
+        m = flat[idx]
+        lo = max(int(np.searchsorted(e, m[0] - _CUTOFF_KT * kT, side="right")) - 1, 0)
+        hi = min(int(np.searchsorted(e, m[-1] + _CUTOFF_KT * kT, side="left")), e.size - 1)
+        edge = t[0] * expit((m - e[0]) / kT) - t[-1] * expit((m - e[-1]) / kT) + (t[lo] - t[0])
+        if hi > lo:
+            x = (e[lo:hi + 1][None, :] - m[:, None]) / kT
+            anti = -np.logaddexp(0.0, -x)  # F / kT
+            edge = edge + kT * (np.diff(anti, axis=1) @ slope[lo:hi])
+        out[idx] = edge
+    return out.reshape(mu.shape)
+
+
+class _Sweep:
+    """The slice of a stored sweep a trace is compared with: T(E) in energy mode, or T_j(E) on a gate axis."""
+
+    def __init__(self, result, *, leads=None, gate_axis=None, select=None):
+        data = result if isinstance(result, ResultData) else read_result(result)
+        self.path = str(data.path)
+        where = self.path
+        if "transmission" not in data.quantities:
+            raise CompareError(
+                f"{where}: holds no 'transmission' quantity (has {sorted(data.quantities)}); compare with a "
+                f"transport sweep"
+            )
+        names = tuple(data.lead_names)
+        if len(names) < 2:
+            raise CompareError(f"{where}: has {len(names)} lead(s); a conductance needs two")
+        self.lead_in, self.lead_out = self._leads(leads, names, where)
+        i_in, i_out = names.index(self.lead_in), names.index(self.lead_out)
+        axis_names = [a.name for a in data.axes]
+        select = dict(select or {})
+        unknown = sorted(set(select) - set(axis_names))
+        if unknown:
+            raise CompareError(f"{where}: select names axes {unknown} the sweep lacks; its axes are {axis_names}")
+        if gate_axis is not None and gate_axis not in axis_names:
+            raise CompareError(
+                f"{where}: no axis {gate_axis!r} for gate_axis; its axes are {axis_names or 'none (energy only)'}"
+            )
+        if gate_axis is not None and gate_axis in select:
+            raise CompareError(f"{where}: axis {gate_axis!r} is the gate axis; remove it from select")
+        missing = [n for n in axis_names if n != gate_axis and n not in select]
+        if missing:
+            hint = f"gate_axis={missing[0]!r} to compare along it" if gate_axis is None else ""
+            raise CompareError(
+                f"{where}: axes {missing} are not fixed; pass select={{{missing[0]!r}: <value>}}"
+                + (f" or {hint}" if hint else "")
+            )
+        index: list = []
+        for axis in data.axes:
+            if axis.name == gate_axis:
+                index.append(slice(None))
+                continue
+            value = select[axis.name]
+            try:
+                hit = np.flatnonzero(np.isclose(axis.values, float(value), rtol=1e-9, atol=1e-12))
+            except (TypeError, ValueError):
+                raise CompareError(f"{where}: select[{axis.name!r}] = {value!r}; pass a number in {axis.units}") from None
+            if hit.size == 0:
+                raise CompareError(
+                    f"{where}: axis {axis.name!r} has no value {value!r}; it holds "
+                    f"{np.array2string(axis.values, threshold=8, precision=6)} {axis.units}"
+                )
+            index.append(int(hit[0]))
+        index = tuple(index)
+        done = np.asarray(data.completed[index])
+        if not np.all(done):
+            raise CompareError(
+                f"{where}: {np.size(done) - np.count_nonzero(done)} selected parameter point(s) are not computed yet; "
+                f"resume the sweep or select computed points"
+            )
+        t = np.asarray(data.quantities["transmission"][index][..., i_out, i_in], dtype=float)
+        if not np.all(np.isfinite(t)):
+            raise CompareError(f"{where}: the selected transmission contains NaN; recompute those energies")
+        self.energies = np.asarray(data.energies_meV, dtype=float)
+        self.gate_axis = gate_axis
+        if gate_axis is None:
+            self.transmission = t
+            self.gate_values = None
+        else:
+            axis = data.axes[axis_names.index(gate_axis)]
+            key = _unit_key(axis.units)
+            if key not in _GATE_UNITS:
+                raise CompareError(
+                    f"{where}: axis {gate_axis!r} is in {axis.units!r}, not a gate voltage; use the energy axis "
+                    f"with a lever arm instead (gate_axis=None)"
+                )
+            if axis.size < 2:
+                raise CompareError(f"{where}: gate axis {gate_axis!r} has one value; direct comparison needs two or more")
+            values = axis.values * _GATE_UNITS[key]
+            order = np.argsort(values)
+            self.gate_values = values[order]
+            self.transmission = t[order]
+        self._cache: dict = {}
+
+    @staticmethod
+    def _leads(leads, names, where):
+        if leads is None:
+            return names[0], names[1]
+        try:
+            pair = list(leads)
+        except TypeError:
+            pair = []
+        if len(pair) != 2:
+            raise CompareError(f"{where}: leads must be a pair (from, to), got {leads!r}; leads are {list(names)}")
+        out = []
+        for lead in pair:
+            if isinstance(lead, (int, np.integer)) and 0 <= lead < len(names):
+                out.append(names[int(lead)])
+            elif isinstance(lead, str) and lead in names:
+                out.append(lead)
+            else:
+                raise CompareError(f"{where}: no lead {lead!r}; leads are {list(names)} (or their 0-based indices)")
+        if out[0] == out[1]:
+            raise CompareError(f"{where}: leads ({out[0]!r}, {out[1]!r}) name one lead twice; pass two different leads")
+        return tuple(out)
+
+    @property
+    def mode(self) -> str:
+        return "energy" if self.gate_axis is None else "gate"
+
+    @property
+    def parameter_names(self) -> tuple:
+        if self.mode == "energy":
+            return ("lever_arm", "offset", "r_series", "temperature")
+        return ("offset", "r_series", "temperature")
+
+    def mu(self, gate_V, p, mu_ref):
+        """Chemical potential (meV) on the stored energy axis at the gate voltages (energy mode)."""
+        return mu_ref + p["lever_arm"] * (np.asarray(gate_V, dtype=float) - p["offset"])
+
+    def device_g0(self, gate_V, p, mu_ref):
+        """Model device conductance in 2e²/h at the gate voltages, for parameters p."""
+        kT = BOLTZMANN_MEV_PER_K * p["temperature"]
+        if self.mode == "energy":
+            return _thermal_g0(self.energies, self.transmission, self.mu(gate_V, p, mu_ref), kT)
+        key = (kT, mu_ref)
+        if key not in self._cache:
+            g = np.array([_thermal_g0(self.energies, row, np.array([mu_ref]), kT)[0] for row in self.transmission])
+            self._cache = {key: PchipInterpolator(self.gate_values, g, extrapolate=False)}
+        shifted = np.clip(np.asarray(gate_V, dtype=float) - p["offset"], self.gate_values[0], self.gate_values[-1])
+        return self._cache[key](shifted)
+
+    def check_resolution(self, gate_V, p, mu_ref, stacklevel=3):
+        """ResolutionWarning where the comparison under-resolves or leaves the stored grid."""
+        kT = BOLTZMANN_MEV_PER_K * p["temperature"]
+        e = self.energies
+        if kT == 0.0:
+            return
+        gate_V = np.asarray(gate_V, dtype=float)
+        if self.mode == "energy":
+            alpha = p["lever_arm"]
+            if gate_V.size > 1:
+                step = abs(alpha) * float(np.max(np.diff(gate_V)))
+                if step > MAX_GATE_STEP_KT * kT:
+                    warnings.warn(
+                        f"the measured gate step reaches {np.max(np.diff(gate_V)) * 1e3:.4g} mV, i.e. {step:.4g} meV "
+                        f"at lever arm {alpha:.4g} meV/V, coarser than kT/2 = {MAX_GATE_STEP_KT * kT:.4g} meV at "
+                        f"{p['temperature']:.4g} K: thermally broadened features are under-sampled; measure with "
+                        f"gate steps <= {MAX_GATE_STEP_KT * kT / abs(alpha) * 1e3:.4g} mV",
+                        ResolutionWarning, stacklevel=stacklevel,
+                    )
+            mu = self.mu(gate_V, p, mu_ref)
+        else:
+            shifted = gate_V - p["offset"]
+            lo, hi = self.gate_values[0], self.gate_values[-1]
+            if shifted.min() < lo - 1e-12 * max(1.0, abs(lo)) or shifted.max() > hi + 1e-12 * max(1.0, abs(hi)):
+                warnings.warn(
+                    f"{self.path}: the measured gate range minus the offset, [{shifted.min():.6g}, {shifted.max():.6g}] V, "
+                    f"leaves the stored gate axis {self.gate_axis!r} [{lo:.6g}, {hi:.6g}] V (the model is held "
+                    f"constant beyond it); extend the sweep or restrict the trace",
+                    ResolutionWarning, stacklevel=stacklevel,
+                )
+            mu = np.array([mu_ref])
+        window = (float(mu.min()) - COVERAGE_KT * kT, float(mu.max()) + COVERAGE_KT * kT)
+        if e[0] > window[0] or e[-1] < window[1]:
+            warnings.warn(
+                f"{self.path}: the mapped chemical potentials ± {COVERAGE_KT:g} kT span [{window[0]:.6g}, "
+                f"{window[1]:.6g}] meV but the stored energy grid covers [{e[0]:.6g}, {e[-1]:.6g}] meV (T = 0 "
+                f"beyond it); extend the energy grid or restrict the trace's gate range",
+                ResolutionWarning, stacklevel=stacklevel,
+            )
+        inside = (e[1:] > window[0]) & (e[:-1] < window[1])
+        if np.any(inside):
+            spacing = float(np.max(np.diff(e)[inside]))
+            if spacing > MAX_ENERGY_SPACING_KT * kT:
+                warnings.warn(
+                    f"{self.path}: the stored energy spacing reaches {spacing:.4g} meV inside the mapped window, "
+                    f"coarser than kT/2 = {MAX_ENERGY_SPACING_KT * kT:.4g} meV at {p['temperature']:.4g} K; "
+                    f"refine the energy grid there",
+                    ResolutionWarning, stacklevel=stacklevel,
+                )
+
+
+def _check_temperature(temperature_K, *, positive: bool) -> float:
+    try:
+        value = float(temperature_K)
+    except (TypeError, ValueError):
+        raise CompareError(f"temperature_K must be a number in K, got {temperature_K!r}") from None
+    if not math.isfinite(value) or value < 0.0 or (positive and value == 0.0):
+        bound = "> 0" if positive else ">= 0"
+        raise CompareError(f"temperature_K = {value!r}; pass a finite electron temperature {bound} K")
+    return value
+
+
+def model_conductance(result, gate_V, *, temperature_K, lever_arm_meV_per_V=None, offset_V=0.0,
+                      r_series_ohm=0.0, mu_ref_meV=0.0, leads=None, gate_axis=None, select=None,
+                      check: bool = True):
+    """Conductance a stored sweep predicts at the given gate voltages, as measured through R_s.
+
+    Energy mode (``gate_axis=None``): G(V) = G0 ∫ T(E) (-df/dE)(E - mu(V)) dE with
+    mu(V) = mu_ref + alpha (V - V_0) (module docstring).  Gate mode: the
+    thermal conductance at mu_ref of each stored gate point, interpolated
+    (PCHIP) at V - V_0.  In both, the result is passed through
+    :func:`add_series_resistance`.
+
+    Parameters
+    ----------
+    result : str, os.PathLike or ResultData
+        A stored sweep with a ``transmission`` quantity.
+    gate_V : (n,) float ndarray, V
+    temperature_K : float, K, keyword-only
+    lever_arm_meV_per_V : float, meV/V, keyword-only
+        alpha; required in energy mode, refused in gate mode.
+    offset_V : float, V, keyword-only
+    r_series_ohm : float, ohm, keyword-only
+    mu_ref_meV : float, meV, keyword-only
+        The chemical potential on the stored energy axis at V = V_0.
+    leads : (from, to) pair of lead names or indices, keyword-only
+        Transmission from the first into the second; default the first two leads.
+    gate_axis : str, keyword-only
+        Name of a parameter axis in V or mV for direct comparison.
+    select : dict of str to float, keyword-only
+        A value for every other parameter axis of the sweep.
+    check : bool, keyword-only
+        Warn (:class:`~rgftrans.errors.ResolutionWarning`) about coarse
+        sampling or an energy grid that does not cover the mapped window.
+
+    Returns
+    -------
+    (n,) float ndarray, S
+    """
+    sweep = _Sweep(result, leads=leads, gate_axis=gate_axis, select=select)
+    gate = np.asarray(gate_V, dtype=float)
+    p = {"offset": float(offset_V), "r_series": _check_resistance(r_series_ohm),
+         "temperature": _check_temperature(temperature_K, positive=False)}
+    if sweep.mode == "energy":
+        if lever_arm_meV_per_V is None:
+            raise CompareError(f"{sweep.path}: an energy sweep needs lever_arm_meV_per_V to map gate voltage to energy")
+        p["lever_arm"] = float(lever_arm_meV_per_V)
+    elif lever_arm_meV_per_V is not None:
+        raise CompareError(f"{sweep.path}: axis {gate_axis!r} already is a gate voltage; drop lever_arm_meV_per_V")
+    if check:
+        sweep.check_resolution(gate, p, float(mu_ref_meV))
+    return add_series_resistance(sweep.device_g0(gate, p, float(mu_ref_meV)) * G0_S, p["r_series"])
+
+
+# --- the fit --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class TraceFit:
+    """Least-squares comparison of a measured trace with a stored sweep.
+
+    Attributes
+    ----------
+    source, description : str
+        The trace's source (path) and description.
+    result_path : str
+        The stored sweep.
+    mode : {"energy", "gate"}
+        Energy axis mapped by a lever arm, or a stored gate axis compared directly.
+    gate_axis : str
+        Name of the stored gate axis ("" in energy mode).
+    lead_in, lead_out : str
+        Transmission from ``lead_in`` into ``lead_out``.
+    mu_ref_meV : float, meV
+    parameter_names : tuple of str
+        All model parameters, fitted or fixed (units in :data:`PARAMETER_UNITS`).
+    fitted : tuple of str
+        The fitted ones, in the order of ``covariance`` and ``correlation``.
+    values, stderr : dict of str to float
+        Value of every parameter; standard error (NaN for fixed parameters).
+    covariance, correlation : (k, k) float ndarray
+        Over the fitted parameters.
+    chi_square, reduced_chi_square : float
+        Sum of squared residuals over sigma²; divided by ``dof``.
+    dof : int
+        n_points - k.
+    n_points : int
+    noise_S : float, S
+        The sigma used: given, or estimated from the residual rms.
+    noise_source : {"given", "estimated"}
+    gate_V, measured_S, model_S, model_device_S, residuals_S : (n,) float ndarray
+        Gate voltage (V); measured conductance; model as measured (with R_s);
+        model of the device alone; residual measured - model (all S).
+    curve_gate_V, curve_S : (m,) float ndarray
+        The model (with R_s) on a dense gate grid, for plots.
+    success : bool
+    message : str
+    n_evaluations : int
+    """
+
+    source: str
+    description: str
+    result_path: str
+    mode: str
+    gate_axis: str
+    lead_in: str
+    lead_out: str
+    mu_ref_meV: float
+    parameter_names: tuple
+    fitted: tuple
+    values: dict
+    stderr: dict
+    covariance: np.ndarray
+    correlation: np.ndarray
+    chi_square: float
+    reduced_chi_square: float
+    dof: int
+    n_points: int
+    noise_S: float
+    noise_source: str
+    gate_V: np.ndarray
+    measured_S: np.ndarray
+    model_S: np.ndarray
+    model_device_S: np.ndarray
+    residuals_S: np.ndarray
+    curve_gate_V: np.ndarray
+    curve_S: np.ndarray
+    success: bool
+    message: str
+    n_evaluations: int
+
+    def summary(self) -> str:
+        """Multi-line human description: data, noise model, parameters with errors, strong correlations."""
+        how = ("energy axis mapped by mu = mu_ref + alpha (V_g - V_0)" if self.mode == "energy"
+               else f"stored gate axis {self.gate_axis!r} compared at V_g - V_0")
+        lines = [
+            f"trace fit: {self.source or 'trace'} ({self.description}) against {self.result_path}",
+            f"  {how}, mu_ref = {self.mu_ref_meV:g} meV; transmission {self.lead_in!r} -> {self.lead_out!r}",
+            f"  {self.n_points} points, {len(self.fitted)} fitted parameter(s), {self.dof} degrees of freedom",
+        ]
+        if self.noise_source == "given":
+            lines.append(f"  noise sigma = {self.noise_S * 1e6:.4g} uS (given): chi-square {self.chi_square:.4g}, "
+                         f"reduced chi-square {self.reduced_chi_square:.4g}")
+        else:
+            lines.append(f"  noise sigma = {self.noise_S * 1e6:.4g} uS estimated from the residual rms: reduced "
+                         f"chi-square is 1 by construction (give noise_S to test the model)")
+        width = max(len(n) for n in self.parameter_names)
+        for name in self.parameter_names:
+            value, err, unit = self.values[name], self.stderr[name], PARAMETER_UNITS[name]
+            if name in self.fitted:
+                lines.append(f"  {name:<{width}} = {value:.6g} ± {err:.2g} {unit}")
+            else:
+                lines.append(f"  {name:<{width}} = {value:.6g} {unit} (fixed)")
+        strong = [f"{a}/{b} {self.correlation[i, j]:+.3f}"
+                  for i, a in enumerate(self.fitted) for j, b in enumerate(self.fitted)
+                  if j > i and abs(self.correlation[i, j]) > 0.9]
+        if strong:
+            lines.append(f"  strong correlations: {', '.join(strong)}")
+        lines.append(f"  optimiser: {'converged' if self.success else 'NOT converged'} after {self.n_evaluations} "
+                     f"evaluations ({self.message})")
+        return "\n".join(lines)
+
+    def to_hdf5(self, path, group: str = "compare", *, overwrite: bool = False) -> None:
+        """Write the fit into ``/<group>`` of an HDF5 file (appended to an existing one, e.g. the result file).
+
+        Layout: group attributes hold the scalars and texts (``format =
+        "rgftrans-trace-fit"``); datasets ``gate_voltage`` (dimension scale),
+        ``measured_conductance``, ``model_conductance``,
+        ``model_device_conductance``, ``residual`` on it; ``curve_gate_voltage``
+        and ``model_curve``; ``parameters/<name>`` scalars with ``stderr`` and
+        ``fitted`` attributes; ``covariance`` and ``correlation`` over the
+        string scales ``fitted_parameter`` and ``fitted_parameter_2``.  Every
+        dataset has ``units`` and ``long_name``.
+
+        Raises
+        ------
+        CompareError
+            If the file cannot be opened as HDF5, or the group exists and
+            ``overwrite`` is False.
+        """
+        path = Path(path)
+        try:
+            f = h5py.File(path, "a")
+        except OSError as exc:
+            raise CompareError(
+                f"{path}: cannot be opened as HDF5 for writing ({' '.join(str(exc).split())}); "
+                f"pass a new file name or an HDF5 file"
+            ) from None
+        with f:
+            if group in f:
+                if not overwrite:
+                    raise CompareError(f"{path}: group /{group} exists; pass overwrite=True or choose another group")
+                del f[group]
+            g = f.create_group(group)
+            attrs = {
+                "format": _HDF5_FORMAT, "source": self.source, "description": self.description,
+                "result_path": self.result_path, "mode": self.mode, "gate_axis": self.gate_axis,
+                "lead_in": self.lead_in, "lead_out": self.lead_out, "mu_ref_meV": self.mu_ref_meV,
+                "parameter_names": " ".join(self.parameter_names), "fitted": " ".join(self.fitted),
+                "chi_square": self.chi_square, "reduced_chi_square": self.reduced_chi_square, "dof": self.dof,
+                "n_points": self.n_points, "noise_S": self.noise_S, "noise_source": self.noise_source,
+                "success": self.success, "message": self.message, "n_evaluations": self.n_evaluations,
+            }
+            for key, value in attrs.items():
+                g.attrs[key] = value
+
+            def dataset(name, data, units, long_name, dims=()):
+                ds = g.create_dataset(name, data=data)
+                ds.attrs["units"], ds.attrs["long_name"] = units, long_name
+                for i, scale in enumerate(dims):
+                    ds.dims[i].attach_scale(scale)
+                return ds
+
+            gate = dataset("gate_voltage", self.gate_V, "V", "measured gate voltage")
+            gate.make_scale("gate_voltage")
+            for name, data, long_name in (
+                ("measured_conductance", self.measured_S, "measured two-terminal conductance"),
+                ("model_conductance", self.model_S, "model conductance as measured (with series resistance)"),
+                ("model_device_conductance", self.model_device_S, "model conductance of the device alone"),
+                ("residual", self.residuals_S, "residual: measured minus model conductance"),
+            ):
+                dataset(name, data, "S", long_name, (gate,))
+            curve = dataset("curve_gate_voltage", self.curve_gate_V, "V", "gate voltage of the dense model curve")
+            curve.make_scale("curve_gate_voltage")
+            dataset("model_curve", self.curve_S, "S", "model conductance as measured, dense curve", (curve,))
+            params = g.create_group("parameters")
+            for name in self.parameter_names:
+                ds = params.create_dataset(name, data=self.values[name])
+                ds.attrs["units"], ds.attrs["long_name"] = PARAMETER_UNITS[name], _PARAMETER_LONG_NAMES[name]
+                ds.attrs["stderr"], ds.attrs["fitted"] = self.stderr[name], name in self.fitted
+            labels = np.array(self.fitted, dtype=h5py.string_dtype())
+            rows = dataset("fitted_parameter", labels, "", "fitted parameter (rows)")
+            rows.make_scale("fitted_parameter")
+            cols = dataset("fitted_parameter_2", labels, "", "fitted parameter (columns)")
+            cols.make_scale("fitted_parameter_2")
+            units = " ".join(f"[{PARAMETER_UNITS[n]}]" for n in self.fitted)
+            dataset("covariance", self.covariance, f"products of the parameter units {units}",
+                    "covariance of the fitted parameters", (rows, cols))
+            dataset("correlation", self.correlation, "1", "correlation of the fitted parameters", (rows, cols))
+
+
+def _text(value) -> str:
+    return value.decode("utf-8") if isinstance(value, bytes) else str(value)
+
+
+def read_fit(path, group: str = "compare") -> TraceFit:
+    """Read a :class:`TraceFit` written by :meth:`TraceFit.to_hdf5`."""
+    path = Path(path)
+    try:
+        f = h5py.File(path, "r")
+    except (OSError, FileNotFoundError) as exc:
+        raise CompareError(f"{path}: cannot be opened as HDF5 ({' '.join(str(exc).split())}); check the path") from None
+    with f:
+        if group not in f or _text(f[group].attrs.get("format", "")) != _HDF5_FORMAT:
+            raise CompareError(f"{path}: no trace fit in /{group}; pass the group given to TraceFit.to_hdf5")
+        g = f[group]
+        a = g.attrs
+        names = tuple(_text(a["parameter_names"]).split())
+        fitted = tuple(_text(a["fitted"]).split())
+        return TraceFit(
+            source=_text(a["source"]), description=_text(a["description"]), result_path=_text(a["result_path"]),
+            mode=_text(a["mode"]), gate_axis=_text(a["gate_axis"]), lead_in=_text(a["lead_in"]),
+            lead_out=_text(a["lead_out"]), mu_ref_meV=float(a["mu_ref_meV"]), parameter_names=names,
+            fitted=fitted,
+            values={n: float(g["parameters"][n][()]) for n in names},
+            stderr={n: float(g["parameters"][n].attrs["stderr"]) for n in names},
+            covariance=g["covariance"][()], correlation=g["correlation"][()],
+            chi_square=float(a["chi_square"]), reduced_chi_square=float(a["reduced_chi_square"]),
+            dof=int(a["dof"]), n_points=int(a["n_points"]), noise_S=float(a["noise_S"]),
+            noise_source=_text(a["noise_source"]),
+            gate_V=g["gate_voltage"][()], measured_S=g["measured_conductance"][()],
+            model_S=g["model_conductance"][()], model_device_S=g["model_device_conductance"][()],
+            residuals_S=g["residual"][()], curve_gate_V=g["curve_gate_voltage"][()], curve_S=g["model_curve"][()],
+            success=bool(a["success"]), message=_text(a["message"]), n_evaluations=int(a["n_evaluations"]),
+        )
+
+
+def _covariance(jac: np.ndarray) -> tuple[np.ndarray, bool]:
+    """(J^T J)^-1 by SVD, dropping singular values below rounding; flag rank deficiency."""
+    _, s, vt = np.linalg.svd(jac, full_matrices=False)
+    threshold = np.finfo(float).eps * max(jac.shape) * (s[0] if s.size else 0.0)
+    keep = s > threshold
+    vt = vt[keep]
+    cov = (vt.T / s[keep] ** 2) @ vt
+    return cov, bool(np.count_nonzero(keep) == s.size)
+
+
+def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series_ohm=0.0, fit_series: bool = False,
+              fit_temperature: bool = False, noise_S=None, initial: Mapping[str, float] | None = None,
+              mu_ref_meV: float = 0.0, leads=None, gate_axis=None, select=None, max_evaluations: int = 2000
+              ) -> TraceFit:
+    """Fit a stored sweep to a measured trace by least squares.
+
+    Minimises sum_i ((G_meas,i - G_model,i) / sigma)² over the fitted
+    parameters, with G_model = add_series_resistance(G(mu(V_i), T), R_s) (the
+    model is brought to the measured quantity, so the data are never
+    corrected).  Trust-region reflective least squares
+    (:func:`scipy.optimize.least_squares`, scaled by the Jacobian), with
+    temperature > 0 and R_s >= 0 as bounds.
+
+    Parameters
+    ----------
+    result : str, os.PathLike or ResultData
+    trace : MeasuredTrace
+    temperature_K : float, K, keyword-only
+        Electron temperature (start value if ``fit_temperature``).
+    fit : iterable of str, keyword-only
+        Names of the fitted parameters among "lever_arm", "offset",
+        "r_series", "temperature".  Default ("lever_arm", "offset") in energy
+        mode, ("offset",) in gate mode.
+    r_series_ohm : float, ohm, keyword-only
+        Series resistance (start value if fitted).
+    fit_series, fit_temperature : bool, keyword-only
+        Add "r_series" / "temperature" to ``fit``.
+    noise_S : float, S, keyword-only
+        The measurement's noise sigma.  None: estimated from the residual rms
+        (reduced chi-square then 1 by construction).
+    initial : dict, keyword-only
+        "lever_arm" (meV/V; required in energy mode, start value or fixed
+        value, e.g. ΔE between two stored peaks / ΔV_g between the measured
+        ones) and "offset" (V; default: the centre of the trace maps to the
+        centre of the stored energy grid, or 0 in gate mode).
+    mu_ref_meV, leads, gate_axis, select
+        As in :func:`model_conductance`.
+    max_evaluations : int, keyword-only
+        Cap on model evaluations.
+
+    Returns
+    -------
+    TraceFit
+
+    Warns
+    -----
+    ResolutionWarning
+        At the fitted parameters: a gate step mapping to more than kT/2; an
+        energy grid not covering the mapped window ± 20 kT or coarser than kT/2 in it.
+    FitWarning
+        Singular covariance (a parameter not determined) or a parameter at a bound.
+    """
+    if not isinstance(trace, MeasuredTrace):
+        raise CompareError(f"trace must be a MeasuredTrace (from read_trace), got {type(trace).__name__}")
+    sweep = _Sweep(result, leads=leads, gate_axis=gate_axis, select=select)
+    where = f"{trace.source or 'trace'} vs {sweep.path}"
+    names = sweep.parameter_names
+    if fit is None:
+        fit = ("lever_arm", "offset") if sweep.mode == "energy" else ("offset",)
+    if isinstance(fit, str):
+        fit = (fit,)
+    fitted = list(dict.fromkeys(fit))
+    if fit_series and "r_series" not in fitted:
+        fitted.append("r_series")
+    if fit_temperature and "temperature" not in fitted:
+        fitted.append("temperature")
+    bad = [n for n in fitted if n not in names]
+    if bad:
+        extra = " (a stored gate axis needs no lever arm)" if "lever_arm" in bad and sweep.mode == "gate" else ""
+        raise CompareError(f"{where}: cannot fit {bad}{extra}; fit names are {list(names)}")
+    if not fitted:
+        raise CompareError(f"{where}: nothing to fit; pass fit= with at least one of {list(names)}")
+    fitted = tuple(n for n in names if n in fitted)  # canonical order
+    n, k = trace.n_points, len(fitted)
+    if n <= k:
+        raise CompareError(f"{where}: {n} points cannot determine {k} parameters; measure more points or fit fewer")
+    initial = dict(initial or {})
+    unknown = sorted(set(initial) - {"lever_arm", "offset"})
+    if unknown:
+        raise CompareError(
+            f"{where}: initial names {unknown}; it takes 'lever_arm' and 'offset' (r_series_ohm and temperature_K "
+            f"are keywords of their own)"
+        )
+    mu_ref = float(mu_ref_meV)
+    p0 = {"r_series": _check_resistance(r_series_ohm), "temperature": _check_temperature(temperature_K, positive=True)}
+    if sweep.mode == "energy":
+        if "lever_arm" not in initial:
+            raise CompareError(
+                f"{where}: give initial={{'lever_arm': alpha}} in meV/V (e.g. the energy spacing of two stored "
+                f"peaks over the gate spacing of the measured ones)"
+            )
+        p0["lever_arm"] = float(initial["lever_arm"])
+        if not math.isfinite(p0["lever_arm"]) or p0["lever_arm"] == 0.0:
+            raise CompareError(f"{where}: initial lever_arm = {p0['lever_arm']!r}; pass a finite, non-zero meV/V")
+        e = sweep.energies
+        default_offset = 0.5 * (trace.gate_V[0] + trace.gate_V[-1]) - (0.5 * (e[0] + e[-1]) - mu_ref) / p0["lever_arm"]
+        p0["offset"] = float(initial.get("offset", default_offset))
+    else:
+        if "lever_arm" in initial:
+            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage; drop initial['lever_arm']")
+        p0["offset"] = float(initial.get("offset", 0.0))
+    if noise_S is not None:
+        sigma = float(noise_S)
+        if not math.isfinite(sigma) or sigma <= 0.0:
+            raise CompareError(f"{where}: noise_S = {noise_S!r}; pass the positive noise sigma in S, or None to estimate it")
+    lower = {"lever_arm": -np.inf, "offset": -np.inf, "r_series": 0.0, "temperature": _MIN_FIT_TEMPERATURE_K}
+
+    gate = trace.gate_V
+    g_meas = trace.conductance_S
+    scale = sigma if noise_S is not None else G0_S  # whitening: residuals in sigma (or in 2e²/h until estimated)
+
+    def params(x):
+        p = dict(p0)
+        p.update(zip(fitted, x))
+        return p
+
+    def model(p, v):
+        return add_series_resistance(sweep.device_g0(v, p, mu_ref) * G0_S, p["r_series"])
+
+    def residual(x):
+        return (g_meas - model(params(x), gate)) / scale
+
+    x0 = np.array([p0[name] for name in fitted])
+    lb = np.array([lower[name] for name in fitted])
+    x0 = np.maximum(x0, lb)
+    sol = least_squares(residual, x0, bounds=(lb, np.full(k, np.inf)), x_scale="jac", max_nfev=max_evaluations)
+    p = params(sol.x)
+    whitened = sol.fun
+    chi2 = float(whitened @ whitened)
+    dof = n - k
+    cov, full_rank = _covariance(sol.jac)
+    if noise_S is None:
+        s2 = chi2 / dof  # estimated sigma², in units of scale²
+        sigma = math.sqrt(s2) * scale
+        cov = cov * s2
+        chi2, noise_source = float(dof), "estimated"
+    else:
+        noise_source = "given"
+    message = sol.message
+    if not full_rank:
+        warnings.warn(f"{where}: the fit does not determine every parameter of {list(fitted)} (singular covariance); "
+                      f"fix some of them or measure a wider gate range", FitWarning, stacklevel=2)
+        message += "; singular covariance"
+    at_bound = [name for name, active in zip(fitted, sol.active_mask) if active != 0]
+    if at_bound:
+        warnings.warn(f"{where}: {at_bound} ended at a bound ({', '.join(f'{b} = {p[b]:g}' for b in at_bound)}); "
+                      f"their standard errors are not meaningful; fix them instead", FitWarning, stacklevel=2)
+        message += f"; at bound: {' '.join(at_bound)}"
+    err = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov / np.outer(err, err)
+    stderr = {name: float("nan") for name in names}
+    stderr.update(zip(fitted, (float(v) for v in err)))
+
+    sweep.check_resolution(gate, p, mu_ref, stacklevel=3)
+    device = sweep.device_g0(gate, p, mu_ref) * G0_S
+    model_S = add_series_resistance(device, p["r_series"])
+    m = int(np.clip(_CURVE_DENSITY * n, _CURVE_MIN, _CURVE_MAX))
+    curve_gate = np.linspace(gate[0], gate[-1], m)
+    for arr in (device, model_S):
+        arr.setflags(write=False)
+    return TraceFit(
+        source=trace.source, description=trace.description, result_path=sweep.path, mode=sweep.mode,
+        gate_axis=sweep.gate_axis or "", lead_in=sweep.lead_in, lead_out=sweep.lead_out, mu_ref_meV=mu_ref,
+        parameter_names=names, fitted=fitted, values={name: float(p[name]) for name in names}, stderr=stderr,
+        covariance=cov, correlation=corr, chi_square=chi2, reduced_chi_square=chi2 / dof, dof=dof, n_points=n,
+        noise_S=float(sigma), noise_source=noise_source, gate_V=gate, measured_S=g_meas, model_S=model_S,
+        model_device_S=device, residuals_S=g_meas - model_S, curve_gate_V=curve_gate,
+        curve_S=model(p, curve_gate), success=bool(sol.success), message=message, n_evaluations=int(sol.nfev),
+    )
+
+
+# --- the figure ----------------------------------------------------------------------------------
+
+
+def plot_fit(fit: TraceFit, *, ax=None):
+    """Measured and modelled conductance against gate voltage, residuals below.
+
+    Parameters
+    ----------
+    fit : TraceFit
+    ax : matplotlib Axes or pair of Axes, optional, keyword-only
+        A pair (overlay, residuals) is drawn into; a single Axes is split
+        into the two panels; None makes a new figure.
+
+    Returns
+    -------
+    fig : matplotlib Figure
+    axes : tuple (overlay Axes, right-hand µS axis, residual Axes)
+    """
+    import matplotlib.pyplot as plt
+
+    if ax is None:
+        fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6, 5), layout="constrained",
+                                          gridspec_kw={"height_ratios": (3, 1)})
+    elif isinstance(ax, (tuple, list)):
+        top, bottom = ax
+        fig = top.figure
+    else:
+        fig = ax.figure
+        spec = ax.get_subplotspec().subgridspec(2, 1, height_ratios=(3, 1), hspace=0.05)
+        ax.remove()
+        top = fig.add_subplot(spec[0])
+        bottom = fig.add_subplot(spec[1], sharex=top)
+    label = fit.description or fit.source or "measured"
+    top.plot(fit.gate_V, fit.measured_S / G0_S, ".", ms=3, color="0.3", label=f"measured: {label}")
+    top.plot(fit.curve_gate_V, fit.curve_S / G0_S, "-", color="tab:red", lw=1.5,
+             label=f"model ({', '.join(fit.fitted)} fitted)")
+    top.set_ylabel("conductance G (2e²/h)")
+    right = top.secondary_yaxis("right", functions=(lambda g: g * G0_S * 1e6, lambda u: u / (G0_S * 1e6)))
+    right.set_ylabel("conductance G (µS)")
+    top.legend(loc="best", fontsize="small")
+    chi = (f"reduced χ² = {fit.reduced_chi_square:.3g}" if fit.noise_source == "given"
+           else f"σ estimated = {fit.noise_S * 1e6:.3g} µS")
+    top.set_title(f"{fit.n_points} points, {chi}", fontsize="medium")
+    bottom.axhspan(-fit.noise_S / G0_S, fit.noise_S / G0_S, color="tab:blue", alpha=0.15, lw=0, label="± σ")
+    bottom.axhline(0.0, color="0.5", lw=0.8)
+    bottom.plot(fit.gate_V, fit.residuals_S / G0_S, ".", ms=3, color="tab:blue", label="measured − model")
+    bottom.set_xlabel("gate voltage V_g (V)")
+    bottom.set_ylabel("residual (2e²/h)")
+    bottom.legend(loc="best", fontsize="small")
+    if top is not bottom:
+        top.tick_params(labelbottom=False)
+    return fig, (top, right, bottom)
