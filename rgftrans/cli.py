@@ -6,6 +6,7 @@ Subcommands::
     rgftrans run CONFIG [options]           run or resume the config's sweep into its HDF5 file
     rgftrans info RESULT                    summary of a result file
     rgftrans plot RESULT [--out PNG]        conductance lines or maps from a result file
+    rgftrans darkstates RESULT              locate bound states in the continuum along a stored sweep
 
 Exit status: 0 success; 1 the computation failed or was interrupted (finished
 points are kept; rerun to resume); 2 bad input (config, file, arguments),
@@ -111,6 +112,51 @@ def _cmd_plot(args) -> int:
     return EXIT_OK
 
 
+def _cmd_darkstates(args) -> int:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import numpy as np
+
+    from .darkstates import search_sweep, write_search
+    from .plots import plot_map, plot_track_on_map, plot_width_track
+
+    search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis)
+    t = search.track
+    print(f"{args.result}: resonance followed along {search.axis_name} over {len(t.parameters)} values; width from "
+          f"{t.widths_meV.min():.3g} to {t.widths_meV.max():.3g} meV")
+    if not search.bics:
+        print("  no width zero found along this axis (two conditions must be met in an asymmetric layout: "
+              "try a second parameter, or give --energy near another resonance)")
+    for loc, diag, q in zip(search.bics, search.diagnostics, search.nearby_q):
+        print(f"  BIC ({loc.kind}) at {search.axis_name} = {loc.parameter:.9g}, E = {loc.energy_meV:.6f} meV, "
+              f"width {loc.width_meV:.2e} meV ({loc.orders_of_magnitude:.1f} decades below {loc.typical_width_meV:.2e}),"
+              f" Gamma ~ |p - p*|^{loc.exponent:.2f}")
+        print(f"    Q nearby: {', '.join(f'{v:.3g}' for v in q)}")
+        print(f"    {diag.verdict}")
+    write_search(search, args.save or args.result)
+    prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    fig, ax = plot_width_track(search)
+    fig.savefig(f"{prefix}_width.png", dpi=150)
+    fig, ax = plot_track_on_map(args.result, search)
+    fig.savefig(f"{prefix}_track.png", dpi=150)
+    if search.bics and np.ndim(search.bics[0].parameter) == 0:
+        from .config import parse_config
+        from .store import read_result
+
+        loc = search.bics[0]
+        cfg = parse_config(read_result(args.result).config_text)
+        model = cfg.build_device({**cfg.base_point(), search.axis_name: float(loc.parameter)}).discretise()
+        density = model.per_site(np.abs(loc.resonance.state) ** 2)
+        q_near = search.nearby_q[0][0]
+        fig, ax = plot_map(model, density, label="|ψ|² (per site)",
+                           title=f"dark state at E = {loc.energy_meV:.4f} meV; Q = {q_near:.3g} just beside it")
+        fig.savefig(f"{prefix}_dark_state.png", dpi=150)
+    print(f"  written: group 'darkstates' in {args.save or args.result}; figures {prefix}_*.png")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="rgftrans", description="Tight-binding quantum transport by recursive Green's functions.",
                      epilog="Exit status: 0 success, 1 computation failed or interrupted (rerun resumes), "
@@ -151,6 +197,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--lead-in", help="sending lead (default: the first lead)")
     p.add_argument("--energy", type=float, metavar="MEV", help="energy for maps over two sweep axes")
     p.set_defaults(func=_cmd_plot)
+
+    p = sub.add_parser("darkstates", help="search a stored sweep for bound states in the continuum",
+                       description="Follow the narrowest resonance of a stored sweep along one axis, locate where "
+                                   "its width vanishes, explain why (coupling and degeneracy conditions), store the "
+                                   "search in the file and draw it.")
+    p.add_argument("result", help="HDF5 result file of a sweep")
+    p.add_argument("--energy", type=float, metavar="MEV", help="start near this resonance energy")
+    p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0)")
+    p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
+    p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
+    p.set_defaults(func=_cmd_darkstates)
     return parser
 
 

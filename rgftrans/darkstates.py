@@ -55,6 +55,8 @@ DECOUPLED = 1e-6
 #: A width below this fraction of the hopping at both ends of a search interval means the resonance is
 #: dark throughout: protected by a symmetry, not tuned.
 PROTECTED_WIDTH = 1e-12
+#: Widths are only known to about round-off of the energy scale: the decade count uses this floor.
+WIDTH_FLOOR = 1e-14
 #: Fewest grid points across a resonance's full width before a ResolutionWarning.
 MIN_POINTS_PER_WIDTH = 3
 
@@ -482,7 +484,7 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
         return r.width_meV
 
     typical = max(width(p_lo), width(p_hi))
-    scale = cache[p_lo].energy_scale if hasattr(cache[p_lo], "energy_scale") else build(p_lo).energy_scale
+    scale = build(p_lo).energy_scale
     if typical < PROTECTED_WIDTH * scale:
         r = cache[p_lo]
         return BicLocation(parameter=(p_lo, p_hi), energy_meV=r.energy_meV, width_meV=typical, typical_width_meV=typical,
@@ -499,9 +501,10 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
     for sgn in (-1, 1):
         w1, w2 = width(p_star + sgn * delta), width(p_star + 2 * sgn * delta)
         exps.append(np.log(max(w2, 1e-300) / max(w1, 1e-300)) / np.log(2.0))
+    floor = WIDTH_FLOOR * scale  # widths below round-off are reported as that floor in the decade count
     return BicLocation(parameter=p_star, energy_meV=best.energy_meV, width_meV=best.width_meV,
-                       typical_width_meV=typical, orders_of_magnitude=float(np.log10(typical / max(best.width_meV,
-                                                                                                 1e-300))),
+                       typical_width_meV=typical,
+                       orders_of_magnitude=float(np.log10(typical / max(abs(best.width_meV), floor))),
                        exponent=float(np.mean(exps)), solves=state["solves"], kind="accidental", resonance=best)
 
 
@@ -520,6 +523,8 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start: tup
             return 1e3
         r = _follow(lambda _: build(*x), 0.0, state["energy"], state["vec"])
         state["solves"] += 1
+        if not r.in_continuum:  # a bound state below every threshold is not what we look for
+            return 1e3
         if state["best"] is None or r.width_meV < state["best"][1].width_meV:
             state["best"] = (np.array(x, float), r)
             state["energy"], state["vec"] = r.energy_meV, r.state
@@ -535,3 +540,129 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start: tup
     return BicLocation(parameter=x_best, energy_meV=r.energy_meV, width_meV=r.width_meV, typical_width_meV=typical,
                        orders_of_magnitude=float(np.log10(typical / max(r.width_meV, 1e-300))), exponent=np.nan,
                        solves=state["solves"], kind="accidental", resonance=r)
+
+
+# --------------------------------------------------------------------------
+# Search over a stored sweep
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class SweepSearch:
+    """Dark-state search over one axis of a stored sweep.
+
+    Attributes
+    ----------
+    axis_name : str
+        Sweep parameter (dotted config path).
+    track : Track
+        The followed resonance at the stored parameter values.
+    bics : list of BicLocation
+        Located width zeros (refined between stored points).
+    diagnostics : list of CouplingDiagnostics
+        One per BIC, at its parameter and energy.
+    nearby_q : list of (3,) float
+        Q factors at p* - d, p* + d and p* + 2d (d = stored step / 20): how Q falls away from the BIC.
+    """
+
+    axis_name: str
+    track: Track
+    bics: list
+    diagnostics: list
+    nearby_q: list
+
+
+def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_drop_orders: float = 2.0,
+                 rtol: float = 1e-6) -> SweepSearch:
+    """Find bound states in the continuum along one axis of a stored sweep.
+
+    The narrowest resonance seen in the stored T(E) (Fano fits) seeds a pole
+    track across the stored parameter values; every interior minimum of its
+    width at least ``min_drop_orders`` decades below the median width is
+    refined with :func:`locate_bic` and explained with
+    :func:`coupling_diagnostics`.
+    """
+    from .config import parse_config
+    from .store import read_result
+
+    data = read_result(path)
+    if not data.axes:
+        raise RgftransError(f"{path}: the result has no sweep axis; a dark-state search follows a resonance along one")
+    cfg = parse_config(data.config_text, source=str(path))
+    cfg_axes = cfg.axes()
+    name = cfg_axes[axis].name
+    values = np.asarray(cfg_axes[axis].values, float)
+    base = cfg.base_point()
+
+    def build(p):
+        return cfg.build_device({**base, name: float(p)}).discretise()
+
+    trans = np.moveaxis(data.quantities["transmission"][..., 1, 0], axis, 0)
+    trans = trans.reshape(len(values), -1, trans.shape[-1])[:, 0, :]
+    energies = data.energies_meV
+    if energy_guess is None:
+        best = None
+        for k, row in enumerate(trans):
+            if not np.all(np.isfinite(row)):
+                continue
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", ResolutionWarning)
+                for fit in find_resonances(energies, row):
+                    if best is None or fit.width_meV < best[1].width_meV:
+                        best = (k, fit)
+        if best is None:
+            raise RgftransError(f"{path}: no resonance found in the stored T(E); give --energy to start the search")
+        k0, energy_guess = best[0], best[1].energy_meV
+    else:
+        k0 = 0
+    # Track from the seed outwards in both directions, so the identity is kept from a well-defined start.
+    fwd = track_resonance(build, values[k0:], energy_guess)
+    bwd = track_resonance(build, values[:k0 + 1][::-1], energy_guess)
+    order = np.concatenate([np.arange(k0 + 1)[::-1], np.arange(k0 + 1, len(values))])
+    joined = {f: np.concatenate([getattr(bwd, f), getattr(fwd, f)[1:]]) for f in
+              ("parameters", "energies_meV", "widths_meV", "q_factors", "in_continuum")}
+    sort = np.argsort(order)
+    track = Track(**{f: v[sort] for f, v in joined.items()})
+    widths = track.widths_meV
+    floor = np.median(widths[widths > 0]) if np.any(widths > 0) else 0.0
+    bics, diags, nearby = [], [], []
+    for k in range(1, len(values) - 1):
+        if widths[k] <= widths[k - 1] and widths[k] <= widths[k + 1] and track.in_continuum[k] and \
+                widths[k] < floor * 10 ** (-min_drop_orders):
+            loc = locate_bic(build, values[k - 1], values[k + 1], track.energies_meV[k], rtol=rtol)
+            p_star = loc.parameter if np.ndim(loc.parameter) == 0 else values[k]
+            bics.append(loc)
+            diags.append(coupling_diagnostics(build(p_star), loc.energy_meV))
+            d = (values[k + 1] - values[k]) / 20
+            nearby.append(np.array([_follow(build, p_star + s * d, loc.energy_meV).q_factor for s in (-1, 1, 2)]))
+    return SweepSearch(axis_name=name, track=track, bics=bics, diagnostics=diags, nearby_q=nearby)
+
+
+def write_search(search: SweepSearch, path, *, group: str = "darkstates") -> None:
+    """Store a search in its own group of an HDF5 file (appending to a result file is fine)."""
+    import h5py
+
+    with h5py.File(path, "a") as f:
+        if group in f:
+            del f[group]
+        g = f.create_group(group)
+        g.attrs["axis"] = search.axis_name
+        g.attrs["long_name"] = "dark-state (BIC) search along one sweep axis"
+        t = search.track
+        for key, arr, units, long in (("parameter", t.parameters, "", f"sweep parameter {search.axis_name}"),
+                                      ("energy", t.energies_meV, "meV", "resonance energy Re z"),
+                                      ("width", t.widths_meV, "meV", "resonance width -2 Im z"),
+                                      ("q_factor", t.q_factors, "1", "quality factor Re z / width")):
+            ds = g.create_dataset(f"track/{key}", data=arr)
+            ds.attrs["units"], ds.attrs["long_name"] = units, long
+        for i, (loc, diag, q) in enumerate(zip(search.bics, search.diagnostics, search.nearby_q)):
+            b = g.create_group(f"bic_{i}")
+            for key, val, units in (("parameter", loc.parameter, ""), ("energy", loc.energy_meV, "meV"),
+                                    ("width", loc.width_meV, "meV"), ("typical_width", loc.typical_width_meV, "meV"),
+                                    ("orders_of_magnitude", loc.orders_of_magnitude, "1"),
+                                    ("exponent", loc.exponent, "1"), ("nearby_q", q, "1"),
+                                    ("coupling_mismatch", diag.coupling_mismatch, "1"),
+                                    ("degeneracy_residual", diag.degeneracy_residual, "1")):
+                ds = b.create_dataset(key, data=np.asarray(val, float))
+                ds.attrs["units"], ds.attrs["long_name"] = units, key.replace("_", " ")
+            b.attrs["kind"] = loc.kind
+            b.attrs["verdict"] = diag.verdict

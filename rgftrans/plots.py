@@ -6,7 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result"]
+__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result",
+           "plot_width_track", "plot_track_on_map"]
 
 _LEAD_COLOURS = ("tab:red", "tab:blue", "tab:green", "tab:purple", "tab:orange", "tab:brown")
 
@@ -227,4 +228,43 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
     done = int(np.count_nonzero(data.completed))
     total = int(np.size(data.completed))
     ax.set_title(f"{Path(str(path)).name}: {done}/{total} points{extra}", fontsize="medium")
+    return fig, ax
+
+
+def plot_width_track(search, *, ax=None):
+    """Resonance width against the sweep parameter on a log scale, located BICs marked."""
+    fig, ax = _axes(ax)
+    t = search.track
+    ax.semilogy(t.parameters, np.maximum(t.widths_meV, 1e-300), "o-", ms=3, lw=1, color="k", label="width Γ")
+    for loc in search.bics:
+        if np.ndim(loc.parameter) == 0:
+            ax.axvline(loc.parameter, color="tab:red", lw=0.8, ls="--")
+            ax.plot([loc.parameter], [max(loc.width_meV, 1e-300)], "v", color="tab:red",
+                    label=f"BIC at {loc.parameter:.6g} ({loc.kind})")
+    ax.set_xlabel(f"{search.axis_name}")
+    ax.tick_params(axis="x", labelrotation=30)
+    ax.set_ylabel("resonance width Γ (meV)")
+    ax.legend(fontsize="small", frameon=False)
+    return fig, ax
+
+
+def plot_track_on_map(path, search, *, ax=None):
+    """T(E, parameter) from a result file with the tracked resonance energy drawn over it."""
+    from .store import read_result
+
+    data = read_result(path)
+    fig, ax = _axes(ax)
+    trans = data.quantities["transmission"][..., 1, 0]
+    trans = trans.reshape(len(data.axes[0].values), -1, trans.shape[-1])[:, 0, :]
+    mesh = ax.pcolormesh(data.axes[0].values, data.energies_meV, np.ma.masked_invalid(trans.T), shading="nearest",
+                         cmap="viridis")
+    fig.colorbar(mesh, ax=ax, label="transmission T")
+    ax.plot(search.track.parameters, search.track.energies_meV, color="w", lw=1.2, ls="--", label="tracked pole")
+    for loc in search.bics:
+        if np.ndim(loc.parameter) == 0:
+            ax.plot([loc.parameter], [loc.energy_meV], "o", mfc="none", mec="tab:red", ms=9, label="BIC")
+    ax.set_xlabel(f"{search.axis_name}")
+    ax.tick_params(axis="x", labelrotation=30)
+    ax.set_ylabel("energy E (meV)")
+    ax.legend(fontsize="small", loc="upper right")
     return fig, ax

@@ -131,3 +131,64 @@ def test_track_keeps_identity_through_the_bic():
     k = int(np.argmin(track.widths_meV))
     assert abs(kappas[k] - KAPPA_STAR) < 0.011  # the minimum of the tracked width is at the closed-form kappa*
     assert np.all(np.abs(np.diff(track.energies_meV)) < 0.05)  # no jump to the other, broad resonance
+
+
+SIDE_GATE = """
+# invented: a mirror-symmetric dot (tight-binding units) with a side gate that breaks the mirror symmetry
+[lattice]
+kind = "square"
+spacing_nm = 1.0
+hopping_meV = 1.0
+[geometry]
+rectangle_nm = [0.0, 0.0, 19.0, 10.0]
+[gates]
+depth_nm = 3.0
+[[gates.gate]]
+name = "side"
+rectangle_nm = [6.0, 12.0, 13.0, 30.0]
+voltage_V = 0.0
+[[leads]]
+name = "left"
+side = "left"
+span_nm = [3.0, 7.0]
+[[leads]]
+name = "right"
+side = "right"
+span_nm = [3.0, 7.0]
+[energy]
+start_meV = 0.35
+stop_meV = 0.95
+points = 61
+[[sweep.axis]]
+parameter = "gates.side.voltage_V"
+start = -0.0002
+stop = 0.0002
+points = 5
+[output]
+path = "{path}"
+"""
+
+
+def test_command_line_search_of_a_stored_sweep(tmp_path, capsys):
+    """A side gate breaks the mirror symmetry linearly in its voltage, so the odd state's width grows as V^2 and
+    vanishes at V = 0: the search over the stored sweep must find the zero there, quadratic on both sides, store
+    it in the file and draw it."""
+    import h5py
+
+    from rgftrans.cli import main
+
+    cfg = tmp_path / "side_gate.toml"
+    cfg.write_text(SIDE_GATE.format(path=tmp_path / "side_gate.h5"))
+    assert main(["run", str(cfg), "--quiet", "--workers", "1"]) == 0
+    e_odd = odd_state_energy(symmetric_dot(19))
+    assert main(["darkstates", str(tmp_path / "side_gate.h5"), "--energy", str(e_odd),
+                 "--out-prefix", str(tmp_path / "ds")]) == 0
+    out = capsys.readouterr().out
+    assert "BIC" in out and "Gamma ~ |p - p*|^2.0" in out
+    with h5py.File(tmp_path / "side_gate.h5", "r") as f:
+        p_star = float(f["darkstates/bic_0/parameter"][()])
+        assert abs(p_star) < 1e-6 * 0.0004  # V = 0 to the search's relative precision of the interval
+        assert f["darkstates/bic_0/orders_of_magnitude"][()] >= 6
+        assert f["darkstates/track/width"].attrs["units"] == "meV"
+    for name in ("width", "track", "dark_state"):
+        assert (tmp_path / f"ds_{name}.png").stat().st_size > 0
