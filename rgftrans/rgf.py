@@ -172,6 +172,18 @@ def lead_self_energies(model: TightBindingModel, energy: float, *, warn: bool = 
     return sigmas, modes
 
 
+def _warn_thresholds(energies: np.ndarray, flagged: np.ndarray) -> None:
+    """One ThresholdWarning for all energies of a call that sat on a lead channel threshold."""
+    if np.any(flagged):
+        warnings.warn(
+            f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
+            f"{energies[flagged][0]:.10g} meV); they were computed slightly above the real axis -- shift the "
+            "energy grid to avoid band edges",
+            ThresholdWarning,
+            stacklevel=3,
+        )
+
+
 def device_energy(energy: float, modes, eta: float = 0.0) -> complex:
     """Complex energy for the device: ``E + i eta``, or the shifted energy of a lead on a threshold."""
     shifted = [m.energy for m in modes if m.at_threshold]
@@ -217,14 +229,7 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
     for start in range(0, n_e, ENERGY_CHUNK):
         chunk = slice(start, min(start + ENERGY_CHUNK, n_e))
         trans[chunk], n_open[chunk], flagged[chunk] = _two_terminal_chunk(model, blocks, energies[chunk], eta)
-    if np.any(flagged):
-        warnings.warn(
-            f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
-            f"{energies[flagged][0]:.10g} meV); they were computed slightly above the real axis -- shift the "
-            "energy grid to avoid band edges",
-            ThresholdWarning,
-            stacklevel=2,
-        )
+    _warn_thresholds(energies, flagged)
     return TransmissionResult(
         energies=energies,
         transmission=trans,
@@ -501,14 +506,7 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
                 if p == q:
                     t += n_open[k, p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real
                 trans[k, p, q] = t
-    if np.any(flagged):
-        warnings.warn(
-            f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
-            f"{energies[flagged][0]:.10g} meV); they were computed slightly above the real axis -- shift the "
-            "energy grid to avoid band edges",
-            ThresholdWarning,
-            stacklevel=2,
-        )
+    _warn_thresholds(energies, flagged)
     return TransmissionMatrixResult(energies=energies, transmission=trans, n_open=n_open,
                                     at_threshold=flagged, lead_names=tuple(l.name for l in model.leads))
 
