@@ -379,7 +379,6 @@ def diagonal_two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_di
             bad = bad or _ill(a, g)
         # backward sweep: G_ii = (A_i - sl_i - sr_i)^-1, then the right self-energy for layer i-1
         pos = out.shape[1]
-        m_next = 0
         for i in range(n_layers - 1, -1, -1):
             mi = sizes[i]
             h = h_flat[h_off[i]:h_off[i] + mi * mi].reshape(mi, mi)

@@ -510,11 +510,14 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
 
 def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start: tuple[float, float],
                   step: tuple[float, float], energy_guess: float, *, rtol: float = 1e-6,
-                  max_solves: int = 400) -> BicLocation:
+                  max_solves: int = 400, all_leads_open: bool = False) -> BicLocation:
     """BIC search over two parameters (where one is not enough: two conditions to meet).
 
     Nelder-Mead on ``log Gamma(p1, p2)`` from ``start`` with initial steps
     ``step``; each evaluation follows the resonance from the previous one.
+    Poles outside the continuum are refused; with ``all_leads_open`` so are
+    poles where some lead has no open channel (a dark state of a single
+    continuum, through which nothing is transmitted).
     """
     state = {"energy": energy_guess, "vec": None, "solves": 0, "best": None}
 
@@ -523,8 +526,8 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start: tup
             return 1e3
         r = _follow(lambda _: build(*x), 0.0, state["energy"], state["vec"])
         state["solves"] += 1
-        if not r.in_continuum:  # a bound state below every threshold is not what we look for
-            return 1e3
+        if not r.in_continuum or (all_leads_open and min(r.n_open) == 0):
+            return 1e3  # a bound state below the thresholds (or below one lead's) is not what we look for
         if state["best"] is None or r.width_meV < state["best"][1].width_meV:
             state["best"] = (np.array(x, float), r)
             state["energy"], state["vec"] = r.energy_meV, r.state
