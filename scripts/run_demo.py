@@ -107,11 +107,11 @@ def asymmetric_dot(out: Path) -> None:
     local = local_quantities(model, e_res)
     states = scattering_states(model, e_res, "source")
     fig, ax = plot_map(model, local.lead_density[0], label="density from source (1/meV per site)",
-                       title=f"Resonance at E = {e_res:.3f} meV: density injected from the source")
+                       title=f"Resonance at {e_res:.3f} meV: density from the source")
     fig.savefig(f"{stem}_resonance_density.png", dpi=150)
     fig, ax = plot_currents(model, bond_currents(model, states.wavefunctions), background=local.ldos,
                             background_label="LDOS (1/meV per site)")
-    ax.set_title(f"Resonance at E = {e_res:.3f} meV: current from the source over the LDOS")
+    ax.set_title(f"Resonance at {e_res:.3f} meV: source current over the LDOS", fontsize="medium")
     fig.savefig(f"{stem}_resonance_current.png", dpi=150)
     print(f"[asymmetric dot] sharpest resonance at E = {e_res:.4f} meV; T = "
           f"{np.interp(e_res, result.energies, result.transmission):.4f}; maps written")
