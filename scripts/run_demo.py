@@ -166,7 +166,8 @@ def gated_dot(out: Path) -> None:
     g_t = {temp: np.array([thermal_conductance(data.energies_meV, tr, e_fermi, temp).conductance_g0 for tr in trans])
            for temp in temps}
     print(f"[gated dot] invented example: E_F = {e_fermi:.3f} meV, {report.n_points} plunger voltages x "
-          f"{len(data.energies_meV)} energies on 2 processes in {report.seconds:.1f} s -> {report.path}")
+          f"{len(data.energies_meV)} energies ({report.n_computed} points computed on 2 processes, "
+          f"{report.n_resumed} found in the file) in {report.seconds:.1f} s -> {report.path}")
     for temp in temps:
         print(f"[gated dot]   T = {temp:g} K: G from {g_t[temp].min():.3f} to {g_t[temp].max():.3f} 2e²/h")
     layout = cfg.gate_layout()
