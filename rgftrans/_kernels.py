@@ -153,17 +153,37 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
 
 
 @njit(cache=True)
-def _schur(g, v, diag, forward):
-    """``V^dag g V`` (forward: V = <i-1|H|i>) or ``V g V^dag`` (backward: V = <i|H|i+1>)."""
-    if diag:
-        n = g.shape[0]
-        out = np.empty_like(g)
-        for r in range(n):
-            for c in range(n):
+def _schur_into(out, g, v, diag, forward):
+    """Write ``V^dag g V`` (forward: V = <i-1|H|i>) or ``V g V^dag`` (backward: V = <i|H|i+1>) into ``out``.
+
+    Explicit loops, no allocation: a diagonal V is an elementwise scaling, a
+    general V a sparse-aware triple loop (for narrow layers).
+    """
+    n = out.shape[0]
+    k = g.shape[0]
+    for r in range(n):
+        for c in range(n):
+            if diag:
                 if forward:
                     out[r, c] = np.conj(v[r, r]) * g[r, c] * v[c, c]
                 else:
                     out[r, c] = v[r, r] * g[r, c] * np.conj(v[c, c])
+                continue
+            acc = 0j
+            for p in range(k):
+                vp = np.conj(v[p, r]) if forward else v[r, p]
+                if vp != 0:
+                    for q in range(k):
+                        acc += vp * g[p, q] * (v[q, c] if forward else np.conj(v[c, q]))
+            out[r, c] = acc
+
+
+@njit(cache=True)
+def _schur(g, v, diag, forward):
+    """``V^dag g V`` (forward) or ``V g V^dag`` (backward) as a new array; BLAS for a general V."""
+    if diag:
+        out = np.empty_like(g)
+        _schur_into(out, g, v, True, forward)
         return out
     if forward:
         return np.ascontiguousarray(v.conj().T) @ (g @ v)
@@ -354,18 +374,7 @@ def diagonal_two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_di
                 mp = sizes[i - 1]
                 g = g_buf[:mp * mp].reshape(mp, mp)
                 v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
-                for r in range(mi):
-                    for c in range(mi):
-                        if v_diag[i - 1]:
-                            sl[r, c] = np.conj(v[r, r]) * g[r, c] * v[c, c]
-                        else:
-                            acc = 0j
-                            for p in range(mp):
-                                vpr = np.conj(v[p, r])
-                                if vpr != 0:
-                                    for q in range(mp):
-                                        acc += vpr * g[p, q] * v[q, c]
-                            sl[r, c] = acc
+                _schur_into(sl, g, v, v_diag[i - 1], True)
             for r in range(mi):
                 for c in range(mi):
                     a[r, c] = -h[r, c] - sl[r, c]
@@ -414,18 +423,7 @@ def diagonal_two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_di
                 mp = sizes[i - 1]
                 v = v_flat[v_off[i - 1]:v_off[i - 1] + mp * mi].reshape(mp, mi)
                 srp = sr_buf[:mp * mp].reshape(mp, mp)
-                for r in range(mp):
-                    for c in range(mp):
-                        if v_diag[i - 1]:
-                            srp[r, c] = v[r, r] * g[r, c] * np.conj(v[c, c])
-                        else:
-                            acc = 0j
-                            for p in range(mi):
-                                vrp = v[r, p]
-                                if vrp != 0:
-                                    for q in range(mi):
-                                        acc += vrp * g[p, q] * np.conj(v[c, q])
-                            srp[r, c] = acc
+                _schur_into(srp, g, v, v_diag[i - 1], False)
         if bad:
             for k in range(out.shape[1]):
                 out[e, k] = np.nan

@@ -38,7 +38,7 @@ import scipy.sparse.linalg as spla
 
 from .device import TightBindingModel
 from .errors import ResolutionWarning, RgftransError
-from .rgf import lead_self_energies
+from .rgf import gamma_columns, lead_self_energies
 
 __all__ = [
     "Resonance", "effective_hamiltonian", "resonances", "CouplingDiagnostics", "coupling_diagnostics",
@@ -228,10 +228,7 @@ def coupling_diagnostics(model: TightBindingModel, energy_meV: float, *, toleran
         herm = 0.5 * (sigma + sigma.conj().T)
         sub = psi[lead.interface]
         h0 = h0 + sub.conj().T @ herm @ sub
-        gamma = 1j * (sigma - sigma.conj().T)
-        w, u = np.linalg.eigh(gamma)
-        keep = w > 1e-12 * max(w.max(initial=0.0), 1e-300)
-        wmat = u[:, keep] * np.sqrt(w[keep])
+        wmat = gamma_columns(1j * (sigma - sigma.conj().T))
         couplings.append(wmat.conj().T @ sub)
     stacked = np.vstack(couplings) if couplings else np.zeros((0, 2))
     strength = np.sqrt(np.sum(np.abs(stacked) ** 2, axis=0)) if stacked.size else np.zeros(2)

@@ -75,7 +75,7 @@ import shapely
 from shapely.geometry import MultiPolygon, Polygon
 
 from rgftrans.errors import GeometryError, PotentialError
-from rgftrans.geometry import Region, union
+from rgftrans.geometry import Region, _format_points, union
 
 __all__ = [
     "Gate",
@@ -105,13 +105,6 @@ _MAX_QUOTED = 4
 
 
 # --- small validators ----------------------------------------------------------------------------
-
-
-def _quote_points(points: np.ndarray) -> str:
-    rows = [f"({x:g}, {y:g})" for x, y in points[:_MAX_QUOTED]]
-    if len(points) > _MAX_QUOTED:
-        rows.append(f"... {len(points) - _MAX_QUOTED} more")
-    return "[" + ", ".join(rows) + "]"
 
 
 def _ring_vertices(geometry: Polygon | MultiPolygon) -> np.ndarray:
@@ -487,7 +480,7 @@ class Gate:
             if not shape.is_valid:
                 raise GeometryError(
                     f"gate '{self.name}': outline is invalid ({shapely.is_valid_reason(shape)}) for vertices "
-                    f"{_quote_points(_ring_vertices(shape))}; reorder the vertices so that no edges cross"
+                    f"{_format_points(_ring_vertices(shape))}; reorder the vertices so that no edges cross"
                 )
             shape = Region(shape)
         if not isinstance(shape, Region):
@@ -833,7 +826,7 @@ def gates_from_gds(path: str | os.PathLike, *, layers: Mapping[int, str] | list[
             if not outline.is_valid:
                 raise GeometryError(
                     f"polygon {k} on GDS layer {layer} (gate {name!r}) of {file!r} is invalid "
-                    f"({shapely.is_valid_reason(outline)}), vertices in nm {_quote_points(points)}; "
+                    f"({shapely.is_valid_reason(outline)}), vertices in nm {_format_points(points)}; "
                     "redraw it in the layout so that its edges do not cross"
                 )
             parts.append(Region(outline))

@@ -26,7 +26,7 @@ import scipy.sparse as sp
 from .device import TightBindingModel
 from .errors import LeadError, ThresholdWarning
 from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
-from .rgf import LayerBlocks, device_energy, green_blocks, layer_blocks, lead_self_energies
+from .rgf import LayerBlocks, device_energy, end_self_energies, green_blocks, layer_blocks, lead_self_energies
 from .slicing import Slicing
 
 #: Imaginary part (in units of the hopping) used where the recursion meets a singular block.
@@ -132,17 +132,8 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
         return out[0] if scalar else out
     from ._kernels import SMALL_BLOCK, diagonal_two_terminal, diagonal_two_terminal_small
 
-    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
-    slots0, slots1 = blocks.lead_slots
     n_e = len(energies)
-    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
-    sigk = np.zeros((n_e, mk, mk), dtype=complex)
-    z_all = np.empty(n_e, dtype=complex)
-    for k, energy in enumerate(energies):
-        sigmas, modes = lead_self_energies(model, energy)
-        z_all[k] = device_energy(energy, modes, eta)
-        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
-        sigk[k][np.ix_(slots1, slots1)] = sigmas[1]
+    z_all, sig0, sigk, _ = end_self_energies(model, blocks, energies, eta)
     diag = np.empty((n_e, model.n_orbitals), dtype=complex)
     flat = blocks.flat()
     kernel = diagonal_two_terminal_small if flat[2].max() <= SMALL_BLOCK else diagonal_two_terminal

@@ -250,11 +250,34 @@ ENERGY_CHUNK = 64
 _GAMMA_RANK_TOL = 1e-12
 
 
-def _gamma_columns(gamma: np.ndarray) -> np.ndarray:
+def gamma_columns(gamma: np.ndarray) -> np.ndarray:
     """``W`` with ``Gamma = W W^dag``, one column per nonzero eigenvalue (open channel)."""
     w, u = np.linalg.eigh(gamma)
     keep = w > _GAMMA_RANK_TOL * max(w.max(initial=0.0), 1e-300)
     return u[:, keep] * np.sqrt(w[keep])
+
+
+def end_self_energies(model, blocks: LayerBlocks, energies, eta: float = 0.0, *, warn: bool = True):
+    """Device energies and the two leads' self-energies embedded in the first and last layer.
+
+    Returns ``z_all`` (n_E,), ``sig0`` (n_E, m_0, m_0), ``sigk`` (n_E, m_K, m_K)
+    and, per energy, the ``(sigmas, modes)`` of :func:`lead_self_energies` --
+    the inputs of the compiled two-lead kernels.
+    """
+    n_e = len(energies)
+    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
+    slots0, slots1 = blocks.lead_slots
+    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
+    sigk = np.zeros((n_e, mk, mk), dtype=complex)
+    z_all = np.empty(n_e, dtype=complex)
+    per_energy = []
+    for k, energy in enumerate(energies):
+        sigmas, modes = lead_self_energies(model, energy, warn=warn)
+        z_all[k] = device_energy(energy, modes, eta)
+        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
+        sigk[k][np.ix_(slots1, slots1)] = sigmas[1]
+        per_energy.append((sigmas, modes))
+    return z_all, sig0, sigk, per_energy
 
 
 def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
@@ -264,21 +287,16 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
     n_e = len(energies)
     m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
     slots0, slots1 = blocks.lead_slots
-    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
-    sigk = np.zeros((n_e, mk, mk), dtype=complex)
+    z_all, sig0, sigk, per_energy = end_self_energies(model, blocks, energies, eta, warn=False)
     gk = np.zeros((n_e, mk, mk), dtype=complex)
-    w_cols, z_all = [], np.empty(n_e, dtype=complex)
+    w_cols = []
     n_open = np.zeros((n_e, 2), dtype=np.int64)
     flagged = np.zeros(n_e, dtype=bool)
-    for k, energy in enumerate(energies):
-        sigmas, modes = lead_self_energies(model, energy, warn=False)
+    for k, (sigmas, modes) in enumerate(per_energy):
         flagged[k] = any(m.at_threshold for m in modes)
         n_open[k] = [m.n_open for m in modes]
-        z_all[k] = device_energy(energy, modes, eta)
-        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
-        sigk[k][np.ix_(slots1, slots1)] += sigmas[1]
         gk[k][np.ix_(slots1, slots1)] = _gamma(sigmas[1])
-        w_small = _gamma_columns(_gamma(sigmas[0]))
+        w_small = gamma_columns(_gamma(sigmas[0]))
         w = np.zeros((m0, w_small.shape[1]), dtype=complex)
         w[slots0] = w_small
         w_cols.append(w)

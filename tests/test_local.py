@@ -186,3 +186,19 @@ def test_unknown_lead_name_for_scattering_states():
     model, energy = random_device(0, 2)
     with pytest.raises(LeadError, match="no lead named 'gate'"):
         scattering_states(model, energy, "gate")
+
+
+def test_ldos_on_narrow_layers_with_non_diagonal_couplings():
+    """A narrow triangular-lattice strip: layers of a few sites joined by non-diagonal couplings, the loop
+    kernel's general Schur path.  Reference: the diagonal of a dense scipy inverse, to 1e-10 relative."""
+    from rgftrans.lattices import triangular
+    from rgftrans.rgf import layer_blocks
+
+    model = Device(rectangle(0, 0, 14, 4), [Lead("l", "left", (0, 4)), Lead("r", "right", (0, 4))],
+                   lattice=triangular(1.0), hopping=1.0, potential=lambda x, y: 0.5 * np.sin(x)).discretise()
+    flat = layer_blocks(model).flat()
+    assert not flat[5].all() and flat[2].max() <= 24  # the path under test is really taken
+    for energy in (2.3, 4.1):
+        g, _ = dense_green(model, energy)
+        ref = -np.diag(g).imag / np.pi
+        assert np.abs(ldos(model, energy) - ref).max() < 1e-10 * np.abs(ref).max()
