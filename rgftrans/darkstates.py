@@ -18,7 +18,9 @@ that is also an eigenvector of ``H0`` (the *degeneracy condition*).  With a
 single continuum the first holds trivially and the second is the
 Friedrich-Wintgen condition (H. Friedrich & D. Wintgen, Phys. Rev. A 32,
 3231 (1985), from memory): ``kappa (v_1^2 - v_2^2) = v_1 v_2 (e_1 - e_2)``.
-A single state with no coupling to any lead is dark by symmetry.
+A single state with no coupling to any lead is dark by symmetry.  The two-level
+picture explains; it is not exact.  The exact two-condition search for
+asymmetric layouts (one channel in each of two leads) is in :mod:`rgftrans.bic2d`.
 
 Fano profiles: ``T(E) = a (q + eps)^2 / (1 + eps^2) + b`` with
 ``eps = 2 (E - E_0) / Gamma`` (U. Fano, Phys. Rev. 124, 1866 (1961), from memory).
@@ -43,11 +45,11 @@ from .rgf import gamma_columns, lead_self_energies
 __all__ = [
     "Resonance", "effective_hamiltonian", "resonances", "CouplingDiagnostics", "coupling_diagnostics",
     "FanoFit", "fano_profile", "fit_fano", "find_resonances", "Track", "track_resonance", "BicLocation",
-    "locate_bic", "locate_bic_2d",
+    "locate_bic",
 ]
 
 #: Below this many orbitals the poles come from a dense eigen-decomposition.
-DENSE_BELOW = 800
+DENSE_BELOW = 300
 #: Self-consistency: stop when the pole moves less than this fraction of the energy scale.
 POLE_TOL = 1e-12
 #: A coupling below this fraction of the largest one counts as zero (a symmetry-protected dark state).
@@ -503,43 +505,6 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
                        typical_width_meV=typical,
                        orders_of_magnitude=float(np.log10(typical / max(abs(best.width_meV), floor))),
                        exponent=float(np.mean(exps)), solves=state["solves"], kind="accidental", resonance=best)
-
-
-def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start: tuple[float, float],
-                  step: tuple[float, float], energy_guess: float, *, rtol: float = 1e-6,
-                  max_solves: int = 400, all_leads_open: bool = False) -> BicLocation:
-    """BIC search over two parameters (where one is not enough: two conditions to meet).
-
-    Nelder-Mead on ``log Gamma(p1, p2)`` from ``start`` with initial steps
-    ``step``; each evaluation follows the resonance from the previous one.
-    Poles outside the continuum are refused; with ``all_leads_open`` so are
-    poles where some lead has no open channel (a dark state of a single
-    continuum, through which nothing is transmitted).
-    """
-    state = {"energy": energy_guess, "vec": None, "solves": 0, "best": None}
-
-    def logw(x):
-        if state["solves"] >= max_solves:
-            return 1e3
-        r = _follow(lambda _: build(*x), 0.0, state["energy"], state["vec"])
-        state["solves"] += 1
-        if not r.in_continuum or (all_leads_open and min(r.n_open) == 0):
-            return 1e3  # a bound state below the thresholds (or below one lead's) is not what we look for
-        if state["best"] is None or r.width_meV < state["best"][1].width_meV:
-            state["best"] = (np.array(x, float), r)
-            state["energy"], state["vec"] = r.energy_meV, r.state
-        return float(np.log(max(r.width_meV, 1e-300)))
-
-    x0 = np.array(start, float)
-    typical = float(np.exp(logw(x0)))
-    simplex = np.array([x0, x0 + [step[0], 0.0], x0 + [0.0, step[1]]])
-    sopt.minimize(logw, x0, method="Nelder-Mead",
-                  options={"initial_simplex": simplex, "xatol": rtol * np.abs(x0).max(), "fatol": 1e-3,
-                           "maxfev": max_solves})
-    x_best, r = state["best"]
-    return BicLocation(parameter=x_best, energy_meV=r.energy_meV, width_meV=r.width_meV, typical_width_meV=typical,
-                       orders_of_magnitude=float(np.log10(typical / max(r.width_meV, 1e-300))), exponent=np.nan,
-                       solves=state["solves"], kind="accidental", resonance=r)
 
 
 # --------------------------------------------------------------------------
