@@ -120,7 +120,10 @@ def _cmd_darkstates(args) -> int:
 
     from .darkstates import search_sweep, write_search
     from .plots import plot_map, plot_track_on_map, plot_width_track
+    from .store import read_result
 
+    if len(read_result(args.result).axes) == 2:
+        return _darkstates_plane(args)
     search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis)
     t = search.track
     print(f"{args.result}: resonance followed along {search.axis_name} over {len(t.parameters)} values; width from "
@@ -152,6 +155,48 @@ def _cmd_darkstates(args) -> int:
         q_near = search.nearby_q[0][0]
         fig, ax = plot_map(model, density, label="|ψ|² (per site)",
                            title=f"dark state at E = {loc.energy_meV:.4f} meV; Q = {q_near:.3g} just beside it")
+        fig.savefig(f"{prefix}_dark_state.png", dpi=150)
+    print(f"  written: group 'darkstates' in {args.save or args.result}; figures {prefix}_*.png")
+    return EXIT_OK
+
+
+def _darkstates_plane(args) -> int:
+    """The dark-state search over a stored sweep of two parameters (an accidental BIC needs two)."""
+    import numpy as np
+
+    from .bic2d import _stored_builder, search_sweep_plane, write_grid_search
+    from .plots import plot_bic_plane, plot_fano_collapse, plot_map
+
+    search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"))
+    n1, n2 = search.names
+    print(f"{args.result}: {len(search.seeds_meV)} dot state(s) followed over {len(search.p1)} x {len(search.p2)} "
+          f"values of {n1}, {n2}; {search.candidates} candidate cell(s), {len(search.bics)} BIC(s) located")
+    if not search.bics:
+        print("  no BIC in this plane: no cell where both couplings change sign together; widen the parameter "
+              "ranges or give --energy near another state")
+    for k, bic in enumerate(search.bics):
+        print(f"  BIC {k} ({bic.kind}) at {n1} = {bic.parameter[0]:.9g}, {n2} = {bic.parameter[1]:.9g}: "
+              f"E = {bic.energy_meV:.6f} meV, open channels {bic.n_open}, width {abs(bic.width_meV):.1e} meV "
+              f"({bic.orders_of_magnitude:.1f} decades below {bic.typical_width_meV:.2e} meV one grid step away), "
+              f"Gamma ~ |p - p*|^{bic.exponent:.2f}")
+        print(f"    Q one grid step away (+{n1}, -{n1}, +{n2}, -{n2}): "
+              + ", ".join(f"{q:.3g}" for q in bic.nearby_q))
+        print(f"    why: {bic.explanation}")
+    write_grid_search(search, args.save or args.result)
+    prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    fig, _ = plot_bic_plane(search)
+    fig.savefig(f"{prefix}_plane.png", dpi=150)
+    if search.bics:
+        _, build, _, _ = _stored_builder(args.result)
+        bic = search.bics[0]
+        step = float(np.median(np.diff(search.p1)))
+        fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)
+        fig.savefig(f"{prefix}_fano_collapse.png", dpi=150)
+        model = build(*bic.parameter)
+        fig, _ = plot_map(model, model.per_site(bic.state**2), label="|ψ|² (per site)",
+                          title=f"dark state at E = {bic.energy_meV:.4f} meV; Q = {bic.nearby_q.min():.3g} one "
+                                "step away")
         fig.savefig(f"{prefix}_dark_state.png", dpi=150)
     print(f"  written: group 'darkstates' in {args.save or args.result}; figures {prefix}_*.png")
     return EXIT_OK
@@ -199,12 +244,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_plot)
 
     p = sub.add_parser("darkstates", help="search a stored sweep for bound states in the continuum",
-                       description="Follow the narrowest resonance of a stored sweep along one axis, locate where "
-                                   "its width vanishes, explain why (coupling and degeneracy conditions), store the "
-                                   "search in the file and draw it.")
+                       description="Along one sweep axis: follow the narrowest resonance, locate where its width "
+                                   "vanishes and explain why.  Over two sweep axes: follow every dot state of the "
+                                   "energy window over the plane and locate the points where its couplings to both "
+                                   "leads vanish together (accidental BICs).  The search is stored in the file and "
+                                   "drawn.")
     p.add_argument("result", help="HDF5 result file of a sweep")
     p.add_argument("--energy", type=float, metavar="MEV", help="start near this resonance energy")
-    p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0)")
+    p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0; one-axis sweeps)")
     p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
     p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
     p.set_defaults(func=_cmd_darkstates)

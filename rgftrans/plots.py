@@ -268,3 +268,85 @@ def plot_track_on_map(path, search, *, ax=None):
     ax.set_ylabel("energy E (meV)")
     ax.legend(fontsize="small", loc="upper right")
     return fig, ax
+
+
+def plot_bic_plane(search, *, seed: int | None = None, ax=None):
+    """Coupling of a followed state over the parameter plane: where each lead's coupling vanishes, and the BICs.
+
+    Colour: log10 of the residual length |r| (unit-normalised couplings, 0 at a
+    BIC); solid and dashed lines: the zero lines of the first and second
+    channel's coupling; stars: located BICs of that state.
+    """
+    fig, ax = _axes(ax)
+    if seed is None:
+        seed = search.seed_of_bic[0] if search.bics else 0
+    res = search.residuals[seed]
+    norm = np.linalg.norm(res, axis=-1)
+    mesh = ax.pcolormesh(search.p1, search.p2, np.ma.masked_invalid(np.log10(np.maximum(norm, 1e-16))).T,
+                         shading="nearest", cmap="cividis")
+    fig.colorbar(mesh, ax=ax, label="log10 |coupling residual|")
+    handles = []
+    for k, ls in ((0, "-"), (1, "--")):
+        if np.isfinite(res[..., k]).sum() >= 4:
+            ax.contour(search.p1, search.p2, np.ma.masked_invalid(res[..., k]).T, levels=[0.0], colors="w",
+                            linestyles=ls, linewidths=1.2)
+            lead, c = search.channels[k] if search.channels else ("lead", k)
+            handles.append(plt_line(ls, f"no coupling to {lead} (channel {c})"))
+    for bic, s in zip(search.bics, search.seed_of_bic):
+        if s == seed:
+            ax.plot([bic.parameter[0]], [bic.parameter[1]], "*", ms=14, mfc="tab:red", mec="w",
+                    label=f"BIC, E = {bic.energy_meV:.4f} meV")
+    ax.set_xlabel(search.names[0])
+    ax.set_ylabel(search.names[1])
+    ax.tick_params(axis="x", labelrotation=30)
+    ax.legend(handles=handles + ax.get_legend_handles_labels()[0], fontsize="small", loc="upper right")
+    ax.set_title(f"state followed from {search.seeds_meV[seed]:.4f} meV")
+    return fig, ax
+
+
+def plt_line(ls: str, label: str):
+    """A legend entry for a white contour line (drawn dark so it shows on the legend's white background)."""
+    from matplotlib.lines import Line2D
+
+    return Line2D([], [], color="k", ls=ls, label=label)
+
+
+def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, fractions=(1.0, 0.5, 0.25)):
+    """T(E) beside a BIC (p1 = p1* + f * step) and at it, and the pole width against the distance.
+
+    Left: the Fano line narrows as ``(p - p*)^2`` and is gone at ``p*``.
+    Right: pole width against ``|p - p*|`` on log-log axes with a slope-2 guide.
+    """
+    import matplotlib.pyplot as plt
+
+    from .darkstates import _follow
+    from .rgf import transmission
+
+    if axes is None:
+        fig, axes = plt.subplots(1, 2, figsize=(10, 4), layout="constrained")
+    else:
+        fig = axes[0].figure
+    p1, p2 = bic.parameter
+    poles = [_follow(lambda _, f=f: build(p1 + f * step, p2), 0.0, bic.energy_meV, bic.state.astype(complex))
+             for f in fractions]
+    half = 6 * max(r.width_meV for r in poles)
+    offsets = np.linspace(-half, half, 800)  # even count: the centre (a real pole at p*) is not sampled
+    for f, r in zip(list(fractions) + [0.0], poles + [None]):
+        centre = r.energy_meV if r is not None else bic.energy_meV  # each line in its own window: it moves with p
+        t = transmission(build(p1 + f * step, p2), centre + offsets).transmission
+        label = (f"p* + {f * step:.3g}: Γ = {r.width_meV:.2e} meV" if r is not None else "p* (BIC): no line")
+        axes[0].plot(offsets * 1e3, t, lw=1.2, label=label)
+    axes[0].set_xlabel("E − Re z (µeV), z the pole at each parameter")
+    axes[0].set_title(f"T(E) as {name} approaches the BIC", fontsize="medium")
+    axes[0].set_ylabel("transmission T")
+    axes[0].set_ylim(-0.02, 1.02)
+    axes[0].legend(fontsize="small", frameon=False)
+    d = np.abs(step) * np.geomspace(1e-3, 1.0, 13)
+    widths = np.array([_follow(lambda _, x=x: build(p1 + x, p2), 0.0, bic.energy_meV,
+                               bic.state.astype(complex)).width_meV for x in d])
+    axes[1].loglog(d, np.maximum(widths, 1e-300), "o", color="k", ms=4, label="pole width")
+    axes[1].loglog(d, widths[-1] * (d / d[-1]) ** 2, color="tab:red", lw=0.8, ls="--", label="∝ |p − p*|²")
+    axes[1].set_xlabel(f"|{name} − p*|")
+    axes[1].set_ylabel("resonance width Γ (meV)")
+    axes[1].legend(fontsize="small", frameon=False)
+    return fig, axes
