@@ -8,6 +8,10 @@
    four-terminal resistances from the Büttiker conductance matrix.
 4. configs/gated_dot.toml -- a dot defined by four surface gates over a GaAs
    2DEG: the gate potential map and G(V_plunger) at 0.1 K and 1 K.
+5. configs/asymmetric_dot_gates.toml -- a small asymmetric dot tuned by two
+   gates: a stored sweep over the plane of the two gate voltages, then the
+   command `rgftrans darkstates` searches it for bound states in the
+   continuum (the dark-state search of the package).
 
 All scenarios are invented for the demo; none is a measured device.
 Figures and tables go to out/.
@@ -189,6 +193,24 @@ def gated_dot(out: Path) -> None:
                delimiter=",", header=header, fmt="%.8g")
 
 
+def dark_states(out: Path) -> None:
+    """The two-gate asymmetric dot: run the plane sweep, then search it for BICs with the command line."""
+    from rgftrans.cli import main as rgftrans_main
+
+    result = out / "asymmetric_dot_gates.h5"
+    print("[dark states] invented scenario: asymmetric GaAs dot, two gates; sweep of both gate voltages")
+    start = time.perf_counter()
+    status = rgftrans_main(["run", str(ROOT / "configs" / "asymmetric_dot_gates.toml"), "--quiet",
+                            "--output", str(result)])
+    if status != 0:
+        raise RgftransError(f"the plane sweep failed (exit status {status})")
+    print(f"[dark states] sweep stored in {result} ({time.perf_counter() - start:.1f} s); "
+          f"now: rgftrans darkstates {result.relative_to(ROOT) if result.is_relative_to(ROOT) else result}")
+    status = rgftrans_main(["darkstates", str(result), "--out-prefix", str(out / "dark_states")])
+    if status != 0:
+        raise RgftransError(f"the dark-state search failed (exit status {status})")
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", type=Path, default=ROOT / "out")
@@ -199,6 +221,7 @@ def main(argv=None) -> int:
         multi_terminal(args.out, "three_terminal_dot", "Invented three-terminal dot with an antidot")
         multi_terminal(args.out, "hall_cross", "Invented four-lead GaAs Hall cross")
         gated_dot(args.out)
+        dark_states(args.out)
     except (RgftransError, KeyError, tomllib.TOMLDecodeError) as err:
         print(f"demo: {err}", file=sys.stderr)
         return 2
