@@ -6,7 +6,8 @@ Subcommands::
     rgftrans run CONFIG [options]           run or resume the config's sweep into its HDF5 file
     rgftrans info RESULT                    summary of a result file
     rgftrans plot RESULT [--out PNG]        conductance lines or maps from a result file
-    rgftrans darkstates RESULT              locate bound states in the continuum along a stored sweep
+    rgftrans darkstates RESULT              locate bound states in the continuum in a stored sweep
+    rgftrans compare RESULT TRACE [options] fit a stored sweep to a measured conductance trace
 
 Exit status: 0 success; 1 the computation failed or was interrupted (finished
 points are kept; rerun to resume); 2 bad input (config, file, arguments),
@@ -202,6 +203,58 @@ def _darkstates_plane(args) -> int:
     return EXIT_OK
 
 
+def _column(text):
+    """A column given on the command line: a 0-based index if it is a whole number, else a header name."""
+    return int(text) if text is not None and text.isdigit() else text
+
+
+def _cmd_compare(args) -> int:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from .compare import CompareError, fit_trace, plot_fit, read_trace
+
+    trace = read_trace(args.trace, gate_column=_column(args.gate_column), value_column=_column(args.value_column),
+                       kind=args.kind, units=args.units, bias_V=args.bias, description=args.description)
+    select = {}
+    for item in args.select or ():
+        name, sep, value = item.partition("=")
+        try:
+            select[name.strip()] = float(value)
+        except ValueError:
+            sep = ""
+        if not sep:
+            raise CompareError(f"--select {item!r}: write NAME=VALUE with a number, e.g. "
+                               "--select gates.plunger.voltage_V=-0.05")
+    leads = None
+    if args.leads:
+        leads = tuple(x.strip() for x in args.leads.split(","))
+        if len(leads) != 2:
+            raise CompareError(f"--leads {args.leads!r}: give two lead names, FROM,TO")
+    fit = [x.strip() for x in args.fit.split(",") if x.strip()] if args.fit else None
+    initial = {}
+    if args.lever_arm is not None:
+        initial["lever_arm"] = args.lever_arm
+    if args.offset is not None:
+        initial["offset"] = args.offset
+    result = fit_trace(args.result, trace, temperature_K=args.temperature, fit=fit, r_series_ohm=args.r_series,
+                       fit_series=args.fit_series, fit_temperature=args.fit_temperature, noise_S=args.noise,
+                       initial=initial or None, mu_ref_meV=args.mu_ref, leads=leads, gate_axis=args.gate_axis,
+                       select=select or None)
+    text = result.summary()
+    print(text)
+    prefix = Path(args.out_prefix or Path(args.result).with_suffix("")).with_name(
+        Path(args.out_prefix or Path(args.result).with_suffix("")).name + "_" + args.group)
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    Path(f"{prefix}.txt").write_text(text + "\n", encoding="utf-8")
+    target = args.save or args.result
+    result.to_hdf5(target, args.group, overwrite=args.overwrite)
+    fig, _ = plot_fit(result)
+    fig.savefig(f"{prefix}.png", dpi=150)
+    print(f"  written: group '{args.group}' in {target}; {prefix}.txt; {prefix}.png")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="rgftrans", description="Tight-binding quantum transport by recursive Green's functions.",
                      epilog="Exit status: 0 success, 1 computation failed or interrupted (rerun resumes), "
@@ -255,6 +308,43 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
     p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
     p.set_defaults(func=_cmd_darkstates)
+
+    p = sub.add_parser("compare", help="fit a stored sweep to a measured conductance trace",
+                       description="Read a measured trace (CSV with a header, or two plain columns), fit the stored "
+                                   "sweep to it at the measurement temperature (lever arm and offset by default; "
+                                   "series resistance and temperature on request) and write the fitted parameters "
+                                   "as text, into the HDF5 file and as an overlay figure with residuals.")
+    p.add_argument("result", help="HDF5 result file with a transmission quantity")
+    p.add_argument("trace", help="measured trace: CSV or two-column text")
+    p.add_argument("--temperature", type=float, required=True, metavar="K",
+                   help="electron temperature of the measurement (start value with --fit-temperature)")
+    p.add_argument("--gate-column", metavar="NAME|INDEX", help="gate-voltage column (default: the first)")
+    p.add_argument("--value-column", metavar="NAME|INDEX", help="conductance or current column")
+    p.add_argument("--kind", choices=("conductance", "current"), default="conductance")
+    p.add_argument("--units", help="units of the value column (S, mS, uS, nS, 2e2/h; A, mA, uA, nA, pA) when the "
+                                   "header does not say")
+    p.add_argument("--bias", type=float, metavar="V", help="source-drain bias of a current trace")
+    p.add_argument("--description", metavar="TEXT", help="how the trace is labelled (say 'synthetic' for made-up "
+                                                         "data)")
+    p.add_argument("--gate-axis", metavar="NAME", help="compare directly with this stored gate-voltage axis "
+                                                       "(default: map the energy axis with a lever arm)")
+    p.add_argument("--select", action="append", metavar="NAME=VALUE",
+                   help="value of another sweep axis (repeat for each)")
+    p.add_argument("--lever-arm", type=float, metavar="MEV_PER_V", help="lever arm (start value, or fixed)")
+    p.add_argument("--offset", type=float, metavar="V", help="gate-voltage offset V_0 (start value, or fixed)")
+    p.add_argument("--r-series", type=float, default=0.0, metavar="OHM", help="series resistance (default 0)")
+    p.add_argument("--fit", metavar="LIST", help="fitted parameters, comma-separated among lever_arm, offset, "
+                                                 "r_series, temperature")
+    p.add_argument("--fit-series", action="store_true", help="also fit the series resistance")
+    p.add_argument("--fit-temperature", action="store_true", help="also fit the temperature")
+    p.add_argument("--noise", type=float, metavar="S", help="noise sigma of the measurement (default: estimated)")
+    p.add_argument("--mu-ref", type=float, default=0.0, metavar="MEV", help="reference chemical potential")
+    p.add_argument("--leads", metavar="FROM,TO", help="transmission from one lead into another (default: first two)")
+    p.add_argument("--group", default="compare", help="HDF5 group and file-name suffix (default: compare)")
+    p.add_argument("--save", metavar="H5", help="write the fit here instead of into the result file")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing group of that name")
+    p.add_argument("--out-prefix", metavar="PATH", help="prefix of the .txt and .png files (default: the result path)")
+    p.set_defaults(func=_cmd_compare)
     return parser
 
 

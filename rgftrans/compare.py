@@ -601,7 +601,15 @@ class _Sweep:
         self.lead_in, self.lead_out = self._leads(leads, names, where)
         i_in, i_out = names.index(self.lead_in), names.index(self.lead_out)
         axis_names = [a.name for a in data.axes]
-        select = dict(select or {})
+        # A sweep axis may be named by its config path (gates.plunger.voltage_V) or by its stored name
+        # (gates__plunger__voltage_V).
+        from .sweeps import axis_dataset_name
+
+        def stored(name):
+            return name if name in axis_names else axis_dataset_name(name) if isinstance(name, str) else name
+
+        select = {stored(k): v for k, v in (select or {}).items()}
+        gate_axis = stored(gate_axis) if gate_axis is not None else None
         unknown = sorted(set(select) - set(axis_names))
         if unknown:
             raise CompareError(f"{where}: select names axes {unknown} the sweep lacks; its axes are {axis_names}")

@@ -8,6 +8,8 @@
    four-terminal resistances from the Büttiker conductance matrix.
 4. configs/gated_dot.toml -- a dot defined by four surface gates over a GaAs
    2DEG: the gate potential map and G(V_plunger) at 0.1 K and 1 K.
+   Then a synthetic "measured" trace (made from the model, labelled
+   synthetic everywhere) is fitted back with `rgftrans compare`.
 5. configs/asymmetric_dot_gates.toml -- a small asymmetric dot tuned by two
    gates: a stored sweep over the plane of the two gate voltages, then the
    command `rgftrans darkstates` searches it for bound states in the
@@ -193,6 +195,37 @@ def gated_dot(out: Path) -> None:
                delimiter=",", header=header, fmt="%.8g")
 
 
+def synthetic_trace(out: Path) -> None:
+    """A synthetic measured plunger trace made from the gated-dot sweep, then fitted back with `rgftrans compare`.
+
+    Invented truth: 1 K, gate offset +0.8 mV, series resistance 3 kOhm, Gaussian noise 0.3 % of 2e²/h (seeded).
+    """
+    from rgftrans.cli import main as rgftrans_main
+    from rgftrans.compare import model_conductance
+
+    cfg = load_config(ROOT / "configs" / "gated_dot.toml")
+    result = out / "gated_dot.h5"
+    truth = {"temperature_K": 1.0, "offset_V": 0.8e-3, "r_series_ohm": 3000.0}
+    gate = np.linspace(-0.0545, -0.0395, 301)
+    g_model = model_conductance(result, gate, mu_ref_meV=cfg.fermi_energy_meV, gate_axis="gates.plunger.voltage_V",
+                                **truth)
+    noise = 0.003 * CONDUCTANCE_QUANTUM_S
+    g_meas = g_model + np.random.default_rng(20261202).normal(0.0, noise, gate.size)
+    csv_path = out / "synthetic_plunger_trace.csv"
+    np.savetxt(csv_path, np.column_stack([gate, g_meas * 1e6]), delimiter=",", fmt="%.9g",
+               header="# SYNTHETIC trace, not a measurement: made from the invented gated dot at 1 K, offset +0.8 mV, "
+                      "R_s = 3 kOhm, noise 0.3 % of 2e2/h\nVg [V],G [uS]", comments="")
+    print(f"[measured trace] {csv_path.name}: SYNTHETIC (made from the model with invented temperature, offset, R_s "
+          "and noise); fitting it back:")
+    status = rgftrans_main(["compare", str(result), str(csv_path), "--gate-axis", "gates.plunger.voltage_V",
+                            "--mu-ref", f"{cfg.fermi_energy_meV:.9g}", "--temperature", "0.6", "--fit-series",
+                            "--fit-temperature", "--r-series", "1000", "--noise", f"{noise:.6g}",
+                            "--description", "synthetic trace (invented)", "--overwrite",
+                            "--out-prefix", str(out / "synthetic_trace")])
+    if status != 0:
+        raise RgftransError(f"the trace fit failed (exit status {status})")
+
+
 def dark_states(out: Path) -> None:
     """The two-gate asymmetric dot: run the plane sweep, then search it for BICs with the command line."""
     from rgftrans.cli import main as rgftrans_main
@@ -221,6 +254,7 @@ def main(argv=None) -> int:
         multi_terminal(args.out, "three_terminal_dot", "Invented three-terminal dot with an antidot")
         multi_terminal(args.out, "hall_cross", "Invented four-lead GaAs Hall cross")
         gated_dot(args.out)
+        synthetic_trace(args.out)
         dark_states(args.out)
     except (RgftransError, KeyError, tomllib.TOMLDecodeError) as err:
         print(f"demo: {err}", file=sys.stderr)

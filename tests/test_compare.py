@@ -394,3 +394,87 @@ def test_plot_fit_labels(fits, given_ax):
     assert "(V)" in bottom.get_xlabel() and "2e²/h" in bottom.get_ylabel()
     assert top.get_legend() is not None
     plt.close(fig)
+
+
+# --- the command line -------------------------------------------------------------------------------
+
+
+def _write_csv(path, trace):
+    lines = ["# synthetic trace (invented), not a measurement", "Vg [V],G [uS]"]
+    lines += [f"{v:.12g},{g * 1e6:.12g}" for v, g in zip(trace.gate_V, trace.conductance_S)]
+    path.write_text("\n".join(lines) + "\n")
+
+
+def test_command_line_fit_writes_text_hdf5_and_figure(energy_sweep, fits, tmp_path, capsys):
+    """One command: stored sweep + measured CSV -> fitted values (text and HDF5) and the overlay figure; the values
+    are those of the Python fit of the same trace (to the 12 digits the CSV keeps), which covers the truth within
+    2 standard errors (test_fit_recovers_truth_within_two_standard_errors)."""
+    import shutil
+
+    from rgftrans.cli import main
+
+    result = tmp_path / "bw.h5"
+    shutil.copy(energy_sweep, result)
+    csv_path = tmp_path / "trace.csv"
+    _write_csv(csv_path, synthetic_trace(energy_sweep))
+    args = ["compare", str(result), str(csv_path), "--temperature", "0.3", "--lever-arm", "75", "--offset",
+            "-0.1005", "--r-series", "3000", "--fit-series", "--fit-temperature", "--noise", str(NOISE_S),
+            "--description", "synthetic trace (invented)"]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "reduced chi-square" in out and "synthetic" in out
+    fit, ref = read_fit(result), fits["all four, sigma given"]
+    for name in TRUTH:
+        assert fit.values[name] == pytest.approx(ref.values[name], rel=1e-6), name
+        assert fit.stderr[name] == pytest.approx(ref.stderr[name], rel=1e-4), name
+    text = (tmp_path / "bw_compare.txt").read_text()
+    assert "lever_arm" in text and "± " in text
+    assert (tmp_path / "bw_compare.png").stat().st_size > 0
+    # a second run refuses to replace the stored fit unless asked
+    assert main(args) == 2
+    assert "exists" in capsys.readouterr().err
+    assert main(args + ["--overwrite"]) == 0
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    (["--select", "nonsense"], "NAME=VALUE"),
+    (["--leads", "source"], "two lead names"),
+    (["--fit", "lever_arm,colour"], "colour"),
+    (["--gate-axis", "nope"], "no axis 'nope'"),
+])
+def test_command_line_bad_requests_are_one_line(energy_sweep, tmp_path, capsys, extra, fragment):
+    from rgftrans.cli import main
+
+    csv_path = tmp_path / "trace.csv"
+    _write_csv(csv_path, synthetic_trace(energy_sweep))
+    status = main(["compare", str(energy_sweep), str(csv_path), "--temperature", "0.25", "--lever-arm", "80",
+                   "--save", str(tmp_path / "fit.h5"), "--out-prefix", str(tmp_path / "x")] + extra)
+    err = capsys.readouterr().err
+    assert status == 2 and fragment in err and err.count("\n") == 1
+
+
+def test_command_line_bad_csv_names_the_line(energy_sweep, tmp_path, capsys):
+    from rgftrans.cli import main
+
+    csv_path = tmp_path / "bad.csv"
+    csv_path.write_text("Vg [V],G [uS]\n-0.09,1.0\n-0.08,abc\n")
+    assert main(["compare", str(energy_sweep), str(csv_path), "--temperature", "0.25", "--lever-arm", "80",
+                 "--save", str(tmp_path / "fit.h5")]) == 2
+    err = capsys.readouterr().err
+    assert "line 3" in err and err.count("\n") == 1
+
+
+def test_axis_named_by_its_config_path(tmp_path):
+    """Sweeps store `gates.p.voltage_V` as `gates__p__voltage_V`; either name selects the axis."""
+    path = tmp_path / "dotted.h5"
+    gates = np.linspace(0.0, 0.01, 21)
+    energies = np.linspace(-0.6, 0.6, 241)
+    axis = Axis("gates__p__voltage_V", gates, "V", "plunger gate voltage")
+    with ResultFile.create(path, config_text="# synthetic\n", config_hash="dotted", axes=[axis],
+                           energies_meV=energies, lead_names=LEADS, quantities=SPEC) as rf:
+        for j, g in enumerate(gates):
+            rf.write_point((j,), {"transmission": two_lead_matrix(breit_wigner(energies + 80.0 * g))})
+    v = np.linspace(0.001, 0.009, 5)
+    a = model_conductance(path, v, temperature_K=1.0, gate_axis="gates.p.voltage_V", check=False)
+    b = model_conductance(path, v, temperature_K=1.0, gate_axis="gates__p__voltage_V", check=False)
+    assert np.array_equal(a, b) and np.all(a > 0)
