@@ -151,14 +151,23 @@ class TightBindingModel:
             )
         if not np.all(np.isfinite(ham.data)):
             raise PotentialError("the Hamiltonian contains NaN or infinite entries; check the potential and hoppings")
-        if abs(ham - ham.conj().T).max() > 1e-10 * max(1.0, abs(ham).max()):
+        scale = 1e-10 * max(1.0, abs(ham).max())
+        diag = ham.diagonal()
+        if abs(ham - ham.conj().T - sp.diags(2j * diag.imag)).max() > scale:
             raise GeometryError("the device Hamiltonian is not Hermitian; check the hoppings (each bond needs its conjugate)")
+        if np.any(diag.imag > scale):
+            raise PotentialError("an onsite energy has a positive imaginary part (gain); absorption needs Im <= 0")
         coo = ham.tocoo()
         off = coo.row // self.norbs != coo.col // self.norbs
         bonds = np.unique(np.column_stack([coo.row[off] // self.norbs, coo.col[off] // self.norbs]), axis=0)
         degree = np.bincount(bonds[:, 0], minlength=len(self.positions)) if len(bonds) else np.zeros(len(self.positions), int)
         for lead in self.leads:
             _validate_lead(lead, n, degree, self.coordination, self.norbs)
+
+    @property
+    def is_lossy(self) -> bool:
+        """Whether some onsite energy has a negative imaginary part (absorption; H is then not Hermitian)."""
+        return bool(np.any(self.hamiltonian.diagonal().imag < 0))
 
     @property
     def n_sites(self) -> int:

@@ -330,7 +330,7 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
     # where T comes out small it has lost relative accuracy, so those energies are redone with columns.
     real = z_all.imag == 0
     trans = np.full(n_e, np.nan)
-    if wide and np.any(real):
+    if wide and np.any(real) and not model.is_lossy:  # the identity needs a Hermitian device
         sel = np.flatnonzero(real)
         trans[sel] = run(sel, True)
         trans[sel[trans[sel] < WARD_MIN_T * np.maximum(n_open[sel].min(axis=1), 1)]] = np.nan
