@@ -8,6 +8,7 @@ Subcommands::
     rgftrans plot RESULT [--out PNG]        conductance lines or maps from a result file
     rgftrans darkstates RESULT              locate bound states in the continuum in a stored sweep
     rgftrans compare RESULT TRACE [options] fit a stored sweep to a measured conductance trace
+    rgftrans waveguide CONFIG               light in a metal-walled waveguide: spectrum, field, dark modes
 
 Exit status: 0 success; 1 the computation failed or was interrupted (finished
 points are kept; rerun to resume); 2 bad input (config, file, arguments),
@@ -38,12 +39,22 @@ def _one_line_warnings() -> None:
     warnings.showwarning = show
 
 
+def _refuse_waveguide(path) -> None:
+    from .config import ConfigError
+    from .waveguide_config import is_waveguide_config
+
+    if is_waveguide_config(path):
+        raise ConfigError(f"{path}: this is a waveguide config ([waveguide] table); run it with "
+                          f"'rgftrans waveguide {path}'")
+
+
 def _cmd_check(args) -> int:
     import numpy as np
 
     from .config import load_config
     from .rgf import layer_blocks, lead_self_energies
 
+    _refuse_waveguide(args.config)
     cfg = load_config(args.config)
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
@@ -84,6 +95,7 @@ def _cmd_run(args) -> int:
     from .config import load_config
     from .sweeps import run_sweep
 
+    _refuse_waveguide(args.config)
     cfg = load_config(args.config)
     report = run_sweep(cfg, overwrite=args.overwrite or None, quiet=args.quiet, workers=args.workers,
                        address=args.cluster, path=args.output)
@@ -255,6 +267,12 @@ def _cmd_compare(args) -> int:
     return EXIT_OK
 
 
+def _cmd_waveguide(args) -> int:
+    from .waveguide_config import run_waveguide
+
+    return run_waveguide(args.config, out_prefix=args.out_prefix, output=args.output, quiet=args.quiet)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="rgftrans", description="Tight-binding quantum transport by recursive Green's functions.",
                      epilog="Exit status: 0 success, 1 computation failed or interrupted (rerun resumes), "
@@ -345,6 +363,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--overwrite", action="store_true", help="replace an existing group of that name")
     p.add_argument("--out-prefix", metavar="PATH", help="prefix of the .txt and .png files (default: the result path)")
     p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("waveguide", help="TM light in a metal-walled waveguide with dielectrics",
+                       description="Grid a waveguide config ([waveguide], [frequency], optional [[search.axis]]), "
+                                   "compute power transmission, reflection and absorption over the band, draw the "
+                                   "field at the sharpest resonance with its Q, search the plane of two dielectric "
+                                   "parameters for bound states in the continuum, and write everything to HDF5.")
+    p.add_argument("config", help="waveguide TOML file")
+    p.add_argument("--out-prefix", metavar="PATH", help="figure prefix (default: the config path without .toml)")
+    p.add_argument("--output", metavar="H5", help="result file (default: [output] path, else PREFIX.h5)")
+    p.add_argument("--quiet", action="store_true")
+    p.set_defaults(func=_cmd_waveguide)
     return parser
 
 

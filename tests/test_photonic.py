@@ -153,3 +153,67 @@ def test_bad_input_is_one_line(make, error, fragment):
     with pytest.raises(error, match=fragment) as err:
         make()
     assert "\n" not in str(err.value)
+
+
+# --- the invented microwave cavity from the command line --------------------------------------------------------
+def test_command_line_cavity_spectrum_field_and_bic(tmp_path, capsys):
+    """configs/microwave_cavity.toml with the search narrowed around one of its BICs (to keep the test short):
+    the command writes the spectrum, the field map and the HDF5 file, and every BIC it reports has, on the rebuilt
+    waveguide, a pole of zero width to round-off while both guides carry a mode (independent check)."""
+    from pathlib import Path
+
+    import h5py
+
+    from rgftrans.cli import main
+    from rgftrans.darkstates import resonances
+    from rgftrans.waveguide_config import parse_waveguide
+
+    text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()
+    text = text.replace("start = 5.0\nstop = 7.0\npoints = 7", "start = 5.7\nstop = 6.1\npoints = 3")
+    text = text.replace("start = -3.0\nstop = 3.0\npoints = 7", "start = -0.5\nstop = 0.7\npoints = 3")
+    text = text.replace("points = 801", "points = 201")
+    text = text.replace('path = "out/microwave_cavity.h5"', f'path = "{tmp_path / "cavity.h5"}"')
+    cfg_path = tmp_path / "cavity.toml"
+    cfg_path.write_text(text)
+    assert main(["waveguide", str(cfg_path), "--out-prefix", str(tmp_path / "cav")]) == 0
+    out = capsys.readouterr().out
+    assert "BIC 0 (accidental)" in out and "Q one grid step away" in out
+    for name in ("spectrum", "field", "plane", "dark_mode"):
+        assert (tmp_path / f"cav_{name}.png").stat().st_size > 0
+    cfg = parse_waveguide(text)
+    with h5py.File(tmp_path / "cavity.h5", "r") as f:
+        assert f["waveguide/frequency"].attrs["units"] == "GHz"
+        t = f["waveguide/transmission"][()]
+        assert np.allclose(t.sum(axis=1), f["waveguide/n_open"][()], atol=1e-9)  # lossless: T + R = N
+        bics = [f["waveguide/darkstates"][k] for k in f["waveguide/darkstates"] if k.startswith("bic_")]
+        assert bics
+        for b in bics:
+            eps, shift = b["parameter"][()]
+            model = cfg.build({"dielectric.puck.permittivity": eps, "dielectric.puck.shift_x": shift}).discretise()
+            pole = resonances(model.model, float(b["energy"][()]), count=1)[0]
+            assert abs(pole.width_meV) < 1e-12 * pole.energy_meV and pole.n_open == (1, 1)
+
+
+@pytest.mark.parametrize("edit, fragment", [
+    (("spacing = 0.4", "spacing = -0.4"), "spacing"),
+    (('parameter = "dielectric.puck.shift_x"', 'parameter = "dielectric.lens.shift_x"'), "names no dielectric"),
+    (("permittivity = 6.0", "permittivity = 6.0\ncolour = 1"), "colour"),
+    (('side = "left"', 'side = "up"'), "side"),
+])
+def test_bad_waveguide_configs_are_one_line(tmp_path, capsys, edit, fragment):
+    from pathlib import Path
+
+    from rgftrans.cli import main
+
+    text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()
+    assert edit[0] in text
+    (tmp_path / "bad.toml").write_text(text.replace(edit[0], edit[1], 1))
+    assert main(["waveguide", str(tmp_path / "bad.toml")]) == 2
+    err = capsys.readouterr().err
+    assert fragment in err and err.count("\n") == 1
+
+
+def test_off_grid_port_walls_are_reported():
+    with pytest.warns(ResolutionWarning, match="fall between grid lines"):
+        Waveguide(rectangle(0, 0, 10, 7), [Port("a", "left", (0, 7)), Port("b", "right", (0, 7))],
+                  spacing=0.4).discretise()
