@@ -37,7 +37,8 @@ from .device import TightBindingModel
 from .errors import RgftransError
 from .rgf import lead_self_energies
 
-__all__ = ["CouplingResiduals", "coupling_residuals", "Bic2D", "locate_bic_2d", "explain", "GridSearch", "search_grid"]
+__all__ = ["CouplingResiduals", "coupling_residuals", "Bic2D", "locate_bic_2d", "explain", "GridSearch", "search_grid",
+           "plane_seeds", "search_sweep_plane", "stored_plane_builder", "write_grid_search"]
 
 #: Below this many orbitals the real part of H_eff is diagonalised densely.
 DENSE_BELOW = 300
@@ -495,11 +496,11 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
                     if progress:
                         progress(f"BIC at {names[0]} = {bic.parameter[0]:.9g}, {names[1]} = {bic.parameter[1]:.9g},"
                                  f" E = {bic.energy_meV:.6f} meV")
-    return GridSearch(names=tuple(names), p1=p1, p2=p2, seeds_meV=seeds, residuals=res_all, energies_meV=e_all, channels=channels, bics=bics, seed_of_bic=seed_of,
-                      candidates=candidates)
+    return GridSearch(names=tuple(names), p1=p1, p2=p2, seeds_meV=seeds, residuals=res_all, energies_meV=e_all,
+                      channels=channels, bics=bics, seed_of_bic=seed_of, candidates=candidates)
 
 
-def _stored_builder(path):
+def stored_plane_builder(path):
     """(config, build(p1, p2), axis names, axis values, energies) of a stored sweep over two parameters."""
     from .config import parse_config
     from .store import read_result
@@ -545,7 +546,7 @@ def search_sweep_plane(path, *, energy_guess: float | None = None, rtol: float =
     grid (or only the one nearest ``energy_guess``); cells around which its
     two coupling residuals wind once are refined with :func:`locate_bic_2d`.
     """
-    data, build, names, (p1, p2) = _stored_builder(path)
+    data, build, names, (p1, p2) = stored_plane_builder(path)
     centre = build(p1[len(p1) // 2], p2[len(p2) // 2])
     if energy_guess is not None:
         seeds = np.array([float(energy_guess)])

@@ -177,7 +177,7 @@ def _darkstates_plane(args) -> int:
     """The dark-state search over a stored sweep of two parameters (an accidental BIC needs two)."""
     import numpy as np
 
-    from .bic2d import _stored_builder, search_sweep_plane, write_grid_search
+    from .bic2d import stored_plane_builder, search_sweep_plane, write_grid_search
     from .plots import plot_bic_plane, plot_fano_collapse, plot_map
 
     search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"))
@@ -201,7 +201,7 @@ def _darkstates_plane(args) -> int:
     fig, _ = plot_bic_plane(search)
     fig.savefig(f"{prefix}_plane.png", dpi=150)
     if search.bics:
-        _, build, _, _ = _stored_builder(args.result)
+        _, build, _, _ = stored_plane_builder(args.result)
         bic = search.bics[0]
         step = float(np.median(np.diff(search.p1)))
         fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)

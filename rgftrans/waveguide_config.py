@@ -20,7 +20,7 @@ Layout (lengths in the ``unit`` of ``[waveguide]``, mm or um; frequencies in GHz
     span = [9.0, 16.0]                  # the port's two walls along that side
     permittivity = 1.0                  # optional filling (lossless)
 
-    [frequency]
+    [frequency]                         # or start_um / stop_um: vacuum wavelengths
     start_GHz = 21.0
     stop_GHz = 26.0
     points = 501
@@ -43,6 +43,7 @@ from pathlib import Path
 from typing import Annotated, Literal
 
 import numpy as np
+import scipy.constants as const
 import shapely.affinity
 from pydantic import Field, ValidationError, model_validator
 
@@ -113,15 +114,31 @@ class _WaveguideSpec(_Table):
 
 
 class _FrequencySpec(_Table):
-    start_GHz: Annotated[float, Field(gt=0)]
-    stop_GHz: Annotated[float, Field(gt=0)]
+    """The band: frequencies in GHz, or vacuum wavelengths in um (points evenly spaced in what is given)."""
+
+    start_GHz: Annotated[float, Field(gt=0)] | None = None
+    stop_GHz: Annotated[float, Field(gt=0)] | None = None
+    start_um: Annotated[float, Field(gt=0)] | None = None
+    stop_um: Annotated[float, Field(gt=0)] | None = None
     points: Annotated[int, Field(ge=2)]
 
     @model_validator(mode="after")
     def _order(self):
-        if self.stop_GHz <= self.start_GHz:
-            raise _problem(f"stop_GHz must exceed start_GHz, got {self.start_GHz} and {self.stop_GHz}; swap them")
+        ghz = (self.start_GHz, self.stop_GHz)
+        um = (self.start_um, self.stop_um)
+        if (None in ghz) == (None in um) or (any(v is not None for v in ghz) and any(v is not None for v in um)):
+            raise _problem("give the band either as start_GHz and stop_GHz or as start_um and stop_um (vacuum "
+                           "wavelengths), not both and not half of one")
+        lo, hi = ghz if None not in ghz else um
+        if hi <= lo:
+            raise _problem(f"the band's stop must exceed its start, got {lo} and {hi}; swap them")
         return self
+
+    def values_GHz(self) -> np.ndarray:
+        if self.start_GHz is not None:
+            return np.linspace(self.start_GHz, self.stop_GHz, self.points)
+        wavelengths_m = np.linspace(self.start_um, self.stop_um, self.points) * 1e-6
+        return np.sort(const.c / wavelengths_m / 1e9)
 
 
 class _AxisSpec(_Table):
@@ -163,8 +180,7 @@ class WaveguideConfig(_Table):
         return self
 
     def frequencies_GHz(self) -> np.ndarray:
-        f = self.frequency
-        return np.linspace(f.start_GHz, f.stop_GHz, f.points)
+        return self.frequency.values_GHz()
 
     def axes(self) -> list[tuple[str, np.ndarray]]:
         return [] if self.search is None else [(a.parameter, np.linspace(a.start, a.stop, a.points))
@@ -203,7 +219,7 @@ def parse_waveguide(text: str, *, source: str = "<string>") -> WaveguideConfig:
         cfg = WaveguideConfig.model_validate(data)
     except ValidationError as error:
         errors = sorted(error.errors(include_url=False), key=lambda e: e["type"] != "extra_forbidden")
-        problems = tuple(_translate(e) for e in errors)
+        problems = tuple(_translate(e, WaveguideConfig) for e in errors)
         more = f" (+{len(problems) - 1} more)" if len(problems) > 1 else ""
         raise ConfigError(f"{source}: {problems[0]}{more}", problems=tuple(f"{source}: {p}" for p in problems)) from None
     return cfg

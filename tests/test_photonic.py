@@ -217,3 +217,18 @@ def test_off_grid_port_walls_are_reported():
     with pytest.warns(ResolutionWarning, match="fall between grid lines"):
         Waveguide(rectangle(0, 0, 10, 7), [Port("a", "left", (0, 7)), Port("b", "right", (0, 7))],
                   spacing=0.4).discretise()
+
+
+def test_band_given_in_wavelengths():
+    """[frequency] start_um/stop_um are vacuum wavelengths: f = c / lambda (scipy.constants.c)."""
+    from pathlib import Path
+
+    from rgftrans.config import ConfigError
+    from rgftrans.waveguide_config import parse_waveguide
+
+    text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()
+    cfg = parse_waveguide(text.replace("start_GHz = 21.2\nstop_GHz = 25.6", "start_um = 12000.0\nstop_um = 14000.0"))
+    f = cfg.frequencies_GHz()
+    assert f[0] == pytest.approx(const.c / 14000e-6 / 1e9) and f[-1] == pytest.approx(const.c / 12000e-6 / 1e9)
+    with pytest.raises(ConfigError, match="either as start_GHz"):
+        parse_waveguide(text.replace("start_GHz = 21.2", "start_um = 12000.0"))
