@@ -459,7 +459,8 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
             except RgftransError:
                 continue
             if ref is not None and r.overlap < MIN_OVERLAP:
-                continue  # identity lost: leave NaN here and follow nothing from here
+                continue  # identity lost: NaN here; points beyond restart from the seed energy (new signs,
+                # so cells that mix the two are refused by the overlap test below)
             states[i, j] = (r.energy_meV, r.state, r)
             e_all[s, i, j] = r.energy_meV
             if len(r.residuals) == 2:
