@@ -33,6 +33,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from .darkstates import DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, follow_pole
 from .device import TightBindingModel
 from .errors import RgftransError
 from .rgf import lead_self_energies
@@ -40,8 +41,6 @@ from .rgf import lead_self_energies
 __all__ = ["CouplingResiduals", "coupling_residuals", "Bic2D", "locate_bic_2d", "explain", "GridSearch", "search_grid",
            "plane_seeds", "search_sweep_plane", "stored_plane_builder", "write_grid_search"]
 
-#: Below this many orbitals the real part of H_eff is diagonalised densely.
-DENSE_BELOW = 300
 #: Self-consistency of E: stop when it moves less than this fraction of the energy scale.
 ENERGY_TOL = 1e-13
 #: The tracked state must overlap the reference by at least this much, else the identity is lost.
@@ -314,20 +313,19 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start, ste
         Relative precision of each parameter (relative to ``max(|p|, step)``).
     reference : optional state to follow (from a grid search).
     """
-    from .darkstates import PROTECTED_WIDTH, WIDTH_FLOOR, _follow
-
     step = np.asarray(step, float)
     x, res, solves = _newton(build, start, step, energy_guess, reference, rtol, max_solves)
+    seed = res.state.astype(complex)
 
     def pole(p):
-        return _follow(lambda _: build(*p), 0.0, res.energy_meV, res.state.astype(complex))
+        return follow_pole(build(*p), res.energy_meV, seed)
 
-    at = pole(x)
+    model = build(*x)
+    at = follow_pole(model, res.energy_meV, seed)
     away = [pole(x + np.array(d) * step) for d in ((1, 0), (-1, 0), (0, 1), (0, -1))]
     typical = float(np.median([r.width_meV for r in away]))
     w1, w2 = (pole(x + np.array([f * step[0], 0.0])).width_meV for f in (0.01, 0.02))
     exponent = float(np.log(max(w2, 1e-300) / max(w1, 1e-300)) / np.log(2.0))
-    model = build(*x)
     floor = WIDTH_FLOOR * model.energy_scale
     kind = "symmetry-protected" if typical < PROTECTED_WIDTH * model.energy_scale else "accidental"
     return Bic2D(parameter=x, energy_meV=res.energy_meV, residual=res.norm, width_meV=at.width_meV,
@@ -501,12 +499,15 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
                       channels=channels, bics=bics, seed_of_bic=seed_of, candidates=candidates)
 
 
-def stored_plane_builder(path):
-    """(config, build(p1, p2), axis names, axis values, energies) of a stored sweep over two parameters."""
+def stored_plane_builder(path, data=None):
+    """(result data, build(p1, p2), axis names, axis values) of a stored sweep over two parameters.
+
+    ``data`` is the already-read result of ``path`` (read here when not given).
+    """
     from .config import parse_config
     from .store import read_result
 
-    data = read_result(path)
+    data = read_result(path) if data is None else data
     if len(data.axes) != 2:
         raise RgftransError(f"{path}: the result has {len(data.axes)} sweep axes; a plane search needs exactly two "
                             "(sweep two gate voltages, say, or use the search along one axis)")
@@ -539,15 +540,16 @@ def plane_seeds(model: TightBindingModel, e_lo: float, e_hi: float) -> np.ndarra
 
 
 def search_sweep_plane(path, *, energy_guess: float | None = None, rtol: float = 1e-6,
-                       progress: Callable[[str], None] | None = None) -> GridSearch:
+                       progress: Callable[[str], None] | None = None, stored=None) -> GridSearch:
     """Search a stored sweep over two parameters for accidental BICs.
 
     Every closed-dot level inside the stored energy window (where both leads
     have one open channel) at the centre of the grid is followed over the
     grid (or only the one nearest ``energy_guess``); cells around which its
     two coupling residuals wind once are refined with :func:`locate_bic_2d`.
+    ``stored`` is the result of :func:`stored_plane_builder` for ``path``, if the caller has it.
     """
-    data, build, names, (p1, p2) = stored_plane_builder(path)
+    data, build, names, (p1, p2) = stored if stored is not None else stored_plane_builder(path)
     centre = build(p1[len(p1) // 2], p2[len(p2) // 2])
     if energy_guess is not None:
         seeds = np.array([float(energy_guess)])

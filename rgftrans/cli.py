@@ -135,8 +135,9 @@ def _cmd_darkstates(args) -> int:
     from .plots import plot_map, plot_track_on_map, plot_width_track
     from .store import read_result
 
-    if len(read_result(args.result).axes) == 2:
-        return _darkstates_plane(args)
+    data = read_result(args.result)
+    if len(data.axes) == 2:
+        return _darkstates_plane(args, data)
     search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis)
     t = search.track
     print(f"{args.result}: resonance followed along {search.axis_name} over {len(t.parameters)} values; width from "
@@ -159,10 +160,9 @@ def _cmd_darkstates(args) -> int:
     fig.savefig(f"{prefix}_track.png", dpi=150)
     if search.bics and np.ndim(search.bics[0].parameter) == 0:
         from .config import parse_config
-        from .store import read_result
 
         loc = search.bics[0]
-        cfg = parse_config(read_result(args.result).config_text)
+        cfg = parse_config(data.config_text)
         model = cfg.build_device({**cfg.base_point(), search.axis_name: float(loc.parameter)}).discretise()
         density = model.per_site(np.abs(loc.resonance.state) ** 2)
         q_near = search.nearby_q[0][0]
@@ -173,14 +173,16 @@ def _cmd_darkstates(args) -> int:
     return EXIT_OK
 
 
-def _darkstates_plane(args) -> int:
+def _darkstates_plane(args, data) -> int:
     """The dark-state search over a stored sweep of two parameters (an accidental BIC needs two)."""
     import numpy as np
 
     from .bic2d import stored_plane_builder, search_sweep_plane, write_grid_search
     from .plots import plot_bic_plane, plot_fano_collapse, plot_map
 
-    search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"))
+    stored = stored_plane_builder(args.result, data)
+    search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"),
+                                stored=stored)
     n1, n2 = search.names
     print(f"{args.result}: {len(search.seeds_meV)} dot state(s) followed over {len(search.p1)} x {len(search.p2)} "
           f"values of {n1}, {n2}; {search.candidates} candidate cell(s), {len(search.bics)} BIC(s) located")
@@ -201,7 +203,7 @@ def _darkstates_plane(args) -> int:
     fig, _ = plot_bic_plane(search)
     fig.savefig(f"{prefix}_plane.png", dpi=150)
     if search.bics:
-        _, build, _, _ = stored_plane_builder(args.result)
+        build = stored[1]
         bic = search.bics[0]
         step = float(np.median(np.diff(search.p1)))
         fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)
@@ -255,8 +257,8 @@ def _cmd_compare(args) -> int:
                        select=select or None)
     text = result.summary()
     print(text)
-    prefix = Path(args.out_prefix or Path(args.result).with_suffix("")).with_name(
-        Path(args.out_prefix or Path(args.result).with_suffix("")).name + "_" + args.group)
+    base = Path(args.out_prefix or Path(args.result).with_suffix(""))
+    prefix = base.with_name(f"{base.name}_{args.group}")
     prefix.parent.mkdir(parents=True, exist_ok=True)
     Path(f"{prefix}.txt").write_text(text + "\n", encoding="utf-8")
     target = args.save or args.result

@@ -93,6 +93,7 @@ from rgftrans.lattices import Lattice, honeycomb, square, triangular
 from rgftrans.materials import MATERIALS, Material, fermi_energy_meV
 
 from .config_messages import (  # noqa: F401  (ConfigError and the helpers are part of this module's interface)
+    RUN_ADVICE,
     ConfigError,
     _did_you_mean,
     _problem,
@@ -132,7 +133,6 @@ Pair = Annotated[list[float], Field(min_length=2, max_length=2)]
 Name = Annotated[str, StringConstraints(pattern=_NAME_PATTERN)]
 NonEmptyString = Annotated[str, StringConstraints(min_length=1)]
 
-_SHAPE_KEYS = ("rectangle_nm", "polygon_nm", "disk_nm")
 # Coordinate a lead's span runs along, for each side.
 _SPAN_COORDINATE = {"left": "y", "right": "y", "bottom": "x", "top": "x"}
 
@@ -168,21 +168,23 @@ class ShapeSpec(_Table):
         return self._region
 
 
-def _one_shape(spec: BaseModel, several_advice: str) -> Region:
-    given = [key for key in _SHAPE_KEYS if getattr(spec, key) is not None]
+def _one_shape(spec: BaseModel, several_advice: str, *, suffix: str = "_nm", unit: str = "nm") -> Region:
+    """The one shape a table gives among ``rectangle<suffix>``, ``polygon<suffix>``, ``disk<suffix>``."""
+    rect, poly, circle = (f"{name}{suffix}" for name in ("rectangle", "polygon", "disk"))
+    given = [key for key in (rect, poly, circle) if getattr(spec, key) is not None]
     if len(given) > 1:
         raise _problem(f"more than one shape, got {' and '.join(given)}; {several_advice}")
     if not given:
         raise _problem(
-            "no shape, got none; give one of rectangle_nm = [x0, y0, x1, y1], "
-            "polygon_nm = [[x, y], ...] or disk_nm = [cx, cy, r] (nm)"
+            f"no shape, got none; give one of {rect} = [x0, y0, x1, y1], "
+            f"{poly} = [[x, y], ...] or {circle} = [cx, cy, r] ({unit})"
         )
     key = given[0]
     value = getattr(spec, key)
     try:
-        if key == "rectangle_nm":
+        if key == rect:
             return rectangle(*value)
-        if key == "polygon_nm":
+        if key == poly:
             return polygon(value)
         return disk(value[:2], value[2])
     except GeometryError as error:
@@ -1003,7 +1005,7 @@ def validate_config(data: Mapping[str, Any], *, source: str = "<dict>",
     except ValidationError as error:
         # Unknown keys first: a misspelled key also shows up as a missing one.
         errors = sorted(error.errors(include_url=False), key=lambda e: e["type"] != "extra_forbidden")
-        problems = tuple(_translate(e, RunConfig) for e in errors)
+        problems = tuple(_translate(e, RunConfig, RUN_ADVICE) for e in errors)
         more = f" (+{len(problems) - 1} more)" if len(problems) > 1 else ""
         raise ConfigError(f"{source}: {problems[0]}{more}", problems=tuple(f"{source}: {p}" for p in problems)) from None
     config._source = source

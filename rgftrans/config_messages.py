@@ -112,8 +112,8 @@ def _toml_message(source: str, text: str, error: tomllib.TOMLDecodeError) -> str
 
 # --- ValidationError -> one line -----------------------------------------------------------------
 
-# Advice for a key, by its pattern in the schema ("[]" stands for any index).
-_ADVICE = {
+# Advice for a key of the run schema (rgftrans.config.RunConfig), by its pattern ("[]" stands for any index).
+RUN_ADVICE = {
     "lattice": 'add a [lattice] table, e.g. kind = "square", spacing_nm = 4.0',
     "lattice.spacing_nm": "give the nearest-neighbour distance in nm, e.g. spacing_nm = 4.0",
     "lattice.hopping_meV": "give the hopping in meV, > 0, or leave it out for the effective-mass value",
@@ -231,8 +231,11 @@ def _path(loc: tuple) -> str:
     return text
 
 
-def _translate(error: dict, root: Any) -> str:
-    """One pydantic error of the schema ``root`` as ``<key.path>: <what>, got <value>; <fix>``."""
+def _translate(error: dict, root: Any, advice: Mapping[str, str] | None = None) -> str:
+    """One pydantic error of the schema ``root`` as ``<key.path>: <what>, got <value>; <fix>``.
+
+    ``advice`` maps key patterns of that schema (indices as ``[]``) to a fix.
+    """
     kind, loc, ctx = error["type"], tuple(error["loc"]), error.get("ctx") or {}
     path = _path(loc)
     if kind == _PROBLEM:
@@ -259,12 +262,12 @@ def _translate(error: dict, root: Any) -> str:
                 if getattr(item, name, None) is not None:
                     ctx = {**ctx, name: getattr(item, name)}
     section = f"[{loc[0]}]" if loc else root.__name__
-    advice = (_ADVICE.get(pattern) if root.__name__ == "RunConfig" else None) or _GENERIC_ADVICE.get(kind) or \
+    fix = (advice or {}).get(pattern) or _GENERIC_ADVICE.get(kind) or \
         f"see the schema of {section} in {root.__module__}"
     if kind == "missing":
         what = f"missing required section [{loc[0]}]" if len(loc) == 1 else f"missing required key {loc[-1]!r}"
-        return f"{path}: {what}, got nothing; {advice}"
-    return f"{path}: {_describe(kind, ctx, error['msg'])}, got {_show(error['input'])}; {advice}"
+        return f"{path}: {what}, got nothing; {fix}"
+    return f"{path}: {_describe(kind, ctx, error['msg'])}, got {_show(error['input'])}; {fix}"
 
 
 def _describe(kind: str, ctx: dict, msg: str) -> str:

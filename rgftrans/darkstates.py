@@ -45,7 +45,7 @@ from .rgf import gamma_columns, lead_self_energies
 __all__ = [
     "Resonance", "effective_hamiltonian", "resonances", "CouplingDiagnostics", "coupling_diagnostics",
     "FanoFit", "fano_profile", "fit_fano", "find_resonances", "Track", "track_resonance", "BicLocation",
-    "locate_bic",
+    "locate_bic", "follow_pole",
 ]
 
 #: Below this many orbitals the poles come from a dense eigen-decomposition.
@@ -388,13 +388,12 @@ class Track:
     in_continuum: np.ndarray
 
 
-def _follow(build, p, energy, state=None, count=4):
-    """The pole of the model at parameter p that continues the tracked one (best overlap, else nearest energy).
+def follow_pole(model: TightBindingModel, energy: float, state=None, count: int = 4) -> Resonance:
+    """The pole of ``model`` that continues a tracked one (best overlap with ``state``, else nearest energy).
 
     The candidates come from one eigen-decomposition at the previous energy; only the chosen one is
     refined to self-consistency.
     """
-    model = build(p)
     w, v = _eig_near(effective_hamiltonian(model, energy), complex(energy), count)
     pick = 0  # _eig_near sorts by distance in the complex plane: a broad pole is far even if Re z is close
     if state is not None and v.shape[0] == state.shape[0]:
@@ -402,6 +401,11 @@ def _follow(build, p, energy, state=None, count=4):
         if overlaps.max() > 0.5:
             pick = int(np.argmax(overlaps))
     return _refine_pole(model, complex(w[pick]), model.energy_scale, 60)
+
+
+def _follow(build, p, energy, state=None, count=4):
+    """:func:`follow_pole` on the model ``build(p)``."""
+    return follow_pole(build(p), energy, state, count)
 
 
 def track_resonance(build: Callable[[float], TightBindingModel], parameters, energy_guess: float) -> Track:

@@ -147,10 +147,6 @@ class Waveguide:
         ham = d @ base.hamiltonian @ d
         new_leads = []
         for lead, port in zip(base.leads, self.ports):
-            e_p = float(port.permittivity)
-            new_leads.append(replace(lead, h_cell=lead.h_cell / e_p, h_hop=lead.h_hop / e_p,
-                                     coupling=scale[lead.interface][:, None] * lead.coupling / np.sqrt(e_p)))
-        for lead, port in zip(base.leads, self.ports):
             width = (len(lead.interface) + 1) * a  # nodes strictly between the walls, walls one spacing beyond
             given = abs(port.span[1] - port.span[0])
             if abs(width - given) > 0.01 * a:
@@ -159,6 +155,9 @@ class Waveguide:
                     f"grid lines, so on this grid the guide is {width:.4g} {self.unit} wide instead of {given:.4g} "
                     f"(cutoffs shift by {100 * abs(given / width - 1):.1f} %); put the walls on multiples of the "
                     f"spacing {a:g} {self.unit}", ResolutionWarning, stacklevel=2)
+            e_p = float(port.permittivity)
+            new_leads.append(replace(lead, h_cell=lead.h_cell / e_p, h_hop=lead.h_hop / e_p,
+                                     coupling=scale[lead.interface][:, None] * lead.coupling / np.sqrt(e_p)))
         model = TightBindingModel(ham, base.positions, tuple(new_leads), energy_scale=1.0,
                                   coordination=base.coordination, norbs=1, spacing_nm=None)
         return PhotonicModel(model=model, permittivity=eps, spacing=a, unit=self.unit,

@@ -291,7 +291,7 @@ def plot_bic_plane(search, *, seed: int | None = None, ax=None):
             ax.contour(search.p1, search.p2, np.ma.masked_invalid(res[..., k]).T, levels=[0.0], colors="w",
                             linestyles=ls, linewidths=1.2)
             lead, c = search.channels[k] if search.channels else ("lead", k)
-            handles.append(plt_line(ls, f"no coupling to {lead} (channel {c})"))
+            handles.append(_legend_line(ls, f"no coupling to {lead} (channel {c})"))
     for bic, s in zip(search.bics, search.seed_of_bic):
         if s == seed:
             ax.plot([bic.parameter[0]], [bic.parameter[1]], "*", ms=14, mfc="tab:red", mec="w",
@@ -304,7 +304,7 @@ def plot_bic_plane(search, *, seed: int | None = None, ax=None):
     return fig, ax
 
 
-def plt_line(ls: str, label: str):
+def _legend_line(ls: str, label: str):
     """A legend entry for a white contour line (drawn dark so it shows on the legend's white background)."""
     from matplotlib.lines import Line2D
 
@@ -319,7 +319,7 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     """
     import matplotlib.pyplot as plt
 
-    from .darkstates import _follow
+    from .darkstates import follow_pole
     from .rgf import transmission
 
     if axes is None:
@@ -327,8 +327,8 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     else:
         fig = axes[0].figure
     p1, p2 = bic.parameter
-    poles = [_follow(lambda _, f=f: build(p1 + f * step, p2), 0.0, bic.energy_meV, bic.state.astype(complex))
-             for f in fractions]
+    seed = bic.state.astype(complex)
+    poles = [follow_pole(build(p1 + f * step, p2), bic.energy_meV, seed) for f in fractions]
     half = 6 * max(r.width_meV for r in poles)
     offsets = np.linspace(-half, half, 800)  # even count: the centre (a real pole at p*) is not sampled
     for f, r in zip(list(fractions) + [0.0], poles + [None]):
@@ -342,8 +342,7 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     axes[0].set_ylim(-0.02, 1.02)
     axes[0].legend(fontsize="small", frameon=False)
     d = np.abs(step) * np.geomspace(1e-3, 1.0, 13)
-    widths = np.array([_follow(lambda _, x=x: build(p1 + x, p2), 0.0, bic.energy_meV,
-                               bic.state.astype(complex)).width_meV for x in d])
+    widths = np.array([follow_pole(build(p1 + x, p2), bic.energy_meV, seed).width_meV for x in d])
     axes[1].loglog(d, np.maximum(widths, 1e-300), "o", color="k", ms=4, label="pole width")
     axes[1].loglog(d, widths[-1] * (d / d[-1]) ** 2, color="tab:red", lw=0.8, ls="--", label="∝ |p − p*|²")
     axes[1].set_xlabel(f"|{name} − p*|")

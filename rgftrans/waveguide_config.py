@@ -45,41 +45,30 @@ from typing import Annotated, Literal
 import numpy as np
 import scipy.constants as const
 import shapely.affinity
-from pydantic import Field, ValidationError, model_validator
+from pydantic import Field, PrivateAttr, ValidationError, model_validator
 
-from .config import ConfigError, Pair, _problem, _Table, _toml_message, _translate
-from .errors import GeometryError
-from .geometry import Region, disk, polygon, rectangle
+from .config import ConfigError, Pair, _one_shape, _problem, _Table, _toml_message, _translate
+from .geometry import Region
 from .photonic import Dielectric, Port, Waveguide
 
 __all__ = ["WaveguideConfig", "load_waveguide", "parse_waveguide", "is_waveguide_config", "run_waveguide"]
-
-_SHAPES = ("rectangle", "polygon", "disk")
-
 
 class _Shape(_Table):
     rectangle: Annotated[list[float], Field(min_length=4, max_length=4)] | None = None
     polygon: Annotated[list[Pair], Field(min_length=3)] | None = None
     disk: Annotated[list[float], Field(min_length=3, max_length=3)] | None = None
 
+    _region: Region | None = PrivateAttr(default=None)
+
     @model_validator(mode="after")
     def _one(self):
-        given = [k for k in _SHAPES if getattr(self, k) is not None]
-        if len(given) != 1:
-            raise _problem(f"{'no shape' if not given else 'more than one shape: ' + ' and '.join(given)}; give "
-                           "exactly one of rectangle = [x0, y0, x1, y1], polygon = [[x, y], ...], disk = [cx, cy, r]")
-        try:
-            self.region()
-        except GeometryError as error:
-            raise _problem(str(error), given[0]) from None
+        self._region = _one_shape(self, "give exactly one shape per table", suffix="",
+                                  unit="in the [waveguide] unit")
         return self
 
     def region(self) -> Region:
-        if self.rectangle is not None:
-            return rectangle(*self.rectangle)
-        if self.polygon is not None:
-            return polygon(self.polygon)
-        return disk(self.disk[:2], self.disk[2])
+        assert self._region is not None  # set by validation
+        return self._region
 
 
 class _DielectricSpec(_Shape):
@@ -236,7 +225,7 @@ def load_waveguide(path) -> tuple[WaveguideConfig, str]:
     return parse_waveguide(text, source=str(file)), text
 
 
-def _write_h5(path: Path, text: str, pm, spectrum, search=None, names=None) -> None:
+def _write_h5(path: Path, text: str, pm, spectrum, search=None) -> None:
     """Everything into one HDF5 file, written beside the target and renamed over it (never half-written)."""
     import h5py
 
