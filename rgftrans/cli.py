@@ -381,8 +381,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv=None) -> int:
     """Entry point of the ``rgftrans`` command."""
-    from .errors import RgftransError
-    from .sweeps import SweepFailed
+    from .errors import ComputationFailed, RgftransError
 
     args = build_parser().parse_args(argv)
     _one_line_warnings()
@@ -391,7 +390,7 @@ def main(argv=None) -> int:
     except RgftransError as err:
         print(f"rgftrans: error: {err}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except SweepFailed as err:
+    except ComputationFailed as err:
         print(f"rgftrans: failed: {err}", file=sys.stderr)
         return EXIT_FAILED
     except KeyboardInterrupt:

@@ -4,6 +4,12 @@ Every error the package raises for bad input is a subclass of
 :class:`RgftransError` and carries a one-line message that names what is
 wrong, quotes the offending value and says how to fix it.  The command line
 prints that line and exits with status 2; nothing else is shown.
+
+A computation that ran on valid input but did not produce a result worth
+trusting (a fit that did not converge, a search that found nothing valid, a
+sweep whose workers died) raises a :class:`ComputationFailed` subclass: the
+command line prints one line saying what failed and what to try, writes
+nothing as if it were a result, and exits with status 1.
 """
 
 
@@ -33,6 +39,18 @@ class MaterialError(RgftransError):
 
 class EnergyError(RgftransError):
     """Energies that cannot be used (NaN, empty array)."""
+
+
+class ComputationFailed(RuntimeError):
+    """Base class of computations that ran but failed (command-line exit status 1); one-line message."""
+
+
+class FitFailed(ComputationFailed):
+    """A least-squares fit did not converge, hit a bound, or fits the data badly; nothing is reported as a fit."""
+
+
+class SearchFailed(ComputationFailed):
+    """A search (e.g. for dark states) produced no valid result; nothing is reported as found."""
 
 
 class RgftransWarning(UserWarning):

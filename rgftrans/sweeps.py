@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from .config import RunConfig
-from .errors import RgftransError
+from .errors import ComputationFailed, RgftransError
 from .store import Axis, QuantitySpec, ResultFile, StoreError
 
 __all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name"]
@@ -39,7 +39,7 @@ __all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dat
 _ONE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
 
-class SweepFailed(RuntimeError):
+class SweepFailed(ComputationFailed):
     """The computation broke down (a worker died); finished points are kept and a rerun resumes."""
 
 
