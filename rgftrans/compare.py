@@ -310,7 +310,9 @@ class _Sweep:
                 f"{where}: {np.size(done) - np.count_nonzero(done)} selected parameter point(s) are not computed yet; "
                 f"resume the sweep or select computed points"
             )
+        # In units of 2e²/h at zero temperature: (g_s / 2) T, g_s = 1 when the spin orbitals are explicit.
         t = np.asarray(data.quantities["transmission"][index][..., i_out, i_in], dtype=float)
+        t = t * (0.5 * data.require_attr("spin_degeneracy", "whether the transmission is per spin"))
         if not np.all(np.isfinite(t)):
             raise CompareError(f"{where}: the selected transmission contains NaN; recompute those energies")
         self.energies = np.asarray(data.energies_meV, dtype=float)

@@ -124,6 +124,11 @@ class TightBindingModel:
         Orbitals per site (2 with spin).  Hamiltonian rows are orbitals,
         ``site * norbs + orbital``; ``positions`` has one row per site, and
         lead interfaces and couplings are in orbitals.
+    spin_degeneracy : {1, 2}
+        How many spin copies each channel of the model stands for: 2 for a
+        spinless model (every channel carries both spins, G = (2e^2/h) T),
+        1 when the spin is explicit in the orbitals (T counts both spins,
+        G = (e^2/h) T).  Default: 2 if ``norbs == 1``, else 1.
 
     Models built by hand are validated on creation: matrix shapes, Hermitian
     Hamiltonians, interface indices in range and on the device's boundary.
@@ -136,8 +141,16 @@ class TightBindingModel:
     coordination: int | None = None
     norbs: int = 1
     spacing_nm: float | None = None
+    spin_degeneracy: int | None = None
 
     def __post_init__(self):
+        if self.spin_degeneracy is None:
+            object.__setattr__(self, "spin_degeneracy", 2 if self.norbs == 1 else 1)
+        if self.spin_degeneracy not in (1, 2):
+            raise GeometryError(
+                f"spin_degeneracy must be 1 (explicit spin orbitals) or 2 (spinless model), got "
+                f"{self.spin_degeneracy!r}"
+            )
         ham = sp.csr_matrix(self.hamiltonian, dtype=complex)
         object.__setattr__(self, "hamiltonian", ham)
         object.__setattr__(self, "positions", np.asarray(self.positions, dtype=float).reshape(-1, 2))

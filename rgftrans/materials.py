@@ -10,8 +10,9 @@ tight-binding model needs:
   discretisation on a lattice of spacing a;
 * :func:`fermi_energy_meV` and :func:`fermi_wavelength_nm` for a
   spin-degenerate 2DEG of given sheet density;
-* :data:`CONDUCTANCE_QUANTUM_S` and :func:`conductance_siemens`,
-  G = (2e²/h) T.
+* :data:`CONDUCTANCE_QUANTUM_S`, :func:`conductance_g0` and
+  :func:`conductance_siemens`: G = (g_s e²/h) T with g_s = 2 for a spinless
+  model and 1 when the spin orbitals are explicit.
 
 All physical constants come from :mod:`scipy.constants` (CODATA; e and h are
 exact in the 2019 SI).  Units: masses in units of the free-electron mass
@@ -34,6 +35,7 @@ __all__ = [
     "CONDUCTANCE_QUANTUM_S",
     "MATERIALS",
     "Material",
+    "conductance_g0",
     "conductance_siemens",
     "fermi_energy_meV",
     "fermi_wavelength_nm",
@@ -248,20 +250,59 @@ def hopping_meV(m_eff: float, a_nm: float) -> float:
     return t_joule / _MEV
 
 
-def conductance_siemens(transmission: float | np.ndarray) -> float | np.ndarray:
-    """Landauer conductance G = (2e²/h) T of a spin-degenerate conductor.
+def _check_spin_degeneracy(spin_degeneracy) -> int:
+    if spin_degeneracy not in (1, 2) or isinstance(spin_degeneracy, bool):
+        raise MaterialError(
+            f"spin_degeneracy must be 1 (explicit spin orbitals, T counts both spins) or 2 (spinless model, "
+            f"T per spin), got {spin_degeneracy!r}"
+        )
+    return int(spin_degeneracy)
+
+
+def conductance_g0(transmission, spin_degeneracy: int = 2):
+    """Landauer conductance in units of 2e²/h: G / (2e²/h) = (g_s / 2) T.
+
+    A spinless model's transmission is per spin and stands for both spins
+    (g_s = 2, G = (2e²/h) T); with explicit spin orbitals the transmission
+    already counts both spins (g_s = 1, G = (e²/h) T), so a clean wire gives
+    the same conductance either way (Landauer-Büttiker; common practice, no
+    source).
 
     Parameters
     ----------
     transmission : float or ndarray
-        Total transmission T summed over channels, per spin direction.
+        Total transmission T summed over channels.
+    spin_degeneracy : {1, 2}
+        :attr:`rgftrans.device.TightBindingModel.spin_degeneracy`.
+
+    Returns
+    -------
+    G : float or ndarray, 2e²/h
+
+    Examples
+    --------
+    >>> float(conductance_g0(2.0, 1)), float(conductance_g0(2.0, 2))
+    (1.0, 2.0)
+    """
+    return np.multiply(transmission, 0.5 * _check_spin_degeneracy(spin_degeneracy))
+
+
+def conductance_siemens(transmission: float | np.ndarray, spin_degeneracy: int = 2) -> float | np.ndarray:
+    """Landauer conductance G = (g_s e²/h) T in siemens (see :func:`conductance_g0`).
+
+    Parameters
+    ----------
+    transmission : float or ndarray
+        Total transmission T summed over channels.
+    spin_degeneracy : {1, 2}
+        2 for a spinless model (T per spin), 1 with explicit spin orbitals.
 
     Returns
     -------
     G : float or ndarray, S
         Same shape as ``transmission``.
     """
-    return np.multiply(transmission, CONDUCTANCE_QUANTUM_S)
+    return conductance_g0(transmission, spin_degeneracy) * CONDUCTANCE_QUANTUM_S
 
 
 def fermi_energy_meV(density_cm2: float, m_eff: float) -> float:

@@ -176,8 +176,8 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
                 ax=None):
     """Conductance from a result file: lines, a map over (axis, energy), or a map over two axes at one energy.
 
-    Points not yet computed are left blank.  Conductance is ``(2e^2/h) T``
-    from ``lead_in`` (default: the first lead) into ``lead_out`` (default:
+    Points not yet computed are left blank.  Conductance at zero temperature
+    is ``(g_s e^2/h) T`` (g_s = 2 spinless, 1 with spin orbitals) from ``lead_in`` (default: the first lead) into ``lead_out`` (default:
     the second).
     """
     from .errors import RgftransError
@@ -195,7 +195,7 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
 
     q_in = pick(lead_in, 0)
     p_out = pick(lead_out, 1 if len(names) > 1 else 0)
-    trans = data.quantities["transmission"][..., p_out, q_in]
+    trans = data.quantities["transmission"][..., p_out, q_in] * (0.5 * data.require_attr("spin_degeneracy", "whether the transmission is per spin"))
     label = f"G ({names[q_in]} → {names[p_out]}) (2e²/h)"
     energies = data.energies_meV
     axes = list(data.axes)

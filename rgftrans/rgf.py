@@ -25,7 +25,7 @@ import numpy as np
 from .device import TightBindingModel, check_resolution
 from .errors import EnergyError, LeadError, ThresholdWarning
 from .leads import lead_modes
-from .materials import CONDUCTANCE_QUANTUM_S
+from .materials import CONDUCTANCE_QUANTUM_S, conductance_g0
 from .slicing import Slicing, slice_layers
 
 __all__ = [
@@ -48,6 +48,10 @@ class TransmissionResult:
     at_threshold : (n_E,) bool ndarray
         Energies that sat on a channel threshold and were moved off it.
     lead_names : tuple of str
+    spin_degeneracy : {1, 2}
+        2 for a spinless model (each channel stands for both spins), 1 when
+        the model has explicit spin orbitals (``transmission`` then counts
+        both spins); see :attr:`TightBindingModel.spin_degeneracy`.
     """
 
     energies: np.ndarray
@@ -55,16 +59,22 @@ class TransmissionResult:
     n_open: np.ndarray
     at_threshold: np.ndarray
     lead_names: tuple
+    spin_degeneracy: int = 2
 
     @property
     def conductance_g0(self) -> np.ndarray:
-        """Zero-temperature conductance in units of 2e^2/h (spin-degenerate)."""
-        return self.transmission
+        """Zero-temperature conductance in units of 2e^2/h: ``(g_s / 2) T`` (Landauer-Büttiker).
+
+        A spinless model's T is per spin (G = (2e^2/h) T); with explicit spin
+        orbitals T counts both spins (G = (e^2/h) T), so a clean wire gives the
+        same G either way (common practice, no source).
+        """
+        return conductance_g0(self.transmission, self.spin_degeneracy)
 
     @property
     def conductance_siemens(self) -> np.ndarray:
-        """Zero-temperature conductance in siemens (spin-degenerate), 2e^2/h from scipy.constants."""
-        return self.transmission * CONDUCTANCE_QUANTUM_S
+        """Zero-temperature conductance in siemens, ``(g_s e^2/h) T`` (e, h from scipy.constants)."""
+        return self.conductance_g0 * CONDUCTANCE_QUANTUM_S
 
 
 def check_energies(energies) -> np.ndarray:
@@ -236,6 +246,7 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
         n_open=n_open,
         at_threshold=flagged,
         lead_names=tuple(lead.name for lead in model.leads),
+        spin_degeneracy=model.spin_degeneracy,
     )
 
 
@@ -466,6 +477,8 @@ class TransmissionMatrixResult:
     n_open : (n_E, n_leads) int ndarray
     at_threshold : (n_E,) bool ndarray
     lead_names : tuple of str
+    spin_degeneracy : {1, 2}
+        As in :class:`TransmissionResult`.
     """
 
     energies: np.ndarray
@@ -473,16 +486,18 @@ class TransmissionMatrixResult:
     n_open: np.ndarray
     at_threshold: np.ndarray
     lead_names: tuple
+    spin_degeneracy: int = 2
 
     def conductance_matrix(self) -> np.ndarray:
         """Büttiker conductance matrix in units of 2e^2/h, shape (n_E, n_leads, n_leads).
 
-        ``I_p = (2e^2/h) sum_q (N_p delta_pq - T_pq) V_q`` (M. Büttiker,
-        Phys. Rev. Lett. 57, 1761 (1986), from memory), with ``T_pp = R_pp``.
+        ``I_p = (g_s e^2/h) sum_q (N_p delta_pq - T_pq) V_q`` (M. Büttiker,
+        Phys. Rev. Lett. 57, 1761 (1986), from memory), with ``T_pp = R_pp``
+        and ``g_s`` the spin degeneracy (2 spinless, 1 with spin orbitals).
         Multiply by :data:`rgftrans.materials.CONDUCTANCE_QUANTUM_S` for siemens.
         """
         eye = np.eye(len(self.lead_names))
-        return self.n_open[:, :, None] * eye - self.transmission
+        return conductance_g0(self.n_open[:, :, None] * eye - self.transmission, self.spin_degeneracy)
 
 
 def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
@@ -526,7 +541,8 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
                 trans[k, p, q] = t
     _warn_thresholds(energies, flagged)
     return TransmissionMatrixResult(energies=energies, transmission=trans, n_open=n_open,
-                                    at_threshold=flagged, lead_names=tuple(l.name for l in model.leads))
+                                    at_threshold=flagged, lead_names=tuple(l.name for l in model.leads),
+                                    spin_degeneracy=model.spin_degeneracy)
 
 
 def four_terminal_resistance(conductance: np.ndarray, current: tuple[int, int], voltage: tuple[int, int]) -> float:
@@ -547,8 +563,6 @@ def four_terminal_resistance(conductance: np.ndarray, current: tuple[int, int], 
     conductance matrix are inverted (Büttiker 1986, from memory).  With
     ``r, s = p, q`` this is the two-terminal resistance.
     """
-    from .materials import CONDUCTANCE_QUANTUM_S
-
     g = np.asarray(conductance, dtype=float)
     n = g.shape[0]
     p, q = current

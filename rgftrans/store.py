@@ -9,11 +9,12 @@
 * :func:`validate` checks a file and raises :class:`StoreError` with one line;
 * :func:`summary` is the human description shown by ``rgftrans info``.
 
-Layout (schema version 1)
+Layout (schema version 2)
 -------------------------
 ::
 
-    /                       attrs: format="rgftrans-result", schema_version, created, config_hash
+    /                       attrs: format="rgftrans-result", schema_version, created, config_hash, plus
+                            the writer's own scalar attributes (e.g. spin_degeneracy, fermi_energy_meV)
     ├── config              scalar UTF-8 string, the TOML text of the sweep
     ├── provenance/         attrs: rgftrans, numpy, scipy, numba, h5py, hdf5, python, hostname, platform
     ├── results/            attrs: parameter_axes, quantities (space-separated names), coordinates="lead_name"
@@ -21,7 +22,9 @@ Layout (schema version 1)
     │   ├── energy          (n_E,) float64 meV, dimension scale, always the last sweep axis
     │   ├── lead            (n_leads,) int64 lead index, dimension scale
     │   ├── lead_name       (n_leads,) UTF-8 string on dim ``lead``
-    │   ├── <tail dim> ...  (size,) int64 index, dimension scale (e.g. lead_out, lead_in)
+    │   ├── <tail dim> ...  (size,) int64 index, dimension scale (e.g. lead_out, lead_in), or the
+    │   │                   dimension's own values with units (e.g. temperature in K), listed in
+    │   │                   the attribute ``tail_coordinates`` of /results
     │   ├── <quantity> ...  (*axis sizes, n_E, *tail sizes), one parameter point per chunk,
     │   │                   NaN (floats, complex) or -1 (ints) until written
     │   └── completed       (*axis sizes,) bool, False until the point is written
@@ -82,7 +85,7 @@ __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "Axis", "QuantitySpec", "ResultData"
 #: Value of the root ``format`` attribute that marks a file as ours.
 FORMAT_NAME = "rgftrans-result"
 #: Layout version written by this module; files of any other version are refused.
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # 2: writer attributes (spin degeneracy) and valued trailing dimensions
 
 #: Name, units and long name of the energy axis, always the last sweep axis.
 ENERGY_NAME = "energy"
@@ -96,6 +99,8 @@ LEAD_NAME = "lead_name"
 COMPLETED = "completed"
 #: Names a user axis, dimension, quantity or extra may not take.
 _RESERVED = frozenset({ENERGY_NAME, LEAD_DIM, LEAD_NAME, COMPLETED})
+#: Root attributes the layout itself writes; the writer's own attributes may not take these names.
+_ROOT_ATTRS = frozenset({"format", "schema_version", "created", "config_hash"})
 #: Identifiers: usable as HDF5 names, netCDF dimensions and xarray attribute access.
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 #: Units of dimensionless numbers (CF convention) and of text.
@@ -251,6 +256,7 @@ class _Layout:
     specs: dict
     extras: dict  # group -> tuple of dataset names
     config_hash: str
+    coordinates: dict  # trailing dimension name -> Axis of its values
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -340,6 +346,12 @@ def _read_layout(f: h5py.File, path) -> _Layout:
             )
         specs[name] = _rebuilt(path, QuantitySpec, shape_tail=tuple(zip(dims[n_lead:], ds.shape[n_lead:])),
                                dtype=ds.dtype, units=text(ds, "units"), long_name=text(ds, "long_name"))
+    coordinates = {}
+    for name in (_attr_text(g, "tail_coordinates") or "").split():
+        if name not in g or not isinstance(g[name], h5py.Dataset):
+            raise missing(f"dataset /{RESULTS_GROUP}/{name} (values of a trailing dimension)")
+        coordinates[name] = _rebuilt(path, Axis, name, g[name][()], text(g[name], "units"),
+                                     text(g[name], "long_name"))
     extras = {}
     if EXTRAS_GROUP in f:
         for group_name, grp in f[EXTRAS_GROUP].items():
@@ -348,7 +360,7 @@ def _read_layout(f: h5py.File, path) -> _Layout:
             for name in extras[group_name]:
                 if name not in grp or grp[name].shape[: len(shape)] != shape:
                     raise missing(f"extra /{EXTRAS_GROUP}/{group_name}/{name} (or it has the wrong shape)")
-    return _Layout(axes, energies, lead_names, specs, extras, _attr_text(f, "config_hash"))
+    return _Layout(axes, energies, lead_names, specs, extras, _attr_text(f, "config_hash"), coordinates)
 
 
 def _one_line(exc: BaseException) -> str:
@@ -454,6 +466,42 @@ def _provenance() -> dict[str, str]:
     return info
 
 
+def _check_attrs(attrs) -> dict:
+    """The writer's own root attributes: identifiers mapped to a str, bool, int or finite float."""
+    out = {}
+    for key, value in dict(attrs or {}).items():
+        _check_name(key, "attribute")
+        if key in _ROOT_ATTRS:
+            raise StoreError(f"attribute {key!r} is written by the file layout itself; choose another name")
+        if isinstance(value, (bool, np.bool_)):
+            value = bool(value)
+        elif isinstance(value, (int, np.integer)):
+            value = np.int64(value)
+        elif isinstance(value, (float, np.floating)):
+            value = float(value)  # NaN allowed: "not known"
+        elif not isinstance(value, str):
+            raise StoreError(f"attribute {key!r} = {value!r} must be a str, bool, int or float")
+        out[key] = value
+    return out
+
+
+def _check_coordinates(coordinates, tail_sizes) -> dict:
+    """Values of trailing dimensions: each an Axis named like the dimension and of its size."""
+    out = {}
+    for dim, axis in dict(coordinates or {}).items():
+        if not isinstance(axis, Axis) or axis.name != dim:
+            raise StoreError(f"coordinates[{dim!r}] must be an Axis named {dim!r}; wrap the values in store.Axis")
+        if dim not in tail_sizes:
+            raise StoreError(f"coordinates name a dimension {dim!r} no quantity has; drop it or add the quantity")
+        if _is_lead_dim(dim):
+            raise StoreError(f"dimension {dim!r} counts leads and takes no values; drop it from coordinates")
+        if axis.size != tail_sizes[dim]:
+            raise StoreError(f"coordinates[{dim!r}] has {axis.size} values but the dimension has size "
+                             f"{tail_sizes[dim]}; give one value per entry")
+        out[dim] = axis
+    return out
+
+
 def _check_sweep(axes, energies_meV, lead_names, quantities):
     axes = list(axes)
     for axis in axes:
@@ -504,12 +552,15 @@ def _check_sweep(axes, energies_meV, lead_names, quantities):
     return axes, energies, lead_names, tail_sizes
 
 
-def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, quantities, tail_sizes):
+def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, quantities, tail_sizes,
+           attrs, coordinates):
     with h5py.File(path, "w") as f:
         f.attrs["format"] = FORMAT_NAME
         f.attrs["schema_version"] = np.int64(SCHEMA_VERSION)
         f.attrs["created"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
         f.attrs["config_hash"] = config_hash
+        for key, value in attrs.items():
+            f.attrs[key] = value
         cfg = f.create_dataset("config", data=config_text, dtype=h5py.string_dtype("utf-8"))
         _annotate(cfg, _TEXT_UNITS, "sweep configuration (TOML)")
         cfg.attrs["media_type"] = "application/toml"
@@ -527,7 +578,10 @@ def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, 
         names = g.create_dataset(LEAD_NAME, data=list(lead_names), dtype=h5py.string_dtype("utf-8"))
         _annotate(names, _TEXT_UNITS, "lead name")
         _attach(names, [lead])
-        tail_scales = {dim: _index_scale(g, dim, size) for dim, size in tail_sizes.items()}
+        tail_scales = {dim: (_scale(g, dim, coordinates[dim].values, coordinates[dim].units,
+                                    coordinates[dim].long_name) if dim in coordinates else _index_scale(g, dim, size))
+                       for dim, size in tail_sizes.items()}
+        g.attrs["tail_coordinates"] = " ".join(coordinates)
 
         shape = tuple(axis.size for axis in axes)
         for qname, spec in quantities.items():
@@ -574,6 +628,7 @@ class ResultFile:
         self.energies_meV = layout.energies_meV
         self.lead_names = layout.lead_names
         self.quantities = layout.specs
+        self.coordinates = layout.coordinates
         self.config_hash = layout.config_hash
         self.shape = layout.shape
 
@@ -588,6 +643,8 @@ class ResultFile:
         energies_meV,
         lead_names: Sequence[str],
         quantities: Mapping[str, QuantitySpec],
+        coordinates: Mapping[str, Axis] | None = None,
+        attrs: Mapping[str, object] | None = None,
         overwrite: bool = False,
     ) -> ResultFile:
         """Lay out a new result file with every point pending and open it for writing.
@@ -606,6 +663,11 @@ class ResultFile:
         lead_names : list of str
         quantities : dict of str to QuantitySpec
             Stored per point with shape ``(n_E, *tail)``.
+        coordinates : dict of str to Axis, optional
+            Values (with units) of trailing dimensions that are not mere
+            indices, e.g. ``{"temperature": Axis("temperature", [0.1, 1.0], "K", ...)}``.
+        attrs : dict of str to str, bool, int or float, optional
+            The writer's own scalar root attributes (e.g. ``spin_degeneracy``).
         overwrite : bool
             Replace an existing file at ``path``; otherwise an existing file is an error.
         """
@@ -615,6 +677,8 @@ class ResultFile:
             if not isinstance(config_hash, str) or not config_hash:
                 raise StoreError(f"config_hash {config_hash!r} must be a non-empty string; pass the config's hash")
             axes, energies, lead_names, tail_sizes = _check_sweep(axes, energies_meV, lead_names, quantities)
+            coordinates = _check_coordinates(coordinates, tail_sizes)
+            attrs = _check_attrs(attrs)
         except StoreError as exc:  # name the file the sweep was going to write
             raise StoreError(f"{path}: {exc}") from None
         if not path.parent.is_dir():
@@ -629,7 +693,8 @@ class ResultFile:
         tmp = path.with_name(f".{path.name}.{os.getpid()}.partial")
         try:
             _build(tmp, config_text=config_text, config_hash=config_hash, axes=axes, energies=energies,
-                   lead_names=lead_names, quantities=dict(quantities), tail_sizes=tail_sizes)
+                   lead_names=lead_names, quantities=dict(quantities), tail_sizes=tail_sizes, attrs=attrs,
+                   coordinates=coordinates)
             os.replace(tmp, path)
         finally:
             tmp.unlink(missing_ok=True)
@@ -864,13 +929,17 @@ class ResultData:
     quantities : dict of str to ndarray
         ``(*axis sizes, n_E, *tail)``; NaN (or -1) where not yet written.
     quantity_specs : dict of str to QuantitySpec
+    coordinates : dict of str to Axis
+        Values of the trailing dimensions that have them (e.g. ``temperature``, K).
     completed : (*axis sizes) bool ndarray
     extras : dict of str to dict of str to ndarray
         ``extras[group][name]``, shaped ``(*axis sizes, *per-point shape)``.
     config_text, config_hash, created : str
     schema_version : int
     attrs : dict
-        Root attributes.
+        Root attributes, with the writer's own (a sweep writes ``spin_degeneracy``:
+        2 for a spinless model, 1 with explicit spin orbitals; and
+        ``fermi_energy_meV``, NaN when the config gives no density).
     provenance : dict of str to str
         Versions, host and platform of the writing process.
     """
@@ -887,12 +956,20 @@ class ResultData:
     config_hash: str
     created: str
     schema_version: int
+    coordinates: dict = field(default_factory=dict)
     attrs: dict = field(default_factory=dict)
     provenance: dict = field(default_factory=dict)
 
     @property
     def shape(self) -> tuple[int, ...]:
         return tuple(axis.size for axis in self.axes)
+
+    def require_attr(self, name: str, what: str):
+        """The root attribute ``name``; a one-line StoreError saying ``what`` it is for if the file lacks it."""
+        if name not in self.attrs:
+            raise StoreError(f"{self.path}: has no attribute {name!r} ({what}); it was not written by an rgftrans "
+                             f"sweep of this version -- rerun the sweep with --overwrite")
+        return self.attrs[name]
 
 
 def _plain(value):
@@ -926,6 +1003,7 @@ def read_result(path) -> ResultData:
             config_hash=layout.config_hash,
             created=_attr_text(f, "created"),
             schema_version=SCHEMA_VERSION,
+            coordinates=layout.coordinates,
             attrs={k: _plain(v) for k, v in f.attrs.items()},
             provenance={k: _plain(v) for k, v in f["provenance"].attrs.items()},
         )
@@ -965,6 +1043,7 @@ def summary(path) -> str:
     with _reading(path) as (f, layout):
         completed = np.asarray(f[RESULTS_GROUP][COMPLETED][()], dtype=bool)
         prov = {k: _plain(v) for k, v in f["provenance"].attrs.items()}
+        own = {k: _plain(v) for k, v in f.attrs.items() if k not in _ROOT_ATTRS}
         created = _attr_text(f, "created")
         shapes = {name: f[RESULTS_GROUP][name].shape for name in layout.specs}
         extras = [(f"{grp}/{name}", f[EXTRAS_GROUP][grp][name].shape, f[EXTRAS_GROUP][grp][name].dtype,
@@ -985,6 +1064,11 @@ def summary(path) -> str:
     for name, size, span, units, long_name in rows:
         lines.append(f"    {name:<{width}}  {size:>6} points  {span} {units}  ({long_name})")
     lines.append(f"  leads: {', '.join(layout.lead_names)}")
+    for name, axis in layout.coordinates.items():
+        lines.append(f"  {name}: {', '.join(f'{v:g}' for v in axis.values)} {axis.units}  ({axis.long_name})")
+    if own:
+        lines.append("  attributes: " + ", ".join(f"{k} = {v:g}" if isinstance(v, float) else f"{k} = {v}"
+                                                  for k, v in own.items()))
     lines.append("  quantities:")
     width = max(len(name) for name in layout.specs)
     for name, spec in layout.specs.items():

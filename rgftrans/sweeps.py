@@ -33,7 +33,8 @@ from .config import RunConfig
 from .errors import ComputationFailed, RgftransError
 from .store import Axis, QuantitySpec, ResultFile, StoreError
 
-__all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name"]
+__all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name", "sweep_temperatures",
+           "stored_conductance"]
 
 #: Environment that pins each worker process to one BLAS/OpenMP thread.
 _ONE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
@@ -79,14 +80,49 @@ def axis_dataset_name(parameter: str) -> str:
     return parameter.replace(".", "__").replace("-", "_")
 
 
-def _quantities(n_leads: int) -> dict[str, QuantitySpec]:
+#: Name of the trailing dimension of the stored conductances.
+TEMPERATURE_DIM = "temperature"
+_CONDUCTANCE_TEXT = ("at chemical potential mu = energy and the listed temperature, from lead_in into lead_out "
+                     "(diagonal: total conductance out of the lead, N - R); NaN where the energy grid does not "
+                     "hold the thermal window")
+
+
+def _quantities(n_leads: int, n_temperatures: int) -> dict[str, QuantitySpec]:
+    pair = (("lead_out", n_leads), ("lead_in", n_leads))
+    with_t = ((TEMPERATURE_DIM, n_temperatures), *pair)
     return {
-        "transmission": QuantitySpec(shape_tail=(("lead_out", n_leads), ("lead_in", n_leads)),
-                                     units="1",
+        "transmission": QuantitySpec(shape_tail=pair, units="1",
                                      long_name="transmission from lead_in into lead_out (diagonal: reflection)"),
         "n_open": QuantitySpec(shape_tail=(("lead", n_leads),), dtype=np.int64, units="1",
                                long_name="open channels of each lead"),
+        "conductance": QuantitySpec(shape_tail=with_t, units="2e^2/h",
+                                    long_name=f"conductance in units of 2e^2/h {_CONDUCTANCE_TEXT}"),
+        "conductance_S": QuantitySpec(shape_tail=with_t, units="S",
+                                      long_name=f"conductance in siemens {_CONDUCTANCE_TEXT}"),
     }
+
+
+def sweep_temperatures(cfg: RunConfig) -> np.ndarray:
+    """Temperatures (K) of the stored conductances: the config's [temperature] list, else 0 K alone."""
+    temps = cfg.temperatures()
+    return temps if temps.size else np.zeros(1)
+
+
+def stored_conductance(cfg: RunConfig, transmission: np.ndarray, n_open: np.ndarray,
+                       spin_degeneracy: int) -> dict[str, np.ndarray]:
+    """The conductance quantities of one point from its transmission matrix (n_E, n_leads, n_leads).
+
+    Off the diagonal G_pq = (g_s e^2/h) <T_pq>_T, on it (g_s e^2/h) <N_p - R_pp>_T, thermally averaged
+    at each grid energy as the chemical potential (:func:`rgftrans.thermal.conductance_on_grid`).
+    """
+    from .materials import CONDUCTANCE_QUANTUM_S
+    from .thermal import conductance_on_grid
+
+    pair = np.array(transmission, dtype=float)
+    idx = np.arange(pair.shape[1])
+    pair[:, idx, idx] = n_open - pair[:, idx, idx]
+    g = conductance_on_grid(cfg.energies(), pair, sweep_temperatures(cfg), spin_degeneracy=spin_degeneracy)
+    return {"conductance": g, "conductance_S": g * CONDUCTANCE_QUANTUM_S}
 
 
 # --------------------------------------------------------------------------
@@ -99,8 +135,9 @@ _WORKER_SLICING: dict = {}
 def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarray]:
     """Compute one grid point (runs in a worker).
 
-    Returns the arrays of the point: ``transmission`` (n_E, n_leads, n_leads)
-    and ``n_open`` (n_E, n_leads), plus ``ldos`` (n_ldos, n_sites) when the
+    Returns the arrays of the point: ``transmission`` (n_E, n_leads, n_leads),
+    ``n_open`` (n_E, n_leads), ``conductance`` and ``conductance_S``
+    (n_E, n_T, n_leads, n_leads), plus ``ldos`` (n_ldos, n_sites) when the
     config asks for LDOS maps.  The slicing of a geometry is reused across
     points that change only potentials or the field (same sparsity pattern).
     """
@@ -126,6 +163,7 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
     else:
         res = transmission_matrix(model, energies, slicing=slicing)
         out = {"transmission": res.transmission, "n_open": res.n_open}
+    out.update(stored_conductance(cfg, out["transmission"], out["n_open"], model.spin_degeneracy))
     ldos_e = cfg.ldos_energies()
     if len(ldos_e):
         out["ldos"] = np.atleast_2d(ldos(model, ldos_e))
@@ -187,12 +225,17 @@ class _Journal:
 # Driver side
 # --------------------------------------------------------------------------
 
-def _open_result(cfg: RunConfig, path: Path, overwrite: bool, journal: _Journal, n_leads: int) -> ResultFile:
+def _open_result(cfg: RunConfig, path: Path, overwrite: bool, journal: _Journal, model) -> ResultFile:
     axes = [Axis(axis_dataset_name(ax.name), np.asarray(ax.values, float), ax.units, ax.long_name)
             for ax in cfg.axes()]
+    temps = sweep_temperatures(cfg)
+    fermi = cfg.fermi_energy_meV
     create = dict(config_text=cfg.source_text or cfg.canonical_json(), config_hash=cfg.config_hash(), axes=axes,
                   energies_meV=cfg.energies(), lead_names=[lead.name for lead in cfg.leads],
-                  quantities=_quantities(n_leads))
+                  quantities=_quantities(len(model.leads), temps.size),
+                  coordinates={TEMPERATURE_DIM: Axis(TEMPERATURE_DIM, temps, "K", "electron temperature")},
+                  attrs={"spin_degeneracy": model.spin_degeneracy,
+                         "fermi_energy_meV": float("nan") if fermi is None else float(fermi)})
     if overwrite:
         journal.remove()
         return ResultFile.create(path, overwrite=True, **create)
@@ -336,7 +379,7 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
     # Validate the device up front: a bad geometry fails here, before any file or process exists.
     model = cfg.build_device(cfg.base_point()).discretise()
     journal = _Journal(path, cfg.config_hash())
-    rf = _open_result(cfg, path, overwrite, journal, len(model.leads))
+    rf = _open_result(cfg, path, overwrite, journal, model)
     try:
         journal.open()
         _replay(rf, journal)

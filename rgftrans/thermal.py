@@ -2,10 +2,13 @@
 
 * :func:`thermal_energy_meV`: k_B T in meV;
 * :func:`fermi` and :func:`fermi_window`: f(E) and the thermal window -df/dE;
-* :func:`thermal_conductance`: G(mu, T) = ∫ T(E) (-df/dE) dE in units of 2e²/h,
-  returned as a :class:`ThermalConductanceResult`;
-* :func:`landauer_current`: I = (2e/h) ∫ T(E) [f_source(E) - f_drain(E)] dE in
+* :func:`thermal_conductance`: G(mu, T) = (g_s / 2) ∫ T(E) (-df/dE) dE in units
+  of 2e²/h, returned as a :class:`ThermalConductanceResult`;
+* :func:`landauer_current`: I = (g_s e/h) ∫ T(E) [f_source(E) - f_drain(E)] dE in
   amperes at finite bias, returned as a :class:`CurrentResult`.
+
+g_s is the spin degeneracy of the model: 2 for a spinless model (T per spin),
+1 when the spin orbitals are explicit (T counts both spins).
 
 How the integrals are done
 --------------------------
@@ -27,7 +30,7 @@ grid spacing, and T -> 0 goes continuously to T_lin(mu).  Constant or linear
 transmission is integrated exactly.
 
 Units: energies and chemical potentials in meV, temperature in K, bias in V,
-current in A, conductance in 2e²/h (spin-degenerate) and S.  k_B, e and h come
+current in A, conductance in 2e²/h and S.  k_B, e and h come
 from :mod:`scipy.constants` (CODATA; e and h exact in the 2019 SI).
 
 References
@@ -47,12 +50,13 @@ from scipy import constants
 from scipy.special import expit
 
 from rgftrans.errors import EnergyError, ResolutionWarning, RgftransError
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S
+from rgftrans.materials import CONDUCTANCE_QUANTUM_S, conductance_g0
 
 __all__ = [
     "BOLTZMANN_MEV_PER_K",
     "CurrentResult",
     "ThermalConductanceResult",
+    "conductance_on_grid",
     "fermi",
     "fermi_window",
     "landauer_current",
@@ -398,7 +402,7 @@ class ThermalConductanceResult:
         Chemical potentials, in the shape they were given.
     temperature_K : float, K
     conductance_g0 : ndarray
-        G = ∫ T(E) (-df/dE) dE in units of 2e²/h, same shape as ``mu``.
+        G = (g_s / 2) ∫ T(E) (-df/dE) dE in units of 2e²/h, same shape as ``mu``.
     window_weight : ndarray
         Weight of -df/dE inside the energy grid, same shape as ``mu``: 1 when the
         grid covers the window (to 8e-18 at ± 40 k_B T), less when part of it was
@@ -421,8 +425,9 @@ class ThermalConductanceResult:
         return self.conductance_g0 * CONDUCTANCE_QUANTUM_S
 
 
-def thermal_conductance(energies, transmission, mu, temperature_K, *, check: bool = True):
-    """Linear-response conductance at temperature T, G(mu, T) = ∫ T(E) (-df/dE) dE.
+def thermal_conductance(energies, transmission, mu, temperature_K, *, spin_degeneracy: int = 2,
+                        check: bool = True):
+    """Linear-response conductance at temperature T, G(mu, T) = (g_s e²/h) ∫ T(E) (-df/dE) dE.
 
     The transmission is taken as the piecewise-linear interpolant of its
     samples (zero outside the grid) and integrated in closed form against the
@@ -437,11 +442,15 @@ def thermal_conductance(energies, transmission, mu, temperature_K, *, check: boo
     energies : (n_E,) float ndarray, meV
         Strictly increasing; any spacing.
     transmission : (n_E,) float ndarray
-        Total transmission (per spin) at those energies.
+        Total transmission at those energies (per spin for a spinless model).
     mu : float or ndarray, meV
         Chemical potential(s); the result has the same shape.
     temperature_K : float, K
         At 0 K the result is T_lin(mu) (0 off the grid), the limit T -> 0.
+    spin_degeneracy : {1, 2}, keyword-only
+        2 (default) for a spinless model, whose T is per spin; 1 for a model
+        with explicit spin orbitals, whose T counts both spins
+        (:attr:`rgftrans.device.TightBindingModel.spin_degeneracy`).
     check : bool, keyword-only
         Warn (:class:`~rgftrans.errors.ResolutionWarning`) if the grid does not
         cover mu ± 20 k_B T or is coarser than k_B T / 2 inside that window.
@@ -465,6 +474,7 @@ def thermal_conductance(energies, transmission, mu, temperature_K, *, check: boo
     0.5
     """
     e, t = _check_grid(energies, transmission)
+    t = conductance_g0(t, spin_degeneracy)  # from here on in units of 2e²/h
     m = _check_mu(mu)
     temperature_K = _check_temperature(temperature_K)
     kT = BOLTZMANN_MEV_PER_K * temperature_K
@@ -499,6 +509,69 @@ def thermal_conductance(energies, transmission, mu, temperature_K, *, check: boo
     )
 
 
+#: Stored finite-temperature conductances need the energy grid to hold all but this fraction of the
+#: window -df/dE (about 14 k_B T on each side of mu); elsewhere they are NaN rather than a truncated
+#: integral.  The missing weight bounds the relative error of G by N_max / G, i.e. 1e-6 per open channel.
+GRID_WINDOW_TOL = 1e-6
+
+
+def conductance_on_grid(energies, transmission, temperatures_K, *, spin_degeneracy: int = 2):
+    """Thermally averaged conductances G(mu, T) at every grid energy taken as the chemical potential.
+
+    For each temperature and each ``mu = energies[k]``, the same exact
+    integral of the piecewise-linear T(E) against -df/dE as
+    :func:`thermal_conductance`, for every trailing entry of
+    ``transmission`` at once (e.g. a transmission matrix).  Where the grid
+    holds less than ``1 - GRID_WINDOW_TOL`` of the thermal window the result
+    is NaN: a value there would be an integral cut off by the grid's end.
+
+    Parameters
+    ----------
+    energies : (n_E,) float ndarray, meV
+        Strictly increasing.
+    transmission : (n_E, ...) float ndarray
+    temperatures_K : (n_T,) float array_like, K
+        0 gives ``(g_s / 2) T(E)`` itself.
+    spin_degeneracy : {1, 2}, keyword-only
+        As in :func:`thermal_conductance`.
+
+    Returns
+    -------
+    (n_E, n_T, ...) float ndarray, 2e²/h
+        Multiply by :data:`rgftrans.materials.CONDUCTANCE_QUANTUM_S` for S.
+
+    Examples
+    --------
+    A constant transmission of 3 (spinless) gives 3 wherever the window fits
+    on the grid, and NaN near its ends:
+
+    >>> e = np.linspace(-1.0, 1.0, 201)
+    >>> g = conductance_on_grid(e, np.full(e.size, 3.0), [0.3])
+    >>> round(float(g[100, 0]), 12), bool(np.isnan(g[0, 0]))
+    (3.0, True)
+    """
+    e = np.asarray(energies, dtype=float)
+    t = np.asarray(transmission, dtype=float)
+    if e.ndim != 1 or t.shape[:1] != e.shape:
+        raise RgftransError(f"transmission has shape {t.shape}; its first axis must match the {e.size} energies")
+    _check_grid(e, t.reshape(e.size, -1)[:, 0])
+    temps = [_check_temperature(v) for v in np.atleast_1d(temperatures_K)]
+    flat = conductance_g0(t.reshape(e.size, -1), spin_degeneracy)
+    out = np.full((e.size, len(temps), flat.shape[1]), np.nan)
+    dt = np.diff(flat, axis=0)
+    for j, temperature in enumerate(temps):
+        kT = BOLTZMANN_MEV_PER_K * temperature
+        if kT == 0.0:
+            out[:, j] = flat
+            continue
+        covered = _weight_outside(e, e, kT) <= GRID_WINDOW_TOL
+        for k in np.flatnonzero(covered):
+            i0, i1 = _window_slice(e, e[k], kT, _CUTOFF_KT)
+            weight, rising = _window_weights(e[i0:i1 + 1], e[k], kT)
+            out[k, j] = weight @ flat[i0:i1] + rising @ dt[i0:i1]
+    return out.reshape(e.size, len(temps), *t.shape[1:])
+
+
 # --- Landauer current --------------------------------------------------------------------------------
 
 
@@ -521,7 +594,7 @@ class CurrentResult:
     drop : str
         "symmetric" (mu ± eV/2) or "source" (source lifted by eV, drain at mu).
     current_A : ndarray, A
-        I = (2e/h) ∫ T(E) [f_source - f_drain] dE, same shape; positive when
+        I = (g_s e/h) ∫ T(E) [f_source - f_drain] dE, same shape; positive when
         electrons flow from source to drain at positive bias and T > 0.
     """
 
@@ -592,8 +665,8 @@ def _thermal_tail(energies, transmission, mu, kT):
 
 
 def landauer_current(energies, transmission, mu, bias_V, temperature_K, *, drop: str = "symmetric",
-                     check: bool = True):
-    """Landauer current I = (2e/h) ∫ T(E) [f_source(E) - f_drain(E)] dE at finite bias.
+                     spin_degeneracy: int = 2, check: bool = True):
+    """Landauer current I = (g_s e/h) ∫ T(E) [f_source(E) - f_drain(E)] dE at finite bias.
 
     The bias V moves the contacts to mu_source = mu + eV/2, mu_drain = mu - eV/2
     (``drop="symmetric"``) or mu_source = mu + eV, mu_drain = mu
@@ -614,6 +687,9 @@ def landauer_current(energies, transmission, mu, bias_V, temperature_K, *, drop:
     bias_V : float or ndarray, V
     temperature_K : float, K
     drop : {"symmetric", "source"}, keyword-only
+    spin_degeneracy : {1, 2}, keyword-only
+        2 (default) for a spinless model (T per spin, I = (2e/h) ∫ ...), 1
+        for explicit spin orbitals (T counts both spins, I = (e/h) ∫ ...).
     check : bool, keyword-only
         Warn (:class:`~rgftrans.errors.ResolutionWarning`) if the grid does not
         cover both contact windows ± 20 k_B T (at 0 K: the bias window), or is
@@ -637,6 +713,7 @@ def landauer_current(energies, transmission, mu, bias_V, temperature_K, *, drop:
     True
     """
     e, t = _check_grid(energies, transmission)
+    t = conductance_g0(t, spin_degeneracy)  # from here on in units of 2e²/h
     m = _check_mu(mu)
     temperature_K = _check_temperature(temperature_K)
     try:

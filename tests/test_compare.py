@@ -53,6 +53,8 @@ START = {"initial": {"lever_arm": 75.0, "offset": -0.1005}, "r_series_ohm": 3e3,
 LEADS = ["source", "drain"]
 SPEC = {"transmission": QuantitySpec(shape_tail=(("lead_out", 2), ("lead_in", 2)), units="1",
                                      long_name="transmission from lead_in into lead_out")}
+#: What a sweep writes beside the arrays: a spinless model (T per spin) and no Fermi energy.
+SWEEP_ATTRS = {"spin_degeneracy": 2, "fermi_energy_meV": float("nan")}
 
 
 def breit_wigner(e):
@@ -72,7 +74,8 @@ def energy_sweep(tmp_path_factory):
     """A stored energy sweep (no parameter axes) of the two Breit-Wigner peaks."""
     path = tmp_path_factory.mktemp("sweep") / "bw.h5"
     with ResultFile.create(path, config_text="# synthetic sweep\n", config_hash="synthetic-bw", axes=[],
-                           energies_meV=ENERGIES, lead_names=LEADS, quantities=SPEC) as rf:
+                           energies_meV=ENERGIES, lead_names=LEADS, quantities=SPEC,
+                           attrs=SWEEP_ATTRS) as rf:
         rf.write_point((), {"transmission": two_lead_matrix(breit_wigner(ENERGIES))})
     return path
 
@@ -85,7 +88,8 @@ def gate_sweep(tmp_path_factory):
     energies = np.linspace(-0.6, 0.6, 241)
     axis = Axis("vg_plunger", gates, "V", "plunger gate voltage")
     with ResultFile.create(path, config_text="# synthetic gate sweep\n", config_hash="synthetic-gate", axes=[axis],
-                           energies_meV=energies, lead_names=LEADS, quantities=SPEC) as rf:
+                           energies_meV=energies, lead_names=LEADS, quantities=SPEC,
+                           attrs=SWEEP_ATTRS) as rf:
         for j, g in enumerate(gates):
             rf.write_point((j,), {"transmission": two_lead_matrix(breit_wigner(energies + TRUTH["lever_arm"] * g))})
     return path
@@ -471,7 +475,8 @@ def test_axis_named_by_its_config_path(tmp_path):
     energies = np.linspace(-0.6, 0.6, 241)
     axis = Axis("gates__p__voltage_V", gates, "V", "plunger gate voltage")
     with ResultFile.create(path, config_text="# synthetic\n", config_hash="dotted", axes=[axis],
-                           energies_meV=energies, lead_names=LEADS, quantities=SPEC) as rf:
+                           energies_meV=energies, lead_names=LEADS, quantities=SPEC,
+                           attrs=SWEEP_ATTRS) as rf:
         for j, g in enumerate(gates):
             rf.write_point((j,), {"transmission": two_lead_matrix(breit_wigner(energies + 80.0 * g))})
     v = np.linspace(0.001, 0.009, 5)

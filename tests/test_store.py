@@ -192,7 +192,7 @@ def test_root_attributes_config_and_provenance(tmp_path):
     path = make_file(tmp_path / "a.h5", 1)
     with h5py.File(path, "r") as f:
         assert f.attrs["format"] == FORMAT_NAME
-        assert f.attrs["schema_version"] == SCHEMA_VERSION == 1
+        assert f.attrs["schema_version"] == SCHEMA_VERSION == 2
         assert f.attrs["config_hash"] == HASH
         assert f.attrs["created"].endswith("+00:00")  # ISO 8601 in UTC
         assert f["config"][()].decode("utf-8") == CONFIG  # variable-length UTF-8 string
@@ -437,7 +437,7 @@ def _directory(path):
         (_empty, "empty file"),
         (_foreign_hdf5, "not an rgftrans result file (no 'format' attribute)"),
         (_unknown_format, "format 'someone-elses-format'"),
-        (_future_schema, "written by schema version 7; this rgftrans reads version 1"),
+        (_future_schema, f"written by schema version 7; this rgftrans reads version {SCHEMA_VERSION}"),
         (_truncated, "damaged or truncated"),
         (_missing_dataset, "/results/completed is missing"),
     ],

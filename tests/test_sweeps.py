@@ -85,6 +85,38 @@ def test_grid_point_values_match_direct_transmission(tmp_path):
         assert np.allclose(t[:, 0, 0] + t[:, 1, 0], n[:, 0], atol=1e-9)
 
 
+def test_stored_conductance_per_temperature_and_spin(tmp_path):
+    """Stored G(mu = E, T) in 2e^2/h and S: the same for a spinless model and one with explicit spin orbitals.
+
+    Landauer-Büttiker (common practice, no source): G = (2e^2/h) T for a spinless model, (e^2/h) T when T
+    counts both spins; without Zeeman the two models describe the same wire.
+    """
+    from rgftrans.materials import CONDUCTANCE_QUANTUM_S
+    from rgftrans.thermal import thermal_conductance
+
+    temps = "[temperature]\nkelvin = [0.0, 0.5]\n"
+    plain = read_result(run_sweep(config(tmp_path, "plain.h5", n_e=40, extra=temps), quiet=True, workers=1).path)
+    spinful = read_result(run_sweep(config(tmp_path, "spin.h5", n_e=40, extra=temps
+                                           + "[spin]\nenabled = true\n[field]\nzeeman = false\n"),
+                                    quiet=True, workers=1).path)
+    assert (plain.attrs["spin_degeneracy"], spinful.attrs["spin_degeneracy"]) == (2, 1)
+    temp = plain.coordinates["temperature"]
+    assert list(temp.values) == [0.0, 0.5] and temp.units == "K"
+    g, g_spin = plain.quantities["conductance"], spinful.quantities["conductance"]
+    assert g.shape == (4, 2, 40, 2, 2, 2)  # (plunger, field, energy, temperature, lead_out, lead_in)
+    assert np.allclose(g_spin, g, rtol=0, atol=1e-9, equal_nan=True)
+    assert np.allclose(plain.quantities["conductance_S"], g * CONDUCTANCE_QUANTUM_S, rtol=1e-14, equal_nan=True)
+    t = plain.quantities["transmission"]
+    assert np.allclose(g[..., 0, 1, 0], t[..., 1, 0], atol=1e-12)  # 0 K: G = T (spinless)
+    assert np.allclose(g_spin[..., 0, 1, 0], spinful.quantities["transmission"][..., 1, 0] / 2, atol=1e-12)
+    # 0.5 K: the thermal average at the grid energies where the window fits, NaN near the grid's ends.
+    finite = np.isfinite(g[0, 0, :, 1, 1, 0])
+    assert finite[20] and not finite[0] and not finite[-1]
+    e = plain.energies_meV
+    ref = thermal_conductance(e, t[0, 0, :, 1, 0], e[finite], 0.5, check=False).conductance_g0
+    assert np.allclose(g[0, 0, finite, 1, 1, 0], ref, rtol=1e-12)
+
+
 def test_two_local_processes_give_the_same_file(tmp_path):
     one = read_result(run_sweep(config(tmp_path, "one.h5"), quiet=True, workers=1).path)
     two = read_result(run_sweep(config(tmp_path, "two.h5"), quiet=True, workers=2).path)
