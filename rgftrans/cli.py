@@ -48,16 +48,36 @@ def _refuse_waveguide(path) -> None:
                           f"'rgftrans waveguide {path}'")
 
 
+def _print_regime(cfg, device, model) -> None:
+    """The dot's regime (coherent or Coulomb blockade) in words, for continuum models with a material."""
+    from .regime import regime_estimate
+
+    if model.spacing_nm is None:  # lattice models in their own units: no charging-energy estimate
+        return
+    energies = cfg.energies()
+    temps = cfg.temperatures()
+    est = regime_estimate(device, model, fermi_energy_meV=cfg.fermi_energy_meV,
+                          temperature_K=float(temps.min()) if temps.size else 0.0,
+                          energy_window_meV=(float(energies[0]), float(energies[-1])), warn=False)
+    lines = est.lines()
+    print(f"  regime: {lines[0]}")
+    for line in lines[1:-1]:
+        print(f"    {line}")
+    print(f"    {'WARNING: ' if est.coulomb_blockade else ''}{est.verdict}")
+
+
 def _cmd_check(args) -> int:
     import numpy as np
 
     from .config import load_config
+    from .device import check_resolution
     from .rgf import layer_blocks, lead_self_energies
 
     _refuse_waveguide(args.config)
     cfg = load_config(args.config)
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
+    check_resolution(model, cfg.energies())  # the warning run would give, here before any computing
     blocks = layer_blocks(model)
     energies = cfg.energies()
     axes = cfg.axes()
@@ -77,6 +97,7 @@ def _cmd_check(args) -> int:
         print(f"  sweep axis {ax.name}: {len(ax.values)} values from {ax.values[0]:.4g} to {ax.values[-1]:.4g} "
               f"{ax.units}")
     print(f"  {n_points} parameter point(s) x {len(energies)} energies -> {cfg.output.path}")
+    _print_regime(cfg, device, model)
     if args.draw:
         import matplotlib
 
@@ -97,6 +118,9 @@ def _cmd_run(args) -> int:
 
     _refuse_waveguide(args.config)
     cfg = load_config(args.config)
+    device = cfg.build_device(cfg.base_point())
+    print(f"{args.config}: coherent single-particle transport (Landauer); no charging energy")
+    _print_regime(cfg, device, device.discretise())
     report = run_sweep(cfg, overwrite=args.overwrite or None, quiet=args.quiet, workers=args.workers,
                        address=args.cluster, path=args.output)
     print(f"{report.path}: {report.n_points} point(s), {report.n_computed} computed now, "

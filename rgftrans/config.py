@@ -87,7 +87,7 @@ from pydantic import (
 from rgftrans.device import Device, Lead
 from rgftrans.errors import GeometryError
 from rgftrans.fields import Disorder, MagneticField
-from rgftrans.gates import Gate, GateLayout, gates_from_gds
+from rgftrans.gates import MAX_GATE_VOLTAGE_V, Gate, GateLayout, gates_from_gds
 from rgftrans.geometry import Region, disk, polygon, rectangle
 from rgftrans.lattices import Lattice, honeycomb, square, triangular
 from rgftrans.materials import MATERIALS, Material, fermi_energy_meV
@@ -301,6 +301,11 @@ class LatticeSpec(_Table):
         return _LATTICES[self.kind](self.spacing_nm)
 
 
+def _implausible_voltage(name: str, volts: float) -> str:
+    return (f"gate {name!r} at {volts:g} V is outside +-{MAX_GATE_VOLTAGE_V:g} V, implausible for a surface gate; "
+            "voltages are in volts (write -0.5 for -500 mV)")
+
+
 class GateSpec(ShapeSpec):
     """One surface gate: a name, an outline in nm and a voltage in V."""
 
@@ -369,6 +374,10 @@ class GatesSpec(_Table):
                 if name in seen:
                     raise _problem(f"duplicate gate name, got {name!r} (also a [[gates.gate]]); "
                                    "give every gate its own name", f"gds.layers.{layer}")
+        where = {spec.name: f"gate[{k}].voltage_V" for k, spec in enumerate(self.gate)}
+        for name, volts in self.voltages().items():
+            if abs(volts) > MAX_GATE_VOLTAGE_V:
+                raise _problem(_implausible_voltage(name, volts), where.get(name, f"gds.voltages.{name}"))
         return self
 
     def names(self) -> list[str]:
@@ -405,11 +414,11 @@ class PotentialSpec(_Table):
 
 
 class FieldSpec(_Table):
-    """Perpendicular magnetic field (T), orbital (Peierls) and Zeeman parts."""
+    """Perpendicular magnetic field (T), orbital (Peierls) and Zeeman parts (Zeeman: default on with spin)."""
 
     tesla: float = 0.0
     orbital: bool = True
-    zeeman: bool = True
+    zeeman: bool | None = None
 
 
 class SpinSpec(_Table):
@@ -696,6 +705,10 @@ class RunConfig(_Table):
             if lead.span_nm[1] < lo or lead.span_nm[0] > hi:
                 raise _problem(f"the lead misses the device, got {_show(lead.span_nm)}; the device covers "
                                f"{coord} = [{lo:g}, {hi:g}] nm, so move the span into that range", f"leads[{k}].span_nm")
+        if self.field.zeeman and not self.spin.enabled:
+            raise _problem("a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false; "
+                           "set enabled = true in [spin], or remove zeeman (it defaults to on with spin)",
+                           "field.zeeman")
         if self.energy.relative_to_fermi and self.material.density_cm2 is None:
             raise _problem("energies relative to the Fermi energy need a density, got no material.density_cm2; "
                            "add density_cm2 to [material] or set relative_to_fermi = false",
@@ -730,6 +743,8 @@ class RunConfig(_Table):
             return f"disorder.seed must be a whole number >= 0, got {value!r}; give integer seeds"
         if name == "disorder.width_meV" and value < 0:
             return f"disorder.width_meV must be >= 0, got {value!r}; give non-negative widths"
+        if name.startswith("gates.") and name.endswith(".voltage_V") and abs(value) > MAX_GATE_VOLTAGE_V:
+            return _implausible_voltage(name.split(".")[1], value)
         if name == "spin.rashba_meV_nm" and value != 0 and not self.spin.enabled:
             return (f"Rashba coupling needs spin, got spin.rashba_meV_nm = {value!r} with spin.enabled = false; "
                     "set enabled = true in [spin]")

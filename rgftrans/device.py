@@ -23,7 +23,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from .errors import GeometryError, LatticeError, LeadError, PotentialError, ResolutionWarning
+from .errors import GeometryError, LatticeError, LeadError, PotentialError, ResolutionWarning, ValidityWarning
 from .fields import Disorder, MagneticField, gauge_weight, peierls_phase, rashba_matrix, zeeman_matrix
 from .geometry import Region
 from .lattices import Lattice, square
@@ -129,6 +129,10 @@ class TightBindingModel:
         spinless model (every channel carries both spins, G = (2e^2/h) T),
         1 when the spin is explicit in the orbitals (T counts both spins,
         G = (e^2/h) T).  Default: 2 if ``norbs == 1``, else 1.
+    potential_meV : (n_sites,) float ndarray or None
+        The potential energy U(x, y) of each site (meV) as the device gave it,
+        without the band offset, disorder or Zeeman term; None for models built
+        by hand.  Used for diagnostics (dot area, lead-interface steps) and maps.
 
     Models built by hand are validated on creation: matrix shapes, Hermitian
     Hamiltonians, interface indices in range and on the device's boundary.
@@ -142,6 +146,7 @@ class TightBindingModel:
     norbs: int = 1
     spacing_nm: float | None = None
     spin_degeneracy: int | None = None
+    potential_meV: np.ndarray | None = None
 
     def __post_init__(self):
         if self.spin_degeneracy is None:
@@ -154,6 +159,12 @@ class TightBindingModel:
         ham = sp.csr_matrix(self.hamiltonian, dtype=complex)
         object.__setattr__(self, "hamiltonian", ham)
         object.__setattr__(self, "positions", np.asarray(self.positions, dtype=float).reshape(-1, 2))
+        if self.potential_meV is not None:
+            u = np.asarray(self.potential_meV, dtype=float)
+            if u.shape != (len(self.positions),):
+                raise PotentialError(f"potential_meV has shape {u.shape}; give one value per site "
+                                     f"({len(self.positions)})")
+            object.__setattr__(self, "potential_meV", u)
         n = ham.shape[0]
         if ham.shape != (n, n) or n == 0:
             raise GeometryError(f"the Hamiltonian must be a non-empty square matrix, got shape {ham.shape}")
@@ -426,8 +437,13 @@ class _Terms:
             raise PotentialError(
                 f"a Rashba strength of {self.rashba} meV nm needs spinful sites; set spin=True on the device"
             )
+        if field_.zeeman and not device.spin:
+            raise PotentialError(
+                "a Zeeman term was requested (zeeman=True) on a device without spin orbitals, where it would do "
+                "nothing; set spin=True on the device, or leave zeeman at None"
+            )
         self.zeeman = None
-        if device.spin and field_.zeeman and field_.tesla != 0.0:
+        if device.spin and field_.zeeman is not False and field_.tesla != 0.0:
             self.zeeman = zeeman_matrix(device.material_data.g_factor, field_.tesla)
 
     def onsite(self, scalar: np.ndarray) -> np.ndarray:
@@ -507,7 +523,8 @@ def discretise(device: Device) -> TightBindingModel:
             f"a = {lattice.spacing:.3g} nm; enlarge the region or refine the lattice"
         )
     index = _TagIndex(tags)
-    scalar_onsite = lattice.onsite_in_t * t + _evaluate_potential(device.potential, xy)
+    potential = _evaluate_potential(device.potential, xy)
+    scalar_onsite = lattice.onsite_in_t * t + potential
     if device.disorder is not None:
         scalar_onsite = scalar_onsite + device.disorder.values(tags)
     rows, cols = _bond_pairs(lattice, tags, index)
@@ -550,9 +567,38 @@ def discretise(device: Device) -> TightBindingModel:
     ham = terms.expand(rows, cols, terms.hop(xy[rows], xy[cols], f_dev[rows], f_dev[cols]), (n, n))
     ham = ham + terms.expand(np.arange(n), np.arange(n), terms.onsite(scalar_onsite), (n, n))
     leads = [_lead_model(geo, terms, lattice, xy, f_dev, index) for geo in geoms]
+    if device.hopping is None:  # continuum models: a lattice model's steps are the user's intent
+        _warn_lead_steps(device.leads, leads, potential, terms.norbs, xy)
     return TightBindingModel(hamiltonian=ham.tocsr(), positions=xy, leads=tuple(leads), energy_scale=t,
                              coordination=lattice.coordination, norbs=terms.norbs,
-                             spacing_nm=lattice.spacing if device.hopping is None else None)
+                             spacing_nm=lattice.spacing if device.hopping is None else None,
+                             potential_meV=potential)
+
+
+#: Largest potential-energy step (meV) between a lead and the device sites it touches before a warning.
+#: A lead is a uniform semi-infinite strip; a gate potential that has not decayed at the device's edge meets
+#: it as a step and reflects electrons that the real, smoothly continuing 2DEG would let through.  A step of
+#: 2 meV reflects |r|^2 = ((k - k')/(k + k'))^2 = 1.1 % of a plane wave at E_F = 7 meV (GaAs at 2e11 cm^-2;
+#: abrupt step, textbook plane-wave matching, common practice, no source) -- small against a measured
+#: conductance, and growing fast with the step.
+LEAD_STEP_WARN_MEV = 2.0
+
+
+def _warn_lead_steps(specs, leads, potential, norbs, xy) -> None:
+    """ValidityWarning where the potential at a lead's interface differs from the lead's own by a step."""
+    for spec, lead in zip(specs, leads):
+        sites = np.unique(np.asarray(lead.interface) // norbs)
+        step = potential[sites] - spec.potential
+        worst = int(np.argmax(np.abs(step)))
+        if abs(step[worst]) > LEAD_STEP_WARN_MEV:
+            x, y = xy[sites[worst]]
+            warnings.warn(
+                f"lead '{spec.name}': the device potential at its interface differs from the lead's by up to "
+                f"{step[worst]:+.3g} meV (at x, y = {x:.4g}, {y:.4g} nm), more than {LEAD_STEP_WARN_MEV:g} meV; the "
+                "step reflects electrons spuriously -- extend the device until gate potentials have decayed, or "
+                "set the lead's potential offset to the edge potential",
+                ValidityWarning, stacklevel=4,
+            )
 
 
 def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> _LeadGeometry:

@@ -63,3 +63,8 @@ class ThresholdWarning(RgftransWarning):
 
 class ResolutionWarning(RgftransWarning):
     """A discretisation or energy grid too coarse for the physics it should resolve."""
+
+
+class ValidityWarning(RgftransWarning):
+    """The model is legal but the result may not describe the device (e.g. a closed dot where charging
+    dominates, or a potential step at a lead interface that reflects spuriously)."""

@@ -60,13 +60,15 @@ class MagneticField:
         B_z in T.
     orbital : bool
         Include the Peierls phases.
-    zeeman : bool
-        Include the Zeeman term (spinful devices only).
+    zeeman : bool or None
+        Include the Zeeman term.  None (default): on for devices with spin
+        orbitals, absent otherwise; True on a device without spin orbitals is
+        an error (a spinless model has no Zeeman term to add).
     """
 
     tesla: float = 0.0
     orbital: bool = True
-    zeeman: bool = True
+    zeeman: bool | None = None
 
     def __post_init__(self):
         if not np.isfinite(self.tesla):

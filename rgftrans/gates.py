@@ -131,6 +131,12 @@ def _check_depth(depth_nm: object) -> float:
     return depth
 
 
+#: Largest gate voltage magnitude accepted (V).  Surface gates on GaAs, Si/SiGe and InAs heterostructures are
+#: operated within a few volts (beyond, the Schottky barrier leaks or the dielectric breaks down); a value
+#: past 10 V is a unit slip (mV typed as V) far more often than a real setting (common practice, no source).
+MAX_GATE_VOLTAGE_V = 10.0
+
+
 def _check_voltage(owner: str, voltage: object) -> float:
     """Return a gate voltage as a float, or raise PotentialError naming ``owner``."""
     if isinstance(voltage, bool):
@@ -141,6 +147,11 @@ def _check_voltage(owner: str, voltage: object) -> float:
         raise PotentialError(f"{owner}: voltage must be a number (V), got {voltage!r}; give a finite float") from None
     if not math.isfinite(value):
         raise PotentialError(f"{owner}: voltage is not finite: {voltage!r} V; give a finite gate voltage")
+    if abs(value) > MAX_GATE_VOLTAGE_V:
+        raise PotentialError(
+            f"{owner}: voltage {value!r} V is outside +-{MAX_GATE_VOLTAGE_V:g} V, implausible for a surface gate; "
+            f"gate voltages are in volts (write -0.5 for -500 mV)"
+        )
     return value
 
 

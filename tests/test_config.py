@@ -251,6 +251,13 @@ BAD = [
     ("gds layer not a number", toml(gates='[gates]\ndepth_nm = 50.0\n[gates.gds]\npath = "g.gds"\n'
                                     'layers = {one = "plunger"}\nvoltages = {plunger = -0.1}\n'),
      "gates.gds.layers.one: a GDS layer number must be an integer 0..65535, got 'one'"),
+    ("gate voltage implausible", toml(gates=GATES.replace("voltage_V = -0.05", "voltage_V = -50.0")),
+     "gates.gate[0].voltage_V: gate 'plunger' at -50 V is outside +-10 V, implausible for a surface gate"),
+    ("swept gate voltage implausible", toml(gates=GATES, sweep='[[sweep.axis]]\nparameter = "gates.plunger.voltage_V"'
+                                            '\nvalues = [-0.1, -20.0]\n'),
+     "sweep.axis[0].values: gate 'plunger' at -20 V is outside +-10 V"),
+    ("zeeman without spin", toml(field="[field]\ntesla = 1.0\nzeeman = true\n"),
+     "field.zeeman: a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false"),
     ("unknown top-level key", toml(spn="[spn]\nenabled = true\n"), "spn: unknown key 'spn'; did you mean 'spin'?"),
     ("unknown nested key", toml(lattice='[lattice]\nkind = "square"\nspacing = 4.0\n'),
      "lattice.spacing: unknown key 'spacing'; did you mean 'spacing_nm'?"),

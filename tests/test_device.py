@@ -21,12 +21,14 @@ newline.
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 import pytest
 from scipy import constants
 
 from rgftrans.device import Device, Lead
+from rgftrans.fields import MagneticField
 from rgftrans.errors import GeometryError, LatticeError, LeadError, PotentialError
 from rgftrans.geometry import disk, rectangle
 from rgftrans.lattices import square
@@ -231,6 +233,8 @@ BAD_INPUTS = {
     "NaN span": (lambda: Lead("s", "left", (0.0, float("nan"))), LeadError, r"two finite numbers"),
     "NaN lead potential": (lambda: Lead("s", "left", (0.0, 1.0), potential=float("nan")), LeadError,
                            r"potential nan meV is not finite"),
+    "Zeeman without spin orbitals": (lambda: _device(field=MagneticField(1.0, zeeman=True)), PotentialError,
+                                     r"Zeeman term was requested \(zeeman=True\) on a device without spin orbitals"),
 }
 
 
@@ -259,3 +263,19 @@ def test_adjacent_leads_may_share_a_corner_site():
     corner = np.flatnonzero(np.all(np.isclose(model.positions, [0.0, 30.0]), axis=1))
     for lead in model.leads:
         assert np.isin(corner, lead.interface).all()
+
+
+def test_potential_step_at_a_lead_interface_is_warned():
+    """A gate potential that has not decayed at the device's edge meets the lead as a step (ValidityWarning)."""
+    from rgftrans.device import LEAD_STEP_WARN_MEV
+    from rgftrans.errors import ValidityWarning
+
+    leads = [Lead("source", "left", (0.0, 30.0)), Lead("drain", "right", (0.0, 30.0))]
+    with pytest.warns(ValidityWarning, match=r"lead 'source': .* differs from the lead's by up to \+3 meV"):
+        Device(R, leads, potential=lambda x, y: np.where(x < 10.0, 3.0, 0.0)).discretise()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ValidityWarning)
+        Device(R, leads, potential=LEAD_STEP_WARN_MEV * 0.9).discretise()  # a step below the threshold is fine
+        # the lead's own offset matched to the edge potential removes the step
+        matched = [Lead("source", "left", (0.0, 30.0), potential=3.0), Lead("drain", "right", (0.0, 30.0))]
+        Device(R, matched, potential=lambda x, y: np.where(x < 10.0, 3.0, 0.0)).discretise()

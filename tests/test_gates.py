@@ -376,7 +376,7 @@ def test_gds_unknown_cell_and_several_tops(tmp_path):
     assert "cells present are 'A', 'B'" in one_line(error)
 
 
-@pytest.mark.parametrize("voltage", [math.nan, math.inf, "high"])
+@pytest.mark.parametrize("voltage", [math.nan, math.inf, "high", -10.5, 55.0])
 def test_bad_voltage(voltage):
     with pytest.raises(PotentialError) as error:
         Gate("plunger", rectangle(0, 0, 10, 10), voltage)
