@@ -18,6 +18,7 @@ reported in one line on standard error.
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 import warnings
 from pathlib import Path
@@ -32,11 +33,39 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see --help)\n")
 
 
-def _one_line_warnings() -> None:
-    def show(message, category, filename, lineno, file=None, line=None):
-        print(f"rgftrans: warning: {message}", file=sys.stderr)
+class _WarningPrinter:
+    """Each distinct warning once, as one line on standard error (no source lines).
 
-    warnings.showwarning = show
+    Warnings that differ only in their numbers (the same problem at another
+    sweep point or energy) count as one: the first is printed, the rest are
+    counted and summarised when the command ends.
+    """
+
+    _NUMBER = re.compile(r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?")
+
+    def __init__(self):
+        self.seen: dict = {}
+
+    def show(self, message, category, filename, lineno, file=None, line=None):
+        key = (category, self._NUMBER.sub("#", " ".join(str(message).split())))
+        if key in self.seen:
+            self.seen[key] += 1
+            return
+        self.seen[key] = 0
+        print(f"rgftrans: warning: {' '.join(str(message).split())}", file=sys.stderr)
+
+    def summary(self) -> None:
+        repeats = sum(self.seen.values())
+        if repeats:
+            print(f"rgftrans: warning: {repeats} more warning(s) like those above (other points or energies) "
+                  "were not repeated", file=sys.stderr)
+
+
+def _one_line_warnings() -> _WarningPrinter:
+    printer = _WarningPrinter()
+    warnings.simplefilter("always")  # the printer dedupes; Python's registry would hide repeats from it
+    warnings.showwarning = printer.show
+    return printer
 
 
 def _refuse_waveguide(path) -> None:
@@ -405,10 +434,19 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv=None) -> int:
     """Entry point of the ``rgftrans`` command."""
+    args = build_parser().parse_args(argv)
+    with warnings.catch_warnings():  # the one-line printer lasts for this command only
+        printer = _one_line_warnings()
+        try:
+            return _run(args)
+        finally:
+            printer.summary()
+
+
+def _run(args) -> int:
+    """Run a parsed command; every expected failure becomes one line and an exit status."""
     from .errors import ComputationFailed, RgftransError
 
-    args = build_parser().parse_args(argv)
-    _one_line_warnings()
     try:
         return args.func(args)
     except RgftransError as err:

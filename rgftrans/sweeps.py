@@ -23,6 +23,7 @@ import multiprocessing
 import os
 import shutil
 import time
+import warnings
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -171,8 +172,19 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
 
 
 def _task(args):
+    """One grid point in a worker: its arrays, and the warnings it raised (sent back to the driver)."""
     cfg, index, point = args
-    return index, compute_point(cfg, point)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        values = compute_point(cfg, point)
+    return index, values, [(w.category, str(w.message)) for w in caught]
+
+
+def _reissue(caught) -> None:
+    """Warnings of a worker, raised again in the driving process (where the user sees them)."""
+    for category, message in caught:
+        warnings.warn(message, category if isinstance(category, type) and issubclass(category, Warning)
+                      else UserWarning, stacklevel=2)
 
 
 # --------------------------------------------------------------------------
@@ -392,7 +404,8 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
         bar = tqdm(total=len(points), initial=n_resumed, disable=quiet, unit="point", dynamic_ncols=True,
                    desc=path.name)
         iterator = (_iterate_dask(todo, workers, address) if executor == "dask" else _iterate_local(todo, workers))
-        for index, values in iterator:
+        for index, values, caught in iterator:
+            _reissue(caught)
             journal.write(index, values)
             _write(rf, index, values)
             bar.update(1)

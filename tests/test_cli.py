@@ -139,3 +139,16 @@ def test_info_on_a_bad_file(tmp_path, capsys, content):
     assert main(["info", str(bad)]) == EXIT_BAD_INPUT
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "Traceback" not in err
+
+
+def test_worker_warnings_reach_the_driver_once(tmp_path, capsys):
+    """A warning raised in every worker process (lattice too coarse) is printed once, as one line."""
+    text = GOOD.format(out=tmp_path / "coarse.h5").replace("spacing_nm = 5.0", "spacing_nm = 10.0").replace(
+        "stop_meV = 5.0", "stop_meV = 9.0") + '\n[[sweep.axis]]\nparameter = "field.tesla"\nvalues = [0.0, 0.1, 0.2]\n'
+    path = tmp_path / "coarse.toml"
+    path.write_text(text)
+    assert main(["run", str(path), "--workers", "2", "--quiet"]) == EXIT_OK
+    err = capsys.readouterr().err
+    coarse = [line for line in err.splitlines() if "lattice is too coarse" in line]
+    assert len(coarse) == 1, err
+    assert all(line.startswith("rgftrans: warning: ") for line in err.splitlines()), err
