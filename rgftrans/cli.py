@@ -6,6 +6,7 @@ Subcommands::
     rgftrans run CONFIG [options]           run or resume the config's sweep into its HDF5 file
     rgftrans info RESULT                    summary of a result file
     rgftrans plot RESULT [--out PNG]        conductance lines or maps from a result file
+    rgftrans export RESULT [options]        a stored quantity as CSV (spreadsheets, lab software)
     rgftrans darkstates RESULT              locate bound states in the continuum in a stored sweep
     rgftrans compare RESULT TRACE [options] fit a stored sweep to a measured conductance trace
     rgftrans waveguide CONFIG               light in a metal-walled waveguide: spectrum, field, dark modes
@@ -77,6 +78,17 @@ def _refuse_waveguide(path) -> None:
                           f"'rgftrans waveguide {path}'")
 
 
+def _check_grid(cfg, model) -> None:
+    """Warnings about an energy grid too coarse for the configured temperatures or the model's resonances."""
+    from .resolution import warn_unresolved_resonances
+    from .thermal import warn_grid_for_temperatures
+
+    energies = cfg.energies()
+    warn_grid_for_temperatures(energies, cfg.temperatures())
+    if cfg.energy.refine_tolerance is None:
+        warn_unresolved_resonances(model, energies)
+
+
 def _print_regime(cfg, device, model) -> None:
     """The dot's regime (coherent or Coulomb blockade) in words, for continuum models with a material."""
     from .regime import regime_estimate
@@ -107,6 +119,7 @@ def _cmd_check(args) -> int:
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
     check_resolution(model, cfg.energies())  # the warning run would give, here before any computing
+    _check_grid(cfg, model)
     blocks = layer_blocks(model)
     energies = cfg.energies()
     axes = cfg.axes()
@@ -148,8 +161,10 @@ def _cmd_run(args) -> int:
     _refuse_waveguide(args.config)
     cfg = load_config(args.config)
     device = cfg.build_device(cfg.base_point())
+    model = device.discretise()
     print(f"{args.config}: coherent single-particle transport (Landauer); no charging energy")
-    _print_regime(cfg, device, device.discretise())
+    _check_grid(cfg, model)
+    _print_regime(cfg, device, model)
     report = run_sweep(cfg, overwrite=args.overwrite or None, quiet=args.quiet, workers=args.workers,
                        address=args.cluster, path=args.output)
     print(f"{report.path}: {report.n_points} point(s), {report.n_computed} computed now, "
@@ -175,6 +190,65 @@ def _cmd_plot(args) -> int:
     out.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(out, dpi=150)
     print(f"wrote {out}")
+    return EXIT_OK
+
+
+def _cmd_export(args) -> int:
+    import csv
+    import math
+    import os
+
+    from .store import read_result
+    from .sweeps import axis_dataset_name
+    from .tables import ExportError, quantity_table
+
+    data = read_result(args.result)
+    select = {}
+    for item in args.select or ():
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip():
+            raise ExportError(f"--select {item!r}: write NAME=VALUE, e.g. --select gates.plunger.voltage_V=-0.05")
+        name = name.strip()
+        stored = name if name in {a.name for a in data.axes} else axis_dataset_name(name)
+        select[stored] = value.strip()
+    if args.energy is not None:
+        select["energy"] = args.energy
+    if args.temperature is not None:
+        select["temperature"] = args.temperature
+    if args.leads:
+        pair = [x.strip() for x in args.leads.split(",")]
+        if len(pair) != 2:
+            raise ExportError(f"--leads {args.leads!r}: give two lead names, FROM,TO")
+        select["lead_in"], select["lead_out"] = pair
+    table = quantity_table(data, args.quantity, select)
+    if table.n_rows == 0:
+        raise ExportError(f"{args.result}: nothing to export for this selection ({table.skipped_points} sweep "
+                          "point(s) not computed yet); run or resume the sweep first")
+    out = Path(args.out or Path(args.result).with_name(f"{Path(args.result).stem}_{args.quantity}.csv"))
+    if out.suffix.lower() != ".csv":
+        raise ExportError(f"--out {out}: the export is CSV; end the file name in .csv")
+    if out.exists() and not args.overwrite:
+        raise ExportError(f"{out}: exists; pass --overwrite to replace it, or choose another --out")
+    out.parent.mkdir(parents=True, exist_ok=True)
+
+    def cell(v):
+        if isinstance(v, str):
+            return v
+        v = float(v)
+        return "NaN" if math.isnan(v) else repr(v)
+
+    tmp = out.with_name(f".{out.name}.{os.getpid()}.partial")
+    try:  # written beside the target and renamed over it: never a half-written CSV at the path
+        with open(tmp, "w", newline="", encoding="utf-8") as fh:
+            writer = csv.writer(fh)
+            writer.writerow(table.header)
+            for row in zip(*table.columns):
+                writer.writerow([cell(v) for v in row])
+        os.replace(tmp, out)
+    finally:
+        tmp.unlink(missing_ok=True)
+    skipped = f"; {table.skipped_points} sweep point(s) not computed yet were left out" if table.skipped_points else ""
+    print(f"wrote {out}: {table.n_rows} row(s), columns {', '.join(table.header)}{skipped}")
     return EXIT_OK
 
 
@@ -368,6 +442,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--lead-in", help="sending lead (default: the first lead)")
     p.add_argument("--energy", type=float, metavar="MEV", help="energy for maps over two sweep axes")
     p.set_defaults(func=_cmd_plot)
+
+    p = sub.add_parser("export", help="write a stored quantity to a CSV file",
+                       description="Write one quantity of a result file (default: conductance in 2e^2/h; "
+                                   "conductance_S for siemens, transmission, n_open) as a CSV table for a "
+                                   "spreadsheet or lab software: one row per stored value, one column per "
+                                   "dimension left after the selection, headers 'name [units]', values in the "
+                                   "file's units.  Points not yet computed are left out.")
+    p.add_argument("result", help="HDF5 result file")
+    p.add_argument("--quantity", default="conductance", help="stored quantity (default: conductance)")
+    p.add_argument("--select", action="append", metavar="NAME=VALUE",
+                   help="fix a sweep axis to one of its values (repeat for each), e.g. gates.plunger.voltage_V=-0.05")
+    p.add_argument("--energy", type=float, metavar="MEV", help="one stored energy (chemical potential)")
+    p.add_argument("--temperature", type=float, metavar="K", help="one stored temperature")
+    p.add_argument("--leads", metavar="FROM,TO", help="one lead pair (conductance, transmission)")
+    p.add_argument("--out", metavar="CSV", help="output file (default: RESULT_QUANTITY.csv beside the result)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing CSV file")
+    p.set_defaults(func=_cmd_export)
 
     p = sub.add_parser("darkstates", help="search a stored sweep for bound states in the continuum",
                        description="Along one sweep axis: follow the narrowest resonance, locate where its width "

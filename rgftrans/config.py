@@ -471,9 +471,17 @@ class EnergySpec(_Table):
     values_meV: Annotated[list[float], Field(min_length=1)] | None = None
     range: Annotated[list[EnergyRange], Field(min_length=1)] | None = None
     relative_to_fermi: bool = False
+    #: Adaptive refinement of T(E) for the stored conductances (absolute tolerance in units of T); the
+    #: transmission is still stored on the grid as written.
+    refine_tolerance: PositiveFloat | None = None
+    #: Most energies a refined point may use (default 20 x the grid).
+    refine_max_points: Annotated[int, Field(ge=2)] | None = None
 
     @model_validator(mode="after")
     def _check_grid(self):
+        if self.refine_max_points is not None and self.refine_tolerance is None:
+            raise _problem("refine_max_points needs refine_tolerance, got no refine_tolerance; add e.g. "
+                           "refine_tolerance = 1e-3", "refine_max_points")
         span = {"start_meV": self.start_meV, "stop_meV": self.stop_meV, "points": self.points}
         given = [key for key, v in span.items() if v is not None]
         if self.range is not None:

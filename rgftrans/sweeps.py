@@ -109,21 +109,56 @@ def sweep_temperatures(cfg: RunConfig) -> np.ndarray:
     return temps if temps.size else np.zeros(1)
 
 
-def stored_conductance(cfg: RunConfig, transmission: np.ndarray, n_open: np.ndarray,
-                       spin_degeneracy: int) -> dict[str, np.ndarray]:
+def _pair_conductances(transmission: np.ndarray, n_open: np.ndarray) -> np.ndarray:
+    """T_pq off the diagonal and N_p - R_pp on it (n_E, n_leads, n_leads): conductances in units of g_s e^2/h."""
+    pair = np.array(transmission, dtype=float)
+    idx = np.arange(pair.shape[1])
+    pair[:, idx, idx] = n_open - pair[:, idx, idx]
+    return pair
+
+
+def stored_conductance(cfg: RunConfig, transmission: np.ndarray, n_open: np.ndarray, spin_degeneracy: int,
+                       *, refined=None) -> dict[str, np.ndarray]:
     """The conductance quantities of one point from its transmission matrix (n_E, n_leads, n_leads).
 
     Off the diagonal G_pq = (g_s e^2/h) <T_pq>_T, on it (g_s e^2/h) <N_p - R_pp>_T, thermally averaged
-    at each grid energy as the chemical potential (:func:`rgftrans.thermal.conductance_on_grid`).
+    at each grid energy as the chemical potential (:func:`rgftrans.thermal.conductance_on_grid`), from the
+    grid's samples or from a refined sampling ``(energies, pair conductances)`` when given.
     """
     from .materials import CONDUCTANCE_QUANTUM_S
     from .thermal import conductance_on_grid
 
-    pair = np.array(transmission, dtype=float)
-    idx = np.arange(pair.shape[1])
-    pair[:, idx, idx] = n_open - pair[:, idx, idx]
-    g = conductance_on_grid(cfg.energies(), pair, sweep_temperatures(cfg), spin_degeneracy=spin_degeneracy)
+    energies = cfg.energies()
+    e, pair = refined if refined is not None else (energies, _pair_conductances(transmission, n_open))
+    g = conductance_on_grid(e, pair, sweep_temperatures(cfg), spin_degeneracy=spin_degeneracy, mu=energies)
     return {"conductance": g, "conductance_S": g * CONDUCTANCE_QUANTUM_S}
+
+
+def _refined_pairs(cfg: RunConfig, model, slicing, pair: np.ndarray, point: dict):
+    """Adaptive refinement of the pair conductances (T_pq, N_p - R_pp) to [energy] refine_tolerance."""
+    import warnings as _warnings
+
+    from .errors import ResolutionWarning
+    from .resolution import refine
+    from .rgf import transmission_matrix
+
+    energies = cfg.energies()
+    cap = cfg.energy.refine_max_points or 20 * energies.size
+
+    def evaluate(x):
+        res = transmission_matrix(model, x, slicing=slicing)
+        return _pair_conductances(res.transmission, res.n_open)
+
+    sampling = refine(evaluate, energies, tolerance=cfg.energy.refine_tolerance, max_points=cap, values=pair)
+    if not sampling.converged:
+        _warnings.warn(f"at {_describe(point)}: adaptive refinement stopped at {sampling.energies.size} energies "
+                       f"(refine_max_points = {cap}) with errors up to {sampling.max_error:.3g} > refine_tolerance "
+                       f"{cfg.energy.refine_tolerance:g}; raise refine_max_points", ResolutionWarning)
+    return sampling
+
+
+def _describe(point: dict) -> str:
+    return ", ".join(f"{k} = {v:g}" for k, v in point.items()) or "the only point"
 
 
 # --------------------------------------------------------------------------
@@ -143,6 +178,7 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
     points that change only potentials or the field (same sparsity pattern).
     """
     from .local import ldos
+    from .resolution import warn_sharp_features
     from .rgf import layer_blocks, transmission, transmission_matrix
 
     model = cfg.build_device(point).discretise()
@@ -164,7 +200,17 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
     else:
         res = transmission_matrix(model, energies, slicing=slicing)
         out = {"transmission": res.transmission, "n_open": res.n_open}
-    out.update(stored_conductance(cfg, out["transmission"], out["n_open"], model.spin_degeneracy))
+    pair = _pair_conductances(out["transmission"], out["n_open"])
+    refined = None
+    if cfg.energy.refine_tolerance is not None:
+        sampling = _refined_pairs(cfg, model, slicing, pair, point)
+        refined = (sampling.energies, sampling.values)
+        if not sampling.converged:
+            warn_sharp_features(sampling.energies, sampling.values, where=f"at {_describe(point)}: ")
+    else:
+        warn_sharp_features(energies, pair, where=f"at {_describe(point)}: ")
+    out.update(stored_conductance(cfg, out["transmission"], out["n_open"], model.spin_degeneracy,
+                                  refined=refined))
     ldos_e = cfg.ldos_energies()
     if len(ldos_e):
         out["ldos"] = np.atleast_2d(ldos(model, ldos_e))

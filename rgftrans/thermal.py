@@ -57,6 +57,7 @@ __all__ = [
     "CurrentResult",
     "ThermalConductanceResult",
     "conductance_on_grid",
+    "warn_grid_for_temperatures",
     "fermi",
     "fermi_window",
     "landauer_current",
@@ -515,8 +516,8 @@ def thermal_conductance(energies, transmission, mu, temperature_K, *, spin_degen
 GRID_WINDOW_TOL = 1e-6
 
 
-def conductance_on_grid(energies, transmission, temperatures_K, *, spin_degeneracy: int = 2):
-    """Thermally averaged conductances G(mu, T) at every grid energy taken as the chemical potential.
+def conductance_on_grid(energies, transmission, temperatures_K, *, spin_degeneracy: int = 2, mu=None):
+    """Thermally averaged conductances G(mu, T) at every grid energy (or at ``mu``) as the chemical potential.
 
     For each temperature and each ``mu = energies[k]``, the same exact
     integral of the piecewise-linear T(E) against -df/dE as
@@ -534,10 +535,13 @@ def conductance_on_grid(energies, transmission, temperatures_K, *, spin_degenera
         0 gives ``(g_s / 2) T(E)`` itself.
     spin_degeneracy : {1, 2}, keyword-only
         As in :func:`thermal_conductance`.
+    mu : (n_mu,) float array_like, meV, keyword-only
+        Chemical potentials (default: ``energies``), e.g. a coarse stored grid
+        when ``energies`` is a refined sampling.
 
     Returns
     -------
-    (n_E, n_T, ...) float ndarray, 2e²/h
+    (n_mu, n_T, ...) float ndarray, 2e²/h
         Multiply by :data:`rgftrans.materials.CONDUCTANCE_QUANTUM_S` for S.
 
     Examples
@@ -556,20 +560,48 @@ def conductance_on_grid(energies, transmission, temperatures_K, *, spin_degenera
         raise RgftransError(f"transmission has shape {t.shape}; its first axis must match the {e.size} energies")
     _check_grid(e, t.reshape(e.size, -1)[:, 0])
     temps = [_check_temperature(v) for v in np.atleast_1d(temperatures_K)]
+    m = e if mu is None else np.atleast_1d(np.asarray(mu, dtype=float))
     flat = conductance_g0(t.reshape(e.size, -1), spin_degeneracy)
-    out = np.full((e.size, len(temps), flat.shape[1]), np.nan)
+    out = np.full((m.size, len(temps), flat.shape[1]), np.nan)
     dt = np.diff(flat, axis=0)
     for j, temperature in enumerate(temps):
         kT = BOLTZMANN_MEV_PER_K * temperature
         if kT == 0.0:
-            out[:, j] = flat
+            inside = (m >= e[0]) & (m <= e[-1])
+            out[inside, j] = np.stack([np.interp(m[inside], e, col) for col in flat.T], axis=-1)
+            continue
+        covered = _weight_outside(e, m, kT) <= GRID_WINDOW_TOL
+        for k in np.flatnonzero(covered):
+            i0, i1 = _window_slice(e, m[k], kT, _CUTOFF_KT)
+            weight, rising = _window_weights(e[i0:i1 + 1], m[k], kT)
+            out[k, j] = weight @ flat[i0:i1] + rising @ dt[i0:i1]
+    return out.reshape(m.size, len(temps), *t.shape[1:])
+
+
+def warn_grid_for_temperatures(energies, temperatures_K) -> None:
+    """ResolutionWarning for each temperature whose stored conductance the energy grid cannot support.
+
+    Per temperature T > 0: if no grid energy has the thermal window inside the
+    grid (see :data:`GRID_WINDOW_TOL`), nothing finite can be stored at T; else
+    the grid must be no coarser than k_B T / 2 around those energies
+    (:data:`MAX_SPACING_KT`).
+    """
+    e = np.asarray(energies, dtype=float)
+    for temperature in np.atleast_1d(temperatures_K):
+        temperature = _check_temperature(temperature)
+        kT = BOLTZMANN_MEV_PER_K * temperature
+        if kT == 0.0:
             continue
         covered = _weight_outside(e, e, kT) <= GRID_WINDOW_TOL
-        for k in np.flatnonzero(covered):
-            i0, i1 = _window_slice(e, e[k], kT, _CUTOFF_KT)
-            weight, rising = _window_weights(e[i0:i1 + 1], e[k], kT)
-            out[k, j] = weight @ flat[i0:i1] + rising @ dt[i0:i1]
-    return out.reshape(e.size, len(temps), *t.shape[1:])
+        if not np.any(covered):
+            need = 2 * np.log(2 / GRID_WINDOW_TOL) * kT
+            warnings.warn(
+                f"at {temperature:g} K the energy grid [{e[0]:.6g}, {e[-1]:.6g}] meV is narrower than the thermal "
+                f"window ({need:.3g} meV = {need / kT:.0f} kT), so no conductance at that temperature can be "
+                f"computed; widen the grid around the chemical potentials of interest",
+                ResolutionWarning, stacklevel=2)
+            continue
+        _warn_spacing(e, e[covered], kT, temperature, "mu")
 
 
 # --- Landauer current --------------------------------------------------------------------------------

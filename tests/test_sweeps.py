@@ -117,6 +117,28 @@ def test_stored_conductance_per_temperature_and_spin(tmp_path):
     assert np.allclose(g[0, 0, finite, 1, 1, 0], ref, rtol=1e-12)
 
 
+def test_refined_sweep_conductance_matches_a_dense_grid(tmp_path):
+    """[energy] refine_tolerance: the stored G(mu, T) on a coarse grid equals that of a 40x denser grid.
+
+    Reference: the same thermal integral (rgftrans.thermal, checked against closed forms in its own tests) on
+    a dense grid, whose interpolation error h^2 max|T''| / 8 is far below the tolerance; the refined result
+    must agree to about the refinement tolerance (2e-3 here), the unrefined coarse grid must not.
+    """
+    temps = "[temperature]\nkelvin = [0.3]\n"
+    coarse = config(tmp_path, "coarse.h5", n_v=2, n_e=41, extra=temps)
+    refined = parse_config(CONFIG.format(path=tmp_path / "refined.h5", n_v=2, n_e=41).replace(
+        "points = 41", "points = 41\nrefine_tolerance = 2e-4\nrefine_max_points = 20000") + temps, source="t.toml")
+    dense = config(tmp_path, "dense.h5", n_v=2, n_e=1601, extra=temps)
+    g = {name: read_result(run_sweep(cfg, quiet=True, workers=1).path).quantities["conductance"][..., 0, 1, 0]
+         for name, cfg in (("coarse", coarse), ("refined", refined), ("dense", dense))}
+    # the coarse energies are every 40th dense energy
+    on_coarse = g["dense"][..., ::40]
+    ok = np.isfinite(on_coarse) & np.isfinite(g["refined"])
+    assert np.count_nonzero(ok) > 40
+    assert np.max(np.abs(g["refined"][ok] - on_coarse[ok])) < 2e-3
+    assert np.max(np.abs(g["coarse"][ok] - on_coarse[ok])) > 1e-2
+
+
 def test_two_local_processes_give_the_same_file(tmp_path):
     one = read_result(run_sweep(config(tmp_path, "one.h5"), quiet=True, workers=1).path)
     two = read_result(run_sweep(config(tmp_path, "two.h5"), quiet=True, workers=2).path)
