@@ -78,18 +78,26 @@ def _refuse_waveguide(path) -> None:
                           f"'rgftrans waveguide {path}'")
 
 
-def _check_grid(cfg, model) -> None:
+def _window_poles(cfg, model):
+    """The model's resonance poles in the config's energy window (None for a single energy)."""
+    from .resolution import window_poles
+
+    energies = cfg.energies()
+    return window_poles(model, (energies[0], energies[-1])) if energies.size > 1 else None
+
+
+def _check_grid(cfg, model, poles) -> None:
     """Warnings about an energy grid too coarse for the configured temperatures or the model's resonances."""
     from .resolution import warn_unresolved_resonances
     from .thermal import warn_grid_for_temperatures
 
     energies = cfg.energies()
     warn_grid_for_temperatures(energies, cfg.temperatures())
-    if cfg.energy.refine_tolerance is None:
-        warn_unresolved_resonances(model, energies)
+    if cfg.energy.refine_tolerance is None and poles is not None:
+        warn_unresolved_resonances(model, energies, poles=poles)
 
 
-def _print_regime(cfg, device, model) -> None:
+def _print_regime(cfg, device, model, poles) -> None:
     """The dot's regime (coherent or Coulomb blockade) in words, for continuum models with a material."""
     from .regime import regime_estimate
 
@@ -99,7 +107,7 @@ def _print_regime(cfg, device, model) -> None:
     temps = cfg.temperatures()
     est = regime_estimate(device, model, fermi_energy_meV=cfg.fermi_energy_meV,
                           temperature_K=float(temps.min()) if temps.size else 0.0,
-                          energy_window_meV=(float(energies[0]), float(energies[-1])), warn=False)
+                          energy_window_meV=(float(energies[0]), float(energies[-1])), poles=poles, warn=False)
     lines = est.lines()
     print(f"  regime: {lines[0]}")
     for line in lines[1:-1]:
@@ -119,7 +127,8 @@ def _cmd_check(args) -> int:
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
     check_resolution(model, cfg.energies())  # the warning run would give, here before any computing
-    _check_grid(cfg, model)
+    poles = _window_poles(cfg, model)
+    _check_grid(cfg, model, poles)
     blocks = layer_blocks(model)
     energies = cfg.energies()
     axes = cfg.axes()
@@ -139,7 +148,7 @@ def _cmd_check(args) -> int:
         print(f"  sweep axis {ax.name}: {len(ax.values)} values from {ax.values[0]:.4g} to {ax.values[-1]:.4g} "
               f"{ax.units}")
     print(f"  {n_points} parameter point(s) x {len(energies)} energies -> {cfg.output.path}")
-    _print_regime(cfg, device, model)
+    _print_regime(cfg, device, model, poles)
     if args.draw:
         import matplotlib
 
@@ -163,8 +172,9 @@ def _cmd_run(args) -> int:
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
     print(f"{args.config}: coherent single-particle transport (Landauer); no charging energy")
-    _check_grid(cfg, model)
-    _print_regime(cfg, device, model)
+    poles = _window_poles(cfg, model)
+    _check_grid(cfg, model, poles)
+    _print_regime(cfg, device, model, poles)
     report = run_sweep(cfg, overwrite=args.overwrite or None, quiet=args.quiet, workers=args.workers,
                        address=args.cluster, path=args.output)
     print(f"{report.path}: {report.n_points} point(s), {report.n_computed} computed now, "

@@ -14,7 +14,7 @@ estimates the three energies from the layout and says which regime applies:
   a uniform dielectric; common textbook estimate, no source; gates and
   reservoirs nearby raise C and lower E_C, so this is an upper bound);
 * the typical level width Γ: the median width of the resonance poles of the
-  open device near the Fermi energy (:func:`rgftrans.darkstates.resonances`).
+  open device in the energy window (:func:`rgftrans.resolution.window_poles`).
 
 Coulomb blockade dominates when E_C > Γ and E_C > k_B T, and only if the dot
 is separated from its leads by tunnel contacts: a contact conducting more than
@@ -50,8 +50,6 @@ __all__ = ["RegimeEstimate", "level_spacing_meV", "disk_charging_energy_meV", "d
 
 _MEV = 1e-3 * constants.e  # J per meV
 _NM = 1e-9  # m per nm
-#: Resonance poles asked for when estimating the typical level width.
-WIDTH_POLES = 6
 #: Energies across the window at which the mean conductance between the first two leads is computed.
 CONDUCTANCE_SAMPLES = 9
 #: e²/h in units of 2e²/h: contacts conducting more than this do not quantise the dot's charge.
@@ -131,20 +129,15 @@ def dot_area_nm2(model, *, site_area_nm2: float, fermi_energy_meV: float | None 
     return np.count_nonzero(allowed) * site_area, "open dot: all of the region below E_F (an upper bound)"
 
 
-def typical_level_width_meV(model, energy_meV: float, *, window: tuple[float, float] | None = None,
-                            count: int = WIDTH_POLES) -> tuple[float | None, int]:
-    """Median width Γ = -2 Im z (meV) of the resonance poles nearest ``energy_meV``, and how many were used.
+def typical_level_width_meV(poles) -> tuple[float | None, int]:
+    """Median width (meV) of resonance poles ``(energy_meV, width_meV)``, and how many there were.
 
-    Poles outside ``window`` (meV) are dropped; returns ``(None, 0)`` when none is left.
+    Returns ``(None, 0)`` for no poles.
     """
-    from .darkstates import resonances
-
-    poles = resonances(model, float(energy_meV), count=count)
-    widths = [p.width_meV for p in poles if p.width_meV > 0
-              and (window is None or window[0] <= p.energy_meV <= window[1])]
-    if not widths:
+    poles = np.asarray(poles, dtype=float).reshape(-1, 2)
+    if not len(poles):
         return None, 0
-    return float(np.median(widths)), len(widths)
+    return float(np.median(poles[:, 1])), len(poles)
 
 
 @dataclass(frozen=True)
@@ -190,7 +183,7 @@ class RegimeEstimate:
 
     def lines(self) -> list[str]:
         """Human-readable lines for ``rgftrans check`` and ``run``."""
-        width = (f"{self.level_width_meV:.3g} meV (median of {self.n_widths} resonance(s) near E_F)"
+        width = (f"{self.level_width_meV:.3g} meV (median of {self.n_widths} resonance(s) in the window)"
                  if self.level_width_meV is not None else "not computed")
         kT = constants.k * self.temperature_K / _MEV
         g = "" if self.mean_conductance_g0 is None else (f", mean conductance {self.mean_conductance_g0:.3g} "
@@ -206,7 +199,7 @@ class RegimeEstimate:
 
 def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None, temperature_K: float = 0.0,
                     widths: bool = True, energy_window_meV: tuple[float, float] | None = None,
-                    area_nm2: float | None = None, warn: bool = True) -> RegimeEstimate:
+                    area_nm2: float | None = None, poles=None, warn: bool = True) -> RegimeEstimate:
     """Estimate Δ, E_C and Γ of a dot and say whether Coulomb blockade would dominate a measurement.
 
     Parameters
@@ -216,16 +209,18 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     model : TightBindingModel, optional
         ``device.discretise()`` if not given.
     fermi_energy_meV : float, optional
-        Where to look for the dot's region and its resonances; default the
-        middle of ``energy_window_meV``, else the dot is the whole device.
+        Where the dot's region ends (the potential below E_F); without it the
+        dot is the whole device.
     temperature_K : float
         Lowest temperature of interest (K).
     widths : bool
-        Compute the typical level width from the resonance poles (costs a few
-        sparse eigenvalue solves) and the mean conductance over the window
+        Compute the typical level width from the resonance poles in the window
+        (a few eigenvalue solves) and the mean conductance over the window
         (:data:`CONDUCTANCE_SAMPLES` energies).
     energy_window_meV : (float, float), optional
-        Poles outside this window (meV) do not count.
+        The energies of interest (meV); without it neither is computed.
+    poles : (n, 2) array_like, optional
+        :func:`rgftrans.resolution.window_poles` of the window, if already at hand.
     area_nm2 : float, optional
         The dot's area if you know it better; overrides the estimate.
     warn : bool
@@ -240,9 +235,6 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     material = device.material_data
     lattice = device.lattice
     site_area = abs(float(np.linalg.det(lattice.prim_vecs))) / len(lattice.basis)
-    centre = fermi_energy_meV
-    if centre is None and energy_window_meV is not None:
-        centre = 0.5 * (energy_window_meV[0] + energy_window_meV[1])
     if area_nm2 is None:
         area, source = dot_area_nm2(model, site_area_nm2=site_area, fermi_energy_meV=fermi_energy_meV)
     else:
@@ -250,8 +242,12 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     spacing = level_spacing_meV(area, material.m_eff)
     e_c, capacitance = disk_charging_energy_meV(area, material.eps_r)
     gamma, n_widths = (None, 0)
-    if widths and centre is not None:
-        gamma, n_widths = typical_level_width_meV(model, centre, window=energy_window_meV)
+    if widths and energy_window_meV is not None:
+        if poles is None:
+            from .resolution import window_poles
+
+            poles = window_poles(model, energy_window_meV)
+        gamma, n_widths = typical_level_width_meV(poles)
     g_mean = None
     if widths and energy_window_meV is not None and len(model.leads) >= 2:
         g_mean = mean_conductance_g0(model, energy_window_meV)

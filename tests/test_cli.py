@@ -152,3 +152,69 @@ def test_worker_warnings_reach_the_driver_once(tmp_path, capsys):
     coarse = [line for line in err.splitlines() if "lattice is too coarse" in line]
     assert len(coarse) == 1, err
     assert all(line.startswith("rgftrans: warning: ") for line in err.splitlines()), err
+
+
+@pytest.fixture(scope="module")
+def swept_result(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("export")
+    text = GOOD.format(out=tmp / "swept.h5").replace("points = 7", "points = 41") + (
+        "\n[temperature]\nkelvin = [0.0, 1.0]\n"
+        '\n[[sweep.axis]]\nparameter = "potential.constant_meV"\nvalues = [0.0, 0.25]\n')
+    path = tmp / "swept.toml"
+    path.write_text(text)
+    assert main(["run", str(path), "--quiet", "--workers", "1"]) == EXIT_OK
+    return tmp / "swept.h5"
+
+
+def test_export_writes_a_selection_as_csv(swept_result, tmp_path, capsys):
+    import csv
+
+    import numpy as np
+
+    from rgftrans.store import read_result
+
+    out = tmp_path / "g.csv"
+    assert main(["export", str(swept_result), "--temperature", "1", "--leads", "source,drain",
+                 "--select", "potential.constant_meV=0.25", "--out", str(out)]) == EXIT_OK
+    rows = list(csv.reader(out.open()))
+    assert rows[0] == ["energy [meV]", "conductance [2e^2/h]"]
+    data = read_result(swept_result)
+    expected = data.quantities["conductance"][1, :, 1, 1, 0]  # second potential, T = 1 K, source -> drain
+    got = np.array([float(r[1]) for r in rows[1:]])
+    assert np.array_equal(np.isnan(got), np.isnan(expected))
+    assert np.allclose(got, expected, equal_nan=True, rtol=0, atol=0)  # the file's numbers, written exactly
+    assert np.allclose([float(r[0]) for r in rows[1:]], data.energies_meV, rtol=0, atol=0)
+    # everything, in siemens: one row per stored value, lead names spelled out
+    out_s = tmp_path / "all.csv"
+    assert main(["export", str(swept_result), "--quantity", "conductance_S", "--out", str(out_s)]) == EXIT_OK
+    rows = list(csv.reader(out_s.open()))
+    assert rows[0] == ["potential__constant_meV [meV]", "energy [meV]", "temperature [K]", "lead_out", "lead_in",
+                       "conductance_S [S]"]
+    assert len(rows) - 1 == 2 * 41 * 2 * 2 * 2 and {r[3] for r in rows[1:]} == {"source", "drain"}
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    (["--temperature", "3"], "temperature has no value 3.0 K"),
+    (["--quantity", "nope"], "no quantity 'nope'"),
+    (["--select", "field.tesla=1"], "has no dimension 'field__tesla'"),
+    (["--leads", "source"], "give two lead names"),
+    (["--leads", "source,sink"], "no lead 'sink'"),
+    (["--out", "x.txt"], "end the file name in .csv"),
+])
+def test_export_bad_requests_are_one_line(swept_result, tmp_path, capsys, extra, fragment):
+    argv = ["export", str(swept_result), *extra]
+    if "--out" not in extra:
+        argv += ["--out", str(tmp_path / "x.csv")]
+    assert main(argv) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("rgftrans: error: ") and "\n" not in err and fragment in err, err
+    assert not (tmp_path / "x.csv").exists()
+
+
+def test_export_does_not_overwrite_without_asking(swept_result, tmp_path, capsys):
+    out = tmp_path / "keep.csv"
+    out.write_text("precious\n")
+    assert main(["export", str(swept_result), "--out", str(out)]) == EXIT_BAD_INPUT
+    assert out.read_text() == "precious\n"
+    assert main(["export", str(swept_result), "--out", str(out), "--overwrite"]) == EXIT_OK
+    assert out.read_text().startswith("potential__constant_meV [meV],")
