@@ -50,7 +50,6 @@ from rgftrans.rgf import four_terminal_resistance, transmission, transmission_ma
 from rgftrans.slicing import slice_layers  # noqa: E402
 from rgftrans.store import read_result  # noqa: E402
 from rgftrans.sweeps import run_sweep  # noqa: E402
-from rgftrans.thermal import thermal_conductance  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -171,10 +170,12 @@ def gated_dot(out: Path) -> None:
     data = read_result(report.path)
     (axis,) = data.axes
     e_fermi = cfg.fermi_energy_meV
-    trans = data.quantities["transmission"][:, :, 1, 0]  # source -> drain
-    temps = cfg.temperatures()
-    g_t = {temp: np.array([thermal_conductance(data.energies_meV, tr, e_fermi, temp).conductance_g0 for tr in trans])
-           for temp in temps}
+    # The file holds G(mu, T) at every stored energy as mu and every configured temperature (source -> drain);
+    # E_F lies between two stored energies, where G(mu) is smooth at these temperatures: interpolate.
+    temps = data.coordinates["temperature"].values
+    g_stored = data.quantities["conductance"][..., 1, 0]  # (plunger, energy, temperature), 2e²/h
+    g_t = {temp: np.array([np.interp(e_fermi, data.energies_meV, row[:, j]) for row in g_stored])
+           for j, temp in enumerate(temps)}
     print(f"[gated dot] invented example: E_F = {e_fermi:.3f} meV, {report.n_points} plunger voltages x "
           f"{len(data.energies_meV)} energies ({report.n_computed} points computed on 2 processes, "
           f"{report.n_resumed} found in the file) in {report.seconds:.1f} s -> {report.path}")
@@ -197,6 +198,12 @@ def gated_dot(out: Path) -> None:
         ", ".join(f"G_2e2_over_h_at_{t:g}K" for t in temps)
     np.savetxt(out / "gated_dot_conductance.csv", np.column_stack([volts] + [g_t[t] for t in temps]),
                delimiter=",", header=header, fmt="%.8g")
+    from rgftrans.cli import main as rgftrans_main
+
+    status = rgftrans_main(["export", str(report.path), "--quantity", "conductance_S", "--leads", "source,drain",
+                            "--out", str(out / "gated_dot_conductance_S_all.csv"), "--overwrite"])
+    if status != 0:
+        raise RgftransError(f"rgftrans export failed (exit status {status})")
 
 
 def synthetic_trace(out: Path) -> None:
