@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import re
 import sys
+from contextlib import contextmanager
 import warnings
 from pathlib import Path
 
@@ -62,11 +63,20 @@ class _WarningPrinter:
                   "were not repeated", file=sys.stderr)
 
 
-def _one_line_warnings() -> _WarningPrinter:
-    printer = _WarningPrinter()
-    warnings.simplefilter("always")  # the printer dedupes; Python's registry would hide repeats from it
-    warnings.showwarning = printer.show
-    return printer
+@contextmanager
+def one_line_warnings():
+    """Within the block, every warning prints as one line, each distinct one once (see :class:`_WarningPrinter`).
+
+    The command line runs every command inside it; scripts that drive rgftrans can do the same.
+    """
+    with warnings.catch_warnings():
+        printer = _WarningPrinter()
+        warnings.simplefilter("always")  # the printer dedupes; Python's registry would hide repeats from it
+        warnings.showwarning = printer.show
+        try:
+            yield printer
+        finally:
+            printer.summary()
 
 
 def _refuse_waveguide(path) -> None:
@@ -536,12 +546,8 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv=None) -> int:
     """Entry point of the ``rgftrans`` command."""
     args = build_parser().parse_args(argv)
-    with warnings.catch_warnings():  # the one-line printer lasts for this command only
-        printer = _one_line_warnings()
-        try:
-            return _run(args)
-        finally:
-            printer.summary()
+    with one_line_warnings():  # for this command only
+        return _run(args)
 
 
 def _run(args) -> int:

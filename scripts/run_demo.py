@@ -271,14 +271,17 @@ def main(argv=None) -> int:
     parser.add_argument("--out", type=Path, default=ROOT / "out")
     args = parser.parse_args(argv)
     args.out.mkdir(parents=True, exist_ok=True)
+    from rgftrans.cli import one_line_warnings
+
     try:
-        asymmetric_dot(args.out)
-        multi_terminal(args.out, "three_terminal_dot", "Invented three-terminal dot with an antidot")
-        multi_terminal(args.out, "hall_cross", "Invented four-lead GaAs Hall cross")
-        gated_dot(args.out)
-        synthetic_trace(args.out)
-        dark_states(args.out)
-        microwave_cavity(args.out)
+        with one_line_warnings():  # as on the command line: one line per distinct warning
+            asymmetric_dot(args.out)
+            multi_terminal(args.out, "three_terminal_dot", "Invented three-terminal dot with an antidot")
+            multi_terminal(args.out, "hall_cross", "Invented four-lead GaAs Hall cross")
+            gated_dot(args.out)
+            synthetic_trace(args.out)
+            dark_states(args.out)
+            microwave_cavity(args.out)
     except (RgftransError, KeyError, tomllib.TOMLDecodeError) as err:
         print(f"demo: {err}", file=sys.stderr)
         return 2
