@@ -857,6 +857,19 @@ class RunConfig(_Table):
             values[name] = float(value)
         return values
 
+    def _gds_path(self) -> Path:
+        """The GDS file of [gates.gds], relative paths taken from the config's folder."""
+        path = Path(self.gates.gds.path)
+        if not path.is_absolute() and self._base_dir is not None:
+            path = self._base_dir / path
+        return path
+
+    def input_files(self) -> dict[str, Path]:
+        """Files the config reads besides itself, by role (``{"gates.gds.path": Path}``)."""
+        if self.gates is not None and self.gates.gds is not None:
+            return {"gates.gds.path": self._gds_path()}
+        return {}
+
     def gate_layout(self) -> GateLayout | None:
         """The gates as written in the config (reads the GDS file once), or None without gates."""
         if self.gates is None:
@@ -865,9 +878,7 @@ class RunConfig(_Table):
             gates = [Gate(spec.name, spec.region(), spec.voltage_V) for spec in self.gates.gate]
             if self.gates.gds is not None:
                 gds = self.gates.gds
-                path = Path(gds.path)
-                if not path.is_absolute() and self._base_dir is not None:
-                    path = self._base_dir / path
+                path = self._gds_path()
                 try:
                     read = gates_from_gds(path, layers=gds.layer_names(), voltages=gds.voltages,
                                           depth_nm=self.gates.depth_nm, cell=gds.cell)
@@ -955,12 +966,55 @@ class RunConfig(_Table):
 
         Equal for configs that compute the same results: comments,
         whitespace, key order, ``4`` versus ``4.0``, the output path and the
-        cluster do not change it.  A GDS layout enters by its path only.
+        cluster do not change it.  Every file the config reads (a GDS
+        layout) enters by its content: editing the layout between a killed
+        run and its resume makes another sweep, not a mixed file.
         """
-        return hashlib.sha256(self.canonical_json(run_settings=False).encode()).hexdigest()
+        digest = hashlib.sha256(self.canonical_json(run_settings=False).encode())
+        for key, path in sorted(self.input_files().items()):
+            digest.update(f"\n{key}:".encode())
+            digest.update(_file_digest(path, f"{self._source}: {key}").encode())
+        return digest.hexdigest()
 
 
 # --- loading -------------------------------------------------------------------------------------
+
+#: Largest config file read (bytes): a run config is a few kB; anything larger is not one.
+MAX_CONFIG_BYTES = 1 << 20
+#: Largest input file (GDS layout) hashed or read (bytes).
+MAX_INPUT_BYTES = 1 << 30
+
+
+def regular_file(path: Path, what: str, limit: int) -> Path:
+    """``path`` if it is an existing regular file of at most ``limit`` bytes, else a one-line ConfigError.
+
+    Refuses directories, FIFOs and devices (which would hang or never end) before opening them.
+    """
+    import stat
+
+    try:
+        info = path.stat()
+    except FileNotFoundError:
+        raise ConfigError(f"{what}: {path} does not exist; check the path") from None
+    except OSError as error:
+        raise ConfigError(f"{what}: cannot read {path} ({error.strerror or type(error).__name__})") from None
+    if stat.S_ISDIR(info.st_mode):
+        raise ConfigError(f"{what}: {path} is a directory; give the path of a file")
+    if not stat.S_ISREG(info.st_mode):
+        raise ConfigError(f"{what}: {path} is not a regular file (a pipe or device?); give the path of a file")
+    if info.st_size > limit:
+        raise ConfigError(f"{what}: {path} has {info.st_size} bytes, more than the {limit} a file of this kind "
+                          "may have; check the path")
+    return path
+
+
+def _file_digest(path: Path, what: str) -> str:
+    """sha256 (hex) of a regular file's content, read in blocks."""
+    digest = hashlib.sha256()
+    with open(regular_file(path, what, MAX_INPUT_BYTES), "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
 
 
 def load_config(path: str | Path) -> RunConfig:
@@ -981,10 +1035,11 @@ def load_config(path: str | Path) -> RunConfig:
         One line naming the file, the key, the bad value and the fix.
     """
     file = Path(path)
+    if not file.exists():
+        raise ConfigError(f"{file}: cannot read the config, got a path that does not exist; check the path")
+    regular_file(file, f"{file}: the config", MAX_CONFIG_BYTES)
     try:
         text = file.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ConfigError(f"{file}: cannot read the config, got a path that does not exist; check the path") from None
     except (OSError, UnicodeDecodeError) as error:
         reason = getattr(error, "strerror", None) or type(error).__name__
         raise ConfigError(f"{file}: cannot read the config ({reason}); give a readable UTF-8 TOML file") from None

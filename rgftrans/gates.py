@@ -67,6 +67,7 @@ import dataclasses
 import math
 import os
 from collections.abc import Iterable, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -135,6 +136,30 @@ def _check_depth(depth_nm: object) -> float:
 #: operated within a few volts (beyond, the Schottky barrier leaks or the dielectric breaks down); a value
 #: past 10 V is a unit slip (mV typed as V) far more often than a real setting (common practice, no source).
 MAX_GATE_VOLTAGE_V = 10.0
+
+
+class _Captured:
+    text = ""
+
+
+@contextmanager
+def _captured_c_stderr():
+    """Capture what C code writes to file descriptor 2 inside the block (the GDSII reader reports there)."""
+    import sys
+    import tempfile
+
+    captured = _Captured()
+    sys.stderr.flush()
+    saved = os.dup(2)
+    with tempfile.TemporaryFile() as tmp:
+        os.dup2(tmp.fileno(), 2)
+        try:
+            yield captured
+        finally:
+            os.dup2(saved, 2)
+            os.close(saved)
+            tmp.seek(0)
+            captured.text = tmp.read(4096).decode("utf-8", "replace")
 
 
 def _check_voltage(owner: str, voltage: object) -> float:
@@ -776,20 +801,27 @@ def gates_from_gds(path: str | os.PathLike, *, layers: Mapping[int, str] | list[
             f"give exactly the gates {', '.join(map(repr, names.values()))}"
         )
     file = os.fspath(path)
-    if not os.path.isfile(file):
+    if not os.path.exists(file):
         raise GeometryError(f"GDSII file {file!r} does not exist; check the path")
+    if os.path.isdir(file):
+        raise GeometryError(f"GDSII path {file!r} is a directory; give the path of a .gds file")
+    if not os.path.isfile(file):
+        raise GeometryError(f"GDSII path {file!r} is not a regular file (a pipe or device?); give a .gds file")
     with open(file, "rb") as stream:
         head = stream.read(len(_GDS_MAGIC))
-    if head != _GDS_MAGIC:
+    if head != _GDS_MAGIC:  # (the message quotes none of the file's bytes: it may be anything)
         raise GeometryError(
-            f"{file!r} is not a GDSII stream file (it starts with {head!r}, not the HEADER record "
-            f"{_GDS_MAGIC!r}); export the layout as GDSII"
+            f"{file!r} is not a GDSII stream file (it does not start with the GDSII HEADER record); "
+            "export the layout as GDSII"
         )
-    try:
-        library = gdstk.read_gds(file)
-    except OSError as error:
-        message = " ".join(str(error).split())
-        raise GeometryError(f"cannot read GDSII file {file!r} ({message}); re-export it") from None
+    with _captured_c_stderr() as said:
+        try:
+            library = gdstk.read_gds(file)
+        except OSError:
+            library = None
+    if library is None:  # the reader's own complaint goes into our one line instead of onto the terminal
+        reason = " ".join(said.text.replace("[GDSTK]", "").split()) or "unreadable"
+        raise GeometryError(f"cannot read GDSII file {file!r} ({reason}); re-export it") from None
     if unit_nm is None:
         scale = float(library.unit) * 1e9
     else:

@@ -43,6 +43,11 @@ Lead dimensions: a quantity's trailing dimension named ``lead`` or
 ``lead_<something>`` (``lead_out``, ``lead_in``) counts leads; its size must
 equal the number of leads and its index scale points into ``lead_name``.
 
+Integrity: every array of more than one element is stored in chunks with
+HDF5's Fletcher-32 checksum filter, so a byte damaged on disk is reported when
+it is read (one-line "damaged" error) instead of handing back wrong numbers;
+the config text carries its SHA-256 (root attribute ``config_sha256``).
+
 Crash safety: :meth:`ResultFile.write_point` writes and flushes the data, then
 sets and flushes the ``completed`` flag, so an interrupted point is recomputed
 on resume rather than trusted.  HDF5 keeps no journal: a kill in the middle of
@@ -53,6 +58,7 @@ interrupted ``create`` leaves no half-built file at the output path.
 
 from __future__ import annotations
 
+import hashlib
 import operator
 import os
 import platform
@@ -100,7 +106,7 @@ COMPLETED = "completed"
 #: Names a user axis, dimension, quantity or extra may not take.
 _RESERVED = frozenset({ENERGY_NAME, LEAD_DIM, LEAD_NAME, COMPLETED})
 #: Root attributes the layout itself writes; the writer's own attributes may not take these names.
-_ROOT_ATTRS = frozenset({"format", "schema_version", "created", "config_hash"})
+_ROOT_ATTRS = frozenset({"format", "schema_version", "created", "config_hash", "config_sha256"})
 #: Identifiers: usable as HDF5 names, netCDF dimensions and xarray attribute access.
 _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 #: Units of dimensionless numbers (CF convention) and of text.
@@ -310,6 +316,11 @@ def _read_layout(f: h5py.File, path) -> _Layout:
     for name in ("config", "provenance", RESULTS_GROUP):
         if name not in f:
             raise missing(f"/{name}")
+    text = f["config"][()]
+    text = text if isinstance(text, bytes) else str(text).encode("utf-8")
+    if _attr_text(f, "config_sha256") != hashlib.sha256(text).hexdigest():
+        raise StoreError(f"{path}: damaged rgftrans result file, the stored config text does not match its "
+                         f"checksum; {_DAMAGED_FIX}")
     g = f[RESULTS_GROUP]
     axis_names = _attr_text(g, "parameter_axes")
     quantity_names = _attr_text(g, "quantities")
@@ -389,8 +400,9 @@ def _open_h5(path: Path, mode: str) -> h5py.File:
         raise StoreError(f"{path}: damaged or truncated HDF5 file ({reason}); {_DAMAGED_FIX}") from exc
 
 
-#: What h5py raises when it meets damaged content (bad object headers, missing links, odd types).
-_READ_ERRORS = (OSError, KeyError, TypeError)
+#: What h5py raises when it meets damaged content (bad object headers, missing links, odd types, a failed
+#: Fletcher-32 checksum, a damaged heap).
+_READ_ERRORS = (OSError, KeyError, TypeError, RuntimeError, ValueError)
 
 
 def _damaged(path, exc: BaseException) -> StoreError:
@@ -429,7 +441,7 @@ def _scale(group, name: str, values, units: str, long_name: str):
                 f"values ({ds.shape[0]} entries, now {values.size}); give the dimension another name"
             )
         return ds
-    ds = group.create_dataset(name, data=values)
+    ds = group.create_dataset(name, data=values, **_checksummed(values.shape))
     ds.make_scale(name)
     _annotate(ds, units, long_name)
     return ds
@@ -450,6 +462,13 @@ def _point_chunks(n_axes: int, point_shape: tuple[int, ...]):
     """Chunk shape of one parameter point; None (contiguous) for scalar datasets."""
     chunks = (1,) * n_axes + tuple(point_shape)
     return chunks or None
+
+
+def _checksummed(shape, chunks=None) -> dict:
+    """Dataset options for Fletcher-32 checksums: chunked storage (scalars cannot be chunked, so go without)."""
+    if not shape:
+        return {}
+    return {"chunks": chunks or True, "fletcher32": True}
 
 
 def _provenance() -> dict[str, str]:
@@ -559,6 +578,7 @@ def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, 
         f.attrs["schema_version"] = np.int64(SCHEMA_VERSION)
         f.attrs["created"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
         f.attrs["config_hash"] = config_hash
+        f.attrs["config_sha256"] = hashlib.sha256(config_text.encode("utf-8")).hexdigest()
         for key, value in attrs.items():
             f.attrs[key] = value
         cfg = f.create_dataset("config", data=config_text, dtype=h5py.string_dtype("utf-8"))
@@ -575,6 +595,7 @@ def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, 
         axis_scales = [_scale(g, a.name, a.values, a.units, a.long_name) for a in axes]
         energy = _scale(g, ENERGY_NAME, energies, ENERGY_UNITS, "energy")
         lead = _index_scale(g, LEAD_DIM, len(lead_names))
+        # (variable-length strings take no filters: the lead names go without a checksum)
         names = g.create_dataset(LEAD_NAME, data=list(lead_names), dtype=h5py.string_dtype("utf-8"))
         _annotate(names, _TEXT_UNITS, "lead name")
         _attach(names, [lead])
@@ -586,11 +607,11 @@ def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, 
         shape = tuple(axis.size for axis in axes)
         for qname, spec in quantities.items():
             point = (energies.size, *spec.tail_shape)
-            ds = g.create_dataset(qname, shape=(*shape, *point), dtype=spec.dtype,
-                                  chunks=_point_chunks(len(shape), point), fillvalue=_fill_value(spec.dtype))
+            ds = g.create_dataset(qname, shape=(*shape, *point), dtype=spec.dtype, fillvalue=_fill_value(spec.dtype),
+                                  **_checksummed((*shape, *point), _point_chunks(len(shape), point)))
             _annotate(ds, spec.units, spec.long_name)
             _attach(ds, [*axis_scales, energy, *(tail_scales[d] for d, _ in spec.shape_tail)])
-        done = g.create_dataset(COMPLETED, shape=shape, dtype=bool, fillvalue=False)
+        done = g.create_dataset(COMPLETED, shape=shape, dtype=bool, fillvalue=False, **_checksummed(shape))
         _annotate(done, _UNITLESS, "parameter point written (all quantities stored)")
         _attach(done, axis_scales)
 
@@ -834,8 +855,9 @@ class ResultFile:
                 else:
                     scales.append(_index_scale(grp, dim, size))
             ds = grp.create_dataset(name, shape=(*self.shape, *arr.shape), dtype=arr.dtype,
-                                    chunks=_point_chunks(len(self.shape), arr.shape),
-                                    fillvalue=_fill_value(arr.dtype))
+                                    fillvalue=_fill_value(arr.dtype),
+                                    **_checksummed((*self.shape, *arr.shape),
+                                                   _point_chunks(len(self.shape), arr.shape)))
             _annotate(ds, units, long_name)
             _attach(ds, scales)
             grp.attrs["extras"] = " ".join([*listed, name])

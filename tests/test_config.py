@@ -4,6 +4,7 @@ messages that name the key and the value, and the builders give the right device
 from __future__ import annotations
 
 import pickle
+import os
 import re
 from pathlib import Path
 
@@ -433,6 +434,44 @@ def test_gates_from_a_gds_file_relative_to_the_config(tmp_path):
     missing.write_text(toml(gates=gds.replace('path = "gates.gds"', 'path = "missing.gds"')))
     with pytest.raises(ConfigError, match=r"elsewhere\.toml: gates\.gds: GDSII file .* does not exist"):
         load_config(missing).build_device()
+
+
+def test_config_hash_follows_the_content_of_the_gds_file(tmp_path):
+    """Editing the layout makes another sweep (a resumed file never mixes two layouts); touching it does not."""
+    def write(x1):
+        library = gdstk.Library(unit=1e-9, precision=1e-12)
+        library.new_cell("TOP").add(gdstk.rectangle((15.0, 25.0), (x1, 60.0), layer=5))
+        library.write_gds(tmp_path / "gates.gds")
+
+    gds = '[gates]\ndepth_nm = 50.0\n[gates.gds]\npath = "gates.gds"\nlayers = {"5" = "plunger"}\n' \
+          "voltages = {plunger = -0.05}\n"
+    path = tmp_path / "run.toml"
+    path.write_text(toml(gates=gds))
+    write(25.0)
+    first = load_config(path).config_hash()
+    write(25.0)  # rewritten, same content
+    assert load_config(path).config_hash() == first
+    write(26.0)  # the gate grew by 1 nm
+    assert load_config(path).config_hash() != first
+
+
+@pytest.mark.parametrize("make, fragment", [
+    (lambda p: p.mkdir(), "is a directory"),
+    (lambda p: os.mkfifo(p), "is not a regular file"),
+    (lambda p: p.write_text("# " + "x" * (1 << 21)), "more than the 1048576"),
+])
+def test_config_path_that_is_not_a_small_regular_file(tmp_path, make, fragment):
+    """A FIFO, a device or a huge file as the config is refused before it is opened (no hang, no memory run)."""
+    path = tmp_path / "run.toml"
+    make(path)
+    with pytest.raises(ConfigError) as err:
+        load_config(path)
+    assert fragment in str(err.value) and "\n" not in str(err.value)
+
+
+def test_dev_zero_as_config_is_refused():
+    with pytest.raises(ConfigError, match="is not a regular file"):
+        load_config("/dev/zero")
 
 
 # --- records -------------------------------------------------------------------------------------

@@ -9,6 +9,7 @@ invented layouts written with gdstk into pytest's tmp_path.
 """
 
 import math
+import os
 
 import numpy as np
 import pytest
@@ -346,6 +347,38 @@ def test_truncated_gds_file(tmp_path):
     with pytest.raises(GeometryError) as error:
         gates_from_gds(path, layers=[1], voltages={"layer1": 0.1}, depth_nm=D)
     assert "cannot read GDSII file" in one_line(error)
+
+
+def test_truncated_gds_prints_nothing_of_its_own(tmp_path, capfd):
+    """The reader library's complaint goes into our one-line error, not onto the terminal before it."""
+    good = write_layout(tmp_path / "dot.gds", nm_per_unit=1.0)
+    path = tmp_path / "half.gds"
+    path.write_bytes(good.read_bytes()[: len(good.read_bytes()) // 2])
+    with pytest.raises(GeometryError) as error:
+        gates_from_gds(path, layers=[1], voltages={"layer1": 0.1}, depth_nm=D)
+    out, err = capfd.readouterr()
+    assert (out, err) == ("", "")
+    assert "End of file" in one_line(error)
+
+
+def test_not_a_gds_file_quotes_none_of_its_bytes(tmp_path):
+    path = tmp_path / "secret.gds"
+    path.write_bytes(b"password=hunter2\n")
+    with pytest.raises(GeometryError) as error:
+        gates_from_gds(path, layers=[1], voltages={"layer1": 0.1}, depth_nm=D)
+    assert "hunter2" not in str(error.value) and "password" not in str(error.value)
+
+
+@pytest.mark.parametrize("make, fragment", [
+    (lambda p: p.mkdir(), "is a directory"),
+    (lambda p: os.mkfifo(p), "is not a regular file"),
+])
+def test_gds_path_that_is_not_a_file(tmp_path, make, fragment):
+    path = tmp_path / "layout.gds"
+    make(path)
+    with pytest.raises(GeometryError) as error:
+        gates_from_gds(path, layers=[1], voltages={"layer1": 0.1}, depth_nm=D)
+    assert fragment in one_line(error)
 
 
 def test_missing_gds_file(tmp_path):

@@ -516,3 +516,41 @@ def test_file_locked_by_a_running_writer(tmp_path):
     finally:
         holder.communicate("", timeout=30)
     assert_one_line(err.value, "running.h5", "locked by another process", "wait for it to finish")
+
+
+# --- integrity: checksums -----------------------------------------------------------------------
+
+
+def _flip_byte_in_chunk(path, dataset, chunk=0, at=5):
+    """Flip one byte inside the stored bytes of a dataset's chunk (as a disk error would)."""
+    with h5py.File(path, "r") as f:
+        info = f[dataset].id.get_chunk_info(chunk)
+    with open(path, "r+b") as fh:
+        fh.seek(info.byte_offset + at)
+        byte = fh.read(1)
+        fh.seek(info.byte_offset + at)
+        fh.write(bytes([byte[0] ^ 0x5A]))
+
+
+@pytest.mark.parametrize("dataset", ["results/transmission", "results/conductance", "results/vg_plunger",
+                                     "results/completed"])
+def test_flipped_byte_in_stored_data_is_reported_not_returned(tmp_path, dataset):
+    """Fletcher-32 on every chunked dataset: a damaged byte gives the one-line 'damaged' error, never numbers."""
+    path = make_file(tmp_path / "c.h5", 1, points=all_points(1))
+    read_result(path)  # intact: reads fine
+    _flip_byte_in_chunk(path, dataset, at=1)
+    with pytest.raises(StoreError) as err:
+        read_result(path)
+    assert_one_line(err.value, "damaged")
+    with pytest.raises(StoreError):
+        validate(path)
+
+
+def test_damaged_config_text_is_reported(tmp_path):
+    path = make_file(tmp_path / "t.h5", 0, points=all_points(0))
+    with h5py.File(path, "r+") as f:
+        del f["config"]
+        f.create_dataset("config", data=CONFIG.replace("dot", "dog"), dtype=h5py.string_dtype("utf-8"))
+    with pytest.raises(StoreError) as err:
+        read_result(path)
+    assert_one_line(err.value, "config text does not match its checksum")
