@@ -86,7 +86,7 @@ except ImportError:
 
 
 __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "Axis", "QuantitySpec", "ResultData", "ResultFile", "StoreError",
-           "read_result", "summary", "validate"]
+           "OutputLock", "is_own_file", "lock_owner", "printable", "read_result", "summary", "validate"]
 
 #: Value of the root ``format`` attribute that marks a file as ours.
 FORMAT_NAME = "rgftrans-result"
@@ -113,7 +113,7 @@ _NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _UNITLESS = "1"
 _TEXT_UNITS = ""
 #: The fix every "damaged file" message ends with.
-_DAMAGED_FIX = "rerun the sweep or restore a copy"
+_DAMAGED_FIX = "restore a copy, or compute it again with 'rgftrans run CONFIG --overwrite'"
 #: Packages whose versions go into /provenance (read from metadata: numba is not imported).
 _PROVENANCE_PACKAGES = ("numpy", "scipy", "numba", "h5py")
 
@@ -378,8 +378,91 @@ def _one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split()) or type(exc).__name__
 
 
+# --- the writer's lock --------------------------------------------------------------------------
+
+
+#: Lock files held by this process (its own reads must not take its own lock for another writer's).
+_HELD_LOCKS: set = set()
+
+
+class OutputLock:
+    """Exclusive right to write one result file: ``<file>.lock`` beside it, held with ``flock``.
+
+    The lock file records the owner (host, PID, start time).  The kernel drops
+    the lock when the owner exits, however it exits, so a crashed run never
+    leaves a stale lock; the file that remains is harmless.  Readers take no
+    lock.  Use as a context manager.
+    """
+
+    def __init__(self, path):
+        self.path = Path(path)
+        self.lock_path = self.path.with_name(self.path.name + ".lock")
+        self._fd = None
+
+    def __enter__(self):
+        import fcntl
+
+        while True:
+            fd = os.open(self.lock_path, os.O_RDWR | os.O_CREAT, 0o644)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError:
+                os.close(fd)
+                raise StoreError(f"{self.path}: is being written by {lock_owner(self.path) or 'another run'}; "
+                                 "wait for that run to finish, or choose another output path") from None
+            # The lock file may have been replaced between open and flock: then lock the new one.
+            if os.path.exists(self.lock_path) and os.stat(self.lock_path).st_ino == os.fstat(fd).st_ino:
+                break
+            os.close(fd)
+        started = datetime.now(timezone.utc).isoformat(timespec="seconds")
+        os.ftruncate(fd, 0)
+        os.write(fd, f"rgftrans run, PID {os.getpid()} on host {socket.gethostname()}, started {started}\n"
+                 .encode())
+        self._fd = fd
+        _HELD_LOCKS.add(os.path.abspath(self.lock_path))
+        return self
+
+    def __exit__(self, *exc):
+        if self._fd is not None:
+            _HELD_LOCKS.discard(os.path.abspath(self.lock_path))
+            os.close(self._fd)  # releases the lock
+            self._fd = None
+
+
+def lock_owner(path) -> str | None:
+    """Who holds the write lock of a result file (``"PID ... on host ..."``), or None if nobody does."""
+    import fcntl
+
+    lock_path = Path(path).with_name(Path(path).name + ".lock")
+    if os.path.abspath(lock_path) in _HELD_LOCKS:
+        return None  # held by this process: not another writer
+    try:
+        fd = os.open(lock_path, os.O_RDONLY)
+    except OSError:
+        return None
+    try:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_SH | fcntl.LOCK_NB)
+        except OSError:
+            text = os.read(fd, 4096).decode("utf-8", "replace").strip()
+            return printable(text.removeprefix("rgftrans run, ")) or "another run"
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        return None
+    finally:
+        os.close(fd)
+
+
+def printable(text: str) -> str:
+    """``text`` with terminal control characters (and other non-printables) shown as ``\\xNN`` escapes."""
+    return "".join(ch if ch.isprintable() or ch == " " else f"\\x{ord(ch):02x}" for ch in str(text))
+
+
 def _open_h5(path: Path, mode: str) -> h5py.File:
-    """Open an existing file, turning every way it can fail into one StoreError line."""
+    """Open an existing file, turning every way it can fail into one StoreError line.
+
+    Read-only opens skip HDF5's own file locking, so ``info`` and ``plot`` work
+    while a sweep writes the file (what they read is guarded by ``completed``).
+    """
     if not path.exists():
         raise StoreError(f"{path}: no such file; check the path (run a sweep to create it)")
     if path.is_dir():
@@ -389,9 +472,13 @@ def _open_h5(path: Path, mode: str) -> h5py.File:
     if not h5py.is_hdf5(path):
         raise StoreError(f"{path}: not an HDF5 file; pass a result file written by an rgftrans sweep")
     try:
-        return h5py.File(path, mode)
+        return h5py.File(path, mode, locking=False) if mode == "r" else h5py.File(path, mode)
     except OSError as exc:
         reason = _one_line(exc)
+        owner = lock_owner(path)
+        if owner:
+            raise StoreError(f"{path}: is being written by {owner} and could not be read just now ({reason}); "
+                             "try again in a moment") from exc
         if "unable to lock file" in reason.lower():
             raise StoreError(
                 f"{path}: locked by another process (a sweep still writing it?) ({reason}); "
@@ -419,6 +506,10 @@ def _reading(path):
         except StoreError:
             raise
         except _READ_ERRORS as exc:
+            owner = lock_owner(path)
+            if owner:  # a write in progress, not damage
+                raise StoreError(f"{path}: is being written by {owner} and could not be read just now "
+                                 f"({_one_line(exc)}); try again in a moment") from exc
             raise _damaged(path, exc) from exc
 
 
@@ -690,7 +781,8 @@ class ResultFile:
         attrs : dict of str to str, bool, int or float, optional
             The writer's own scalar root attributes (e.g. ``spin_degeneracy``).
         overwrite : bool
-            Replace an existing file at ``path``; otherwise an existing file is an error.
+            Replace an existing rgftrans result file at ``path`` (never a file
+            of another kind); otherwise an existing file is an error.
         """
         path = Path(path)
         try:
@@ -708,7 +800,7 @@ class ResultFile:
             )
         if path.is_dir():
             raise StoreError(f"{path}: is a directory; choose a file name for the output")
-        if path.exists() and not overwrite:
+        if path.exists() and (not overwrite or not is_own_file(path)):
             raise StoreError(f"{path}: {_describe_existing(path, config_hash)}")
         # Build under a temporary name in the same directory, then rename: never a half-built file at path.
         tmp = path.with_name(f".{path.name}.{os.getpid()}.partial")
@@ -918,16 +1010,43 @@ class ResultFile:
         return f"<ResultFile {str(self.path)!r} shape={self.shape} n_E={self.energies_meV.size} {state}>"
 
 
+#: HDF5's file signature (the first 8 bytes of every HDF5 file).
+_HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+#: Bytes scanned for our format marker in a file h5py cannot open (a truncated file of ours).
+_MARKER_SCAN_BYTES = 1 << 20
+
+
+def is_own_file(path) -> bool:
+    """Whether ``path`` is an rgftrans result file, readable or damaged (the only kind rgftrans replaces).
+
+    A readable file is ours when its ``format`` attribute says so; one that h5py
+    cannot open (truncated by a crash) when it is HDF5 and the format marker
+    stands in its first MiB, where the root attributes live.
+    """
+    path = Path(path)
+    if not path.is_file():
+        return False
+    try:
+        with h5py.File(path, "r", locking=False) as f:
+            return _attr_text(f, "format") == FORMAT_NAME
+    except (OSError, *_READ_ERRORS):
+        pass
+    with open(path, "rb") as fh:
+        head = fh.read(_MARKER_SCAN_BYTES)
+    return head.startswith(_HDF5_SIGNATURE) and FORMAT_NAME.encode() in head
+
+
 def _describe_existing(path: Path, config_hash: str) -> str:
     """Why an existing file blocks :meth:`ResultFile.create`, ending in the fix."""
     fix = "pass overwrite=True / --overwrite to replace it, or choose another output path"
+    if not is_own_file(path):
+        return ("exists and is not an rgftrans result file; rgftrans replaces only its own files -- choose another "
+                "output path or move the file away")
     try:
         with _open_h5(path, "r") as f:
             fmt, old = _attr_text(f, "format"), _attr_text(f, "config_hash")
     except StoreError:
-        return f"exists and is not a readable rgftrans result file; {fix}"
-    if fmt != FORMAT_NAME:
-        return f"exists and is not an rgftrans result file; {fix}"
+        return f"exists and is a damaged rgftrans result file; {fix}"
     if old == config_hash:
         return (f"exists and holds this sweep (config hash {str(old)[:12]}); resume it with "
                 f"ResultFile.open_for_resume, or {fix}")
@@ -1101,4 +1220,8 @@ def summary(path) -> str:
     for key, shape, dtype, units in extras:
         lines.append(f"  extra {key}: {shape} {dtype} [{units}]")
     lines.append(f"  completed: {n_done}/{n_total} parameter points ({100.0 * n_done / n_total:.1f} %)")
-    return "\n".join(lines)
+    owner = lock_owner(path)
+    if owner:
+        lines.append(f"  being written now by {owner}")
+    # Names, units and attributes come from the file: no terminal control sequences get through.
+    return "\n".join(printable(line) for line in lines)

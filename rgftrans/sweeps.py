@@ -31,8 +31,8 @@ from pathlib import Path
 import numpy as np
 
 from .config import RunConfig
-from .errors import ComputationFailed, RgftransError
-from .store import Axis, QuantitySpec, ResultFile, StoreError
+from .errors import ComputationFailed, RgftransError, RgftransWarning
+from .store import Axis, OutputLock, QuantitySpec, ResultFile, StoreError
 
 __all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name", "sweep_temperatures",
            "stored_conductance"]
@@ -238,22 +238,36 @@ def _reissue(caught) -> None:
 # --------------------------------------------------------------------------
 
 class _Journal:
+    """``<file>.journal/``: one atomic entry per finished point; ours by the marker file inside it."""
+
+    #: Marker file of a journal folder this package created; it holds the sweep's config hash.
+    MARKER = ".rgftrans-journal"
+
     def __init__(self, result_path: Path, config_hash: str):
         self.dir = result_path.with_name(result_path.name + ".journal")
         self.hash = config_hash
 
+    def check_owned(self) -> None:
+        """Refuse (one line) a path at the journal's place that rgftrans did not create: it is never deleted."""
+        if self.dir.exists() and not (self.dir.is_dir() and (self.dir / self.MARKER).is_file()):
+            kind = "folder" if self.dir.is_dir() else "file"
+            raise StoreError(f"{self.dir}: a {kind} rgftrans did not create sits where the sweep keeps its "
+                             "journal; move it away (rgftrans deletes only its own files), or choose another "
+                             "output path")
+
     def open(self) -> None:
+        self.check_owned()
         if self.dir.exists() and self._stored_hash() != self.hash:
-            shutil.rmtree(self.dir)  # a journal of another sweep: the result file decides what survives
+            shutil.rmtree(self.dir)  # our journal of another sweep: the result file decides what survives
         self.dir.mkdir(parents=True, exist_ok=True)
-        (self.dir / "config_hash").write_text(self.hash)
+        (self.dir / self.MARKER).write_text(self.hash)
 
     def _stored_hash(self) -> str | None:
-        f = self.dir / "config_hash"
-        return f.read_text().strip() if f.exists() else None
+        f = self.dir / self.MARKER
+        return f.read_text().strip() if f.is_file() else None
 
     def matches(self) -> bool:
-        return self.dir.exists() and self._stored_hash() == self.hash
+        return self.dir.is_dir() and self._stored_hash() == self.hash
 
     def _name(self, index) -> Path:
         return self.dir / ("p_" + "_".join(str(i) for i in index) + ".npz")
@@ -267,16 +281,28 @@ class _Journal:
         os.replace(tmp, self._name(index))
 
     def entries(self) -> Iterable[tuple[tuple[int, ...], dict[str, np.ndarray]]]:
+        import zipfile
+
         for f in sorted(self.dir.glob("p_*.npz")):
-            index = tuple(int(i) for i in f.stem[2:].split("_") if i != "")
             try:
-                with np.load(f) as data:
-                    yield index, {k: data[k] for k in data.files}
-            except (OSError, ValueError, EOFError):
-                f.unlink()  # an unreadable entry: the point is recomputed
+                index = tuple(int(i) for i in f.stem[2:].split("_") if i != "")
+                with np.load(f, allow_pickle=False) as data:
+                    values = {k: data[k] for k in data.files}
+            except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile) as exc:
+                _drop_entry(f, exc)
+                continue
+            yield index, values
 
     def remove(self) -> None:
-        shutil.rmtree(self.dir, ignore_errors=True)
+        if self.dir.is_dir() and (self.dir / self.MARKER).is_file():  # only a journal of ours
+            shutil.rmtree(self.dir, ignore_errors=True)
+
+
+def _drop_entry(f: Path, exc: BaseException) -> None:
+    """An unreadable journal entry counts as missing: the point is computed again, and the user is told."""
+    warnings.warn(f"journal entry {f.name} is unreadable ({type(exc).__name__}); that point is computed again",
+                  RgftransWarning, stacklevel=3)
+    f.unlink(missing_ok=True)
 
 
 # --------------------------------------------------------------------------
@@ -316,9 +342,14 @@ def _replay(rf: ResultFile, journal: _Journal) -> int:
     done = rf.completed
     n = 0
     for index, values in journal.entries():
-        if not done[index]:
+        try:
+            if done[index]:
+                continue
             _write(rf, index, values)
-            n += 1
+        except (IndexError, StoreError) as exc:  # an entry of the wrong shape or index: recompute that point
+            _drop_entry(journal._name(index), exc)
+            continue
+        n += 1
     return n
 
 
@@ -430,34 +461,50 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
     path = Path(path if path is not None else cfg.output.path)
     path.parent.mkdir(parents=True, exist_ok=True)
     overwrite = cfg.output.overwrite if overwrite is None else overwrite
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, (int, np.integer))
+                                or workers < 1):
+        raise RgftransError(f"workers must be a whole number >= 1, got {workers!r}")
     workers = workers or cfg.cluster.workers
     executor = executor or (cfg.cluster.executor if address is None else "dask")
     address = address or cfg.cluster.address
 
+    if path.suffix.lower() not in (".h5", ".hdf5"):
+        raise StoreError(f"{path}: the result file is HDF5; end its name in .h5")
+
     # Validate the device up front: a bad geometry fails here, before any file or process exists.
     model = cfg.build_device(cfg.base_point()).discretise()
     journal = _Journal(path, cfg.config_hash())
-    rf = _open_result(cfg, path, overwrite, journal, model)
-    try:
-        journal.open()
-        _replay(rf, journal)
-        done = rf.completed
-        points = list(grid_points(cfg))
-        todo = [(cfg, idx, pt) for idx, pt in points if not done[idx]]
-        n_resumed = len(points) - len(todo)
-        from tqdm import tqdm
+    with OutputLock(path):  # one writer per output; a second run is refused with the first one's name
+        journal.check_owned()
+        _remove_stale_partials(path)
+        rf = _open_result(cfg, path, overwrite, journal, model)
+        try:
+            journal.open()
+            _replay(rf, journal)
+            done = rf.completed
+            points = list(grid_points(cfg))
+            todo = [(cfg, idx, pt) for idx, pt in points if not done[idx]]
+            n_resumed = len(points) - len(todo)
+            from tqdm import tqdm
 
-        bar = tqdm(total=len(points), initial=n_resumed, disable=quiet, unit="point", dynamic_ncols=True,
-                   desc=path.name)
-        iterator = (_iterate_dask(todo, workers, address) if executor == "dask" else _iterate_local(todo, workers))
-        for index, values, caught in iterator:
-            _reissue(caught)
-            journal.write(index, values)
-            _write(rf, index, values)
-            bar.update(1)
-        bar.close()
-    finally:
-        rf.close()
-    journal.remove()
+            bar = tqdm(total=len(points), initial=n_resumed, disable=quiet, unit="point", dynamic_ncols=True,
+                       desc=path.name)
+            iterator = (_iterate_dask(todo, workers, address) if executor == "dask"
+                        else _iterate_local(todo, workers))
+            for index, values, caught in iterator:
+                _reissue(caught)
+                journal.write(index, values)
+                _write(rf, index, values)
+                bar.update(1)
+            bar.close()
+        finally:
+            rf.close()
+        journal.remove()
     return SweepReport(path=path, n_points=len(points), n_computed=len(todo), n_resumed=n_resumed,
                        seconds=time.perf_counter() - t0)
+
+
+def _remove_stale_partials(path: Path) -> None:
+    """Half-built files of a creation that was killed (``.NAME.PID.partial``): with the lock held, none is live."""
+    for stale in path.parent.glob(f".{path.name}.*.partial"):
+        stale.unlink(missing_ok=True)

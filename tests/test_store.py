@@ -22,6 +22,8 @@ from rgftrans.store import (
     QuantitySpec,
     ResultFile,
     StoreError,
+    OutputLock,
+    lock_owner,
     read_result,
     summary,
     validate,
@@ -501,21 +503,43 @@ def test_summary_lists_axes_quantities_and_progress(tmp_path):
 
 
 @pytest.mark.skipif(os.environ.get("HDF5_USE_FILE_LOCKING", "").upper() == "FALSE", reason="HDF5 file locking off")
-def test_file_locked_by_a_running_writer(tmp_path):
+def test_readers_work_while_a_writer_holds_the_file_and_a_second_writer_is_refused(tmp_path):
     path = make_file(tmp_path / "running.h5", 1, points=[(0,)])
-    # Another process holds the file open for writing, as a running sweep does (HDF5 file locking).
+    # Another process holds the write lock and the file open for writing, as a running sweep does.
     holder = subprocess.Popen(
-        [sys.executable, "-c", "import h5py, sys; f = h5py.File(sys.argv[1], 'r+'); print('open', flush=True); "
+        [sys.executable, "-c", "import h5py, sys; from rgftrans.store import OutputLock; "
+         "lock = OutputLock(sys.argv[1]).__enter__(); f = h5py.File(sys.argv[1], 'r+'); print('open', flush=True); "
          "sys.stdin.read()", str(path)],
         stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
     )
     try:
         assert holder.stdout.readline().strip() == "open"
+        text = summary(path)  # readers keep working
+        data = read_result(path)
         with pytest.raises(StoreError) as err:
-            summary(path)
+            with OutputLock(path):
+                pass
     finally:
         holder.communicate("", timeout=30)
-    assert_one_line(err.value, "running.h5", "locked by another process", "wait for it to finish")
+    assert f"being written now by PID {holder.pid} on host" in text
+    assert data.completed[0] and not data.completed[1]
+    assert_one_line(err.value, "running.h5", f"is being written by PID {holder.pid}", "wait for that run")
+    with OutputLock(path):  # the writer exited: the kernel released its lock, nothing stale remains
+        assert lock_owner(path) is None  # held by this process, which is no other writer
+    assert lock_owner(path) is None
+
+
+def test_info_prints_no_terminal_control_characters(tmp_path):
+    axis = Axis("vg", [0.0, 1.0], "V\x1b[2J", "gate \x1b]0;pwned\x07 voltage")
+    path = make_file(tmp_path / "esc.h5", 0, points=all_points(0))
+    with ResultFile.create(tmp_path / "esc2.h5", config_text=CONFIG, config_hash=HASH, axes=[axis],
+                           energies_meV=ENERGIES, lead_names=["s\x1b[31m", "d"], quantities=QUANTITIES,
+                           attrs={"note": "bell\x07"}):
+        pass
+    for p in (path, tmp_path / "esc2.h5"):
+        text = summary(p)
+        assert not any(ord(c) < 32 and c != "\n" or ord(c) == 127 for c in text), repr(text)
+    assert "\\x1b[2J" in summary(tmp_path / "esc2.h5")
 
 
 # --- integrity: checksums -----------------------------------------------------------------------

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from rgftrans.config import parse_config
+from rgftrans.errors import RgftransError
 from rgftrans.rgf import transmission
 from rgftrans.store import StoreError, read_result
 from rgftrans.sweeps import axis_dataset_name, compute_point, grid_points, run_sweep
@@ -190,7 +191,7 @@ def test_damaged_file_is_rebuilt_from_the_journal(tmp_path):
     # Simulate a crash in the middle of a write: a journal of finished points, and a truncated HDF5 file.
     journal = path.with_name(path.name + ".journal")
     journal.mkdir()
-    (journal / "config_hash").write_text(cfg.config_hash())
+    (journal / ".rgftrans-journal").write_text(cfg.config_hash())  # the marker of a journal of ours
     for index, point in list(grid_points(cfg))[:5]:
         np.savez(journal / ("p_" + "_".join(map(str, index)) + ".npz"), **compute_point(cfg, point))
     data = path.read_bytes()
@@ -253,3 +254,107 @@ def test_sigkill_at_random_moments_then_resume_equals_uninterrupted(tmp_path):
     assert np.array_equal(final.quantities["transmission"], ref.quantities["transmission"])
     assert np.array_equal(final.quantities["n_open"], ref.quantities["n_open"])
     assert not Path(str(tmp_path / "killed.h5") + ".journal").exists()
+
+
+# --- what a sweep may touch, and what it survives -------------------------------------------------
+
+
+def test_overwrite_replaces_only_rgftrans_files(tmp_path):
+    cfg = config(tmp_path)
+    foreign_h5 = tmp_path / "sweep.h5"
+    with h5py.File(foreign_h5, "w") as f:
+        f["precious"] = np.arange(3)
+    with pytest.raises(StoreError, match="not an rgftrans result file; rgftrans replaces only its own files"):
+        run_sweep(cfg, quiet=True, workers=1, overwrite=True)
+    with h5py.File(foreign_h5, "r") as f:
+        assert list(f["precious"][()]) == [0, 1, 2]
+    foreign_h5.write_text("lab notebook\n")
+    with pytest.raises(StoreError, match="rgftrans replaces only its own files"):
+        run_sweep(cfg, quiet=True, workers=1, overwrite=True)
+    assert foreign_h5.read_text() == "lab notebook\n"
+
+
+def test_truncated_own_file_is_replaced_with_overwrite_and_the_advice_says_so(tmp_path):
+    cfg = config(tmp_path)
+    path = run_sweep(cfg, quiet=True, workers=1).path
+    data = path.read_bytes()
+    path.write_bytes(data[: len(data) // 3])
+    with pytest.raises(StoreError, match="--overwrite") as err:  # no journal: the advice must be one that works
+        run_sweep(cfg, quiet=True, workers=1)
+    assert "\n" not in str(err.value)
+    report = run_sweep(cfg, quiet=True, workers=1, overwrite=True)
+    assert report.n_computed == report.n_points and read_result(path).completed.all()
+
+
+@pytest.mark.parametrize("kind", ["file", "folder"])
+def test_something_foreign_at_the_journal_path_is_never_deleted(tmp_path, kind):
+    cfg = config(tmp_path)
+    journal = tmp_path / "sweep.h5.journal"
+    if kind == "file":
+        journal.write_text("not ours\n")
+    else:
+        journal.mkdir()
+        (journal / "notes.txt").write_text("not ours\n")
+    for overwrite in (False, True):
+        with pytest.raises(StoreError, match="rgftrans did not create") as err:
+            run_sweep(cfg, quiet=True, workers=1, overwrite=overwrite)
+        assert "\n" not in str(err.value)
+    assert (journal.read_text() if kind == "file" else (journal / "notes.txt").read_text()) == "not ours\n"
+
+
+def test_damaged_journal_entries_count_as_missing(tmp_path):
+    cfg = config(tmp_path)
+    ref = read_result(run_sweep(cfg, quiet=True, workers=1, path=tmp_path / "ref.h5").path)
+    path = tmp_path / "sweep.h5"
+    run_sweep(cfg, quiet=True, workers=1)
+    with h5py.File(path, "r+") as f:  # forget two points ...
+        done = f["results/completed"][...]
+        done[0, 0] = done[1, 1] = False
+        f["results/completed"][...] = done
+    journal = path.with_name(path.name + ".journal")  # ... whose journal entries are damaged
+    journal.mkdir()
+    (journal / ".rgftrans-journal").write_text(cfg.config_hash())
+    (journal / "p_0_0.npz").write_bytes(b"PK\x03\x04 truncated")
+    (journal / "p_1_1.npz").write_bytes(b"")
+    with pytest.warns(UserWarning, match="journal entry p_\\d_\\d.npz is unreadable"):
+        report = run_sweep(cfg, quiet=True, workers=1)
+    assert report.n_computed == 2
+    assert np.array_equal(read_result(path).quantities["transmission"], ref.quantities["transmission"])
+
+
+def test_stale_partial_files_are_cleaned_up(tmp_path):
+    cfg = config(tmp_path)
+    stale = tmp_path / ".sweep.h5.99999.partial"
+    stale.write_bytes(b"\x89HDF half-built")
+    run_sweep(cfg, quiet=True, workers=1)
+    assert not stale.exists()
+
+
+def test_a_second_writer_is_refused_while_the_first_runs(tmp_path):
+    cfg = config(tmp_path)
+    path = tmp_path / "sweep.h5"
+    holder = subprocess.Popen(
+        [sys.executable, "-c", "import sys; from rgftrans.store import OutputLock; "
+         "lock = OutputLock(sys.argv[1]).__enter__(); print('locked', flush=True); sys.stdin.read()", str(path)],
+        stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        with pytest.raises(StoreError, match=f"is being written by PID {holder.pid} on host") as err:
+            run_sweep(cfg, quiet=True, workers=1)
+        assert "\n" not in str(err.value)
+        assert not path.exists()  # nothing was created or touched
+    finally:
+        holder.communicate("", timeout=30)
+    assert run_sweep(cfg, quiet=True, workers=1).n_computed == 8  # after the first exits, the run goes ahead
+
+
+@pytest.mark.parametrize("kwargs, fragment", [
+    ({"path": "sweep.txt"}, "end its name in .h5"),
+    ({"workers": 0}, "workers must be a whole number >= 1, got 0"),
+    ({"workers": -2}, "workers must be a whole number >= 1, got -2"),
+])
+def test_bad_run_arguments(tmp_path, kwargs, fragment):
+    if "path" in kwargs:
+        kwargs = {"path": tmp_path / kwargs["path"]}
+    with pytest.raises(RgftransError, match=fragment):
+        run_sweep(config(tmp_path), quiet=True, **kwargs)
