@@ -63,11 +63,17 @@ class Lead:
     def __post_init__(self):
         if self.side not in _SIDES:
             raise LeadError(f"lead '{self.name}': side {self.side!r} is not one of {sorted(_SIDES)}")
-        lo, hi = (float(v) for v in self.span)
+        try:
+            lo, hi = (float(v) for v in self.span)
+        except (TypeError, ValueError):
+            raise LeadError(f"lead '{self.name}': span {self.span!r} must be two numbers (lo, hi) in nm") from None
         if not (np.isfinite(lo) and np.isfinite(hi)) or hi < lo:
             raise LeadError(f"lead '{self.name}': span {self.span!r} nm must be two finite numbers (lo, hi) with lo <= hi")
         if not np.isfinite(self.potential):
             raise LeadError(f"lead '{self.name}': potential {self.potential!r} meV is not finite; give a number")
+        if abs(self.potential) > MAX_POTENTIAL_MEV:
+            raise LeadError(f"lead '{self.name}': potential {self.potential:g} meV is beyond +-{MAX_POTENTIAL_MEV:g} "
+                            "meV, implausible; it is in meV")
         object.__setattr__(self, "span", (lo, hi))
 
 
@@ -323,6 +329,17 @@ class Device:
     rashba: float = 0.0
     disorder: Disorder | None = None
 
+    def __post_init__(self):
+        if not isinstance(self.region, Region):
+            raise GeometryError(f"region must be a Region (rectangle(...), disk(...), polygon(...) in nm), got "
+                                f"{type(self.region).__name__}")
+        if isinstance(self.leads, (str, bytes)) or not all(isinstance(lead, Lead) for lead in self.leads):
+            raise LeadError("leads must be a list of Lead(name, side, span) objects, got "
+                            f"{[type(lead).__name__ for lead in self.leads][:4] if not isinstance(self.leads, (str, bytes)) else type(self.leads).__name__}")
+        if not isinstance(self.lattice, Lattice):
+            raise LatticeError(f"lattice must be a Lattice (square(a_nm), honeycomb(...), ...), got "
+                               f"{type(self.lattice).__name__}")
+
     def discretise(self) -> "TightBindingModel":
         """Return the tight-binding model of this device (see :func:`discretise`)."""
         return discretise(self)
@@ -342,6 +359,9 @@ class Device:
             t = float(self.hopping)
             if not np.isfinite(t) or t <= 0:
                 raise PotentialError(f"hopping must be a positive finite energy, got {self.hopping!r} meV")
+            if not HOPPING_RANGE_MEV[0] <= t <= HOPPING_RANGE_MEV[1]:
+                raise PotentialError(f"hopping {t:g} meV is outside {HOPPING_RANGE_MEV[0]:g}..{HOPPING_RANGE_MEV[1]:g} "
+                                     "meV, implausible; it is in meV (e.g. 2700 for graphene)")
             return t
         if self.lattice.mass_factor is None:
             raise LatticeError(
@@ -418,7 +438,22 @@ def _evaluate_potential(potential: PotentialLike, xy: np.ndarray) -> np.ndarray:
             f"potential energy is NaN or infinite at {np.count_nonzero(bad)} site(s), first at "
             f"(x, y) = ({x:.3g}, {y:.3g}) nm; make the potential finite everywhere in the region"
         )
+    huge = np.abs(values) > MAX_POTENTIAL_MEV
+    if np.any(huge):
+        k = np.flatnonzero(huge)[0]
+        raise PotentialError(
+            f"potential energy {values[k]:.3g} meV at (x, y) = ({xy[k, 0]:.3g}, {xy[k, 1]:.3g}) nm is beyond "
+            f"+-{MAX_POTENTIAL_MEV:g} meV, implausible in a device; potentials are in meV"
+        )
     return values
+
+
+#: Largest potential energy accepted (meV): 10 eV is past every band offset and gate potential of a
+#: semiconductor or graphene device; a larger value is a unit slip (common practice, no source).
+MAX_POTENTIAL_MEV = 1e4
+#: Hoppings accepted (meV): graphene's 2.7 eV is the largest in use, and below a microelectronvolt no
+#: band is worth the name (common practice, no source).
+HOPPING_RANGE_MEV = (1e-3, 1e5)
 
 
 class _Terms:

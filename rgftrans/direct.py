@@ -26,7 +26,8 @@ import scipy.sparse.linalg as spla
 
 from .device import TightBindingModel
 from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
-from .rgf import check_energies, device_energy, lead_self_energies
+from .inputs import check_energies, check_eta, check_model
+from .rgf import device_energy, lead_self_energies
 
 __all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "scattering_matrix"]
 
@@ -64,7 +65,9 @@ def _lead_ranges(model):
 
 def transmission_direct(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
     """Transmission matrix ``T[E, p, q]`` (from lead q into lead p) by sparse LU and Caroli's formula."""
-    energies = check_energies(energies)
+    check_model(model)
+    energies = check_energies(energies, model)
+    eta = check_eta(eta)
     n_leads = len(model.leads)
     out = np.zeros((len(energies), n_leads, n_leads))
     ranges = _lead_ranges(model)

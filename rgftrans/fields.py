@@ -50,6 +50,11 @@ PAULI = {
 }
 
 
+#: Largest field accepted (T): pulsed laboratory magnets reach about 100 T; beyond 1000 T is a unit slip
+#: (common practice, no source).  (A lattice model at flux 0.05 per 1 nm^2 plaquette needs 207 T.)
+MAX_FIELD_T = 1000.0
+
+
 @dataclass(frozen=True)
 class MagneticField:
     """A uniform perpendicular magnetic field.
@@ -73,6 +78,9 @@ class MagneticField:
     def __post_init__(self):
         if not np.isfinite(self.tesla):
             raise PotentialError(f"magnetic field must be finite, got B = {self.tesla} T; give a number in tesla")
+        if abs(self.tesla) > MAX_FIELD_T:
+            raise PotentialError(f"magnetic field {self.tesla:g} T is beyond +-{MAX_FIELD_T:g} T, more than any "
+                                 "laboratory magnet gives; the field is in tesla")
 
 
 @dataclass(frozen=True)

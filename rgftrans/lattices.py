@@ -63,7 +63,7 @@ class Lattice:
         vecs = np.asarray(self.prim_vecs, dtype=float)
         if vecs.shape != (2, 2) or not np.all(np.isfinite(vecs)):
             raise LatticeError(f"primitive vectors must be a finite 2x2 array in nm, got {self.prim_vecs!r}")
-        if abs(np.linalg.det(vecs)) < 1e-12 * max(1.0, np.abs(vecs).max()) ** 2:
+        if np.abs(vecs).max() == 0 or abs(np.linalg.det(vecs)) < 1e-12 * np.abs(vecs).max() ** 2:
             raise LatticeError(f"primitive vectors {vecs.tolist()} nm are parallel; give two independent vectors")
         object.__setattr__(self, "prim_vecs", vecs)
         object.__setattr__(self, "basis", np.atleast_2d(np.asarray(self.basis, dtype=float)))
@@ -149,6 +149,11 @@ def square(a: float, *, origin=(0.0, 0.0)) -> Lattice:
     )
 
 
+#: Smallest lattice spacing accepted (nm): below a thousandth of a nanometre no lattice of atoms or grid of a
+#: continuum model makes sense; such a value is a unit slip (metres typed as nm).
+MIN_SPACING_NM = 1e-3
+
+
 def _check_spacing(a) -> float:
     try:
         a = float(a)
@@ -156,6 +161,9 @@ def _check_spacing(a) -> float:
         raise LatticeError(f"lattice spacing must be a number in nm, got {a!r}") from None
     if not np.isfinite(a) or a <= 0:
         raise LatticeError(f"lattice spacing must be positive and finite, got a = {a} nm; use e.g. a = 5 nm")
+    if a < MIN_SPACING_NM:
+        raise LatticeError(f"lattice spacing {a:g} nm is below {MIN_SPACING_NM:g} nm; lengths are in nm "
+                           "(use e.g. a = 5 nm)")
     return a
 
 

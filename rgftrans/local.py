@@ -25,6 +25,7 @@ import scipy.sparse as sp
 
 from .device import TightBindingModel
 from .errors import LeadError, ThresholdWarning
+from .inputs import check_energies, check_energy, check_eta, check_model
 from .leads import incoming_sources, outgoing_amplitudes, require_off_threshold
 from .rgf import LayerBlocks, device_energy, end_self_energies, green_blocks, layer_blocks, lead_self_energies
 from .slicing import Slicing
@@ -81,6 +82,9 @@ def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.
     ``SINGULAR_ETA * energy_scale`` into the upper half plane and a
     ThresholdWarning says so.
     """
+    check_model(model)
+    energy = check_energy(energy, model)
+    eta = check_eta(eta)
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
     try:
@@ -123,8 +127,10 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
     lead, and one more inversion per layer.  Otherwise (one lead, three or
     more, or a closed system) it comes from :func:`local_quantities`.
     """
+    check_model(model)
     scalar = np.ndim(energies) == 0
-    energies = np.atleast_1d(np.asarray(energies, dtype=float))
+    energies = check_energies(energies, model)
+    eta = check_eta(eta)
     blocks = layer_blocks(model)
     lead_layers = blocks.slicing.lead_layer
     if len(model.leads) != 2 or lead_layers[0] == lead_layers[1]:
@@ -185,6 +191,8 @@ class ScatteringStates:
 def scattering_states(model: TightBindingModel, energy: float, lead: int | str = 0, *,
                       slicing: Slicing | None = None) -> ScatteringStates:
     """Scattering states of all open channels incoming from ``lead`` (RGF)."""
+    check_model(model)
+    energy = check_energy(energy, model)
     q = _lead_index(model, lead)
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)

@@ -51,6 +51,11 @@ _MEV = 1e-3 * constants.e  # joules per meV
 _PER_CM2_IN_PER_M2 = 1e4  # 1 cm⁻² = 1e4 m⁻²
 
 
+#: Effective masses accepted (units of m_e): the lightest conduction bands are near 0.01 m_e (InSb 0.0135),
+#: heavy-fermion bands reach about 100 m_e; outside is a unit slip (common practice, no source).
+M_EFF_RANGE = (1e-3, 1e2)
+
+
 def _check_m_eff(m_eff: float) -> float:
     """Return a positive finite effective mass, or raise MaterialError."""
     try:
@@ -64,6 +69,11 @@ def _check_m_eff(m_eff: float) -> float:
         raise MaterialError(
             f"effective mass must be positive and finite, got m_eff = {m_eff!r} m_e; "
             "pass e.g. 0.067 for GaAs"
+        )
+    if not M_EFF_RANGE[0] <= value <= M_EFF_RANGE[1]:
+        raise MaterialError(
+            f"effective mass {value:g} m_e is outside {M_EFF_RANGE[0]:g}..{M_EFF_RANGE[1]:g} m_e, implausible for a "
+            "conduction band; it is in units of the free-electron mass (e.g. 0.067 for GaAs)"
         )
     return value
 

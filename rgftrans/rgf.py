@@ -23,7 +23,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .device import TightBindingModel, check_resolution
-from .errors import EnergyError, LeadError, ThresholdWarning
+from .errors import LeadError, ThresholdWarning
+from .inputs import check_energies, check_eta, check_model
 from .leads import lead_modes
 from .materials import CONDUCTANCE_QUANTUM_S, conductance_g0
 from .slicing import Slicing, slice_layers
@@ -75,20 +76,6 @@ class TransmissionResult:
     def conductance_siemens(self) -> np.ndarray:
         """Zero-temperature conductance in siemens, ``(g_s e^2/h) T`` (e, h from scipy.constants)."""
         return self.conductance_g0 * CONDUCTANCE_QUANTUM_S
-
-
-def check_energies(energies) -> np.ndarray:
-    """Energies as a 1D float array (meV); one-line errors for NaN, inf, or empty input."""
-    arr = np.atleast_1d(np.asarray(energies, dtype=float))
-    if arr.ndim != 1 or arr.size == 0:
-        raise EnergyError(f"energies must be a non-empty 1D array in meV, got shape {arr.shape}")
-    bad = ~np.isfinite(arr)
-    if np.any(bad):
-        raise EnergyError(
-            f"energies contain {np.count_nonzero(bad)} NaN or infinite value(s), first at index "
-            f"{np.flatnonzero(bad)[0]}; give finite energies in meV"
-        )
-    return arr
 
 
 @dataclass(frozen=True, eq=False)
@@ -225,7 +212,9 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
         Energies on a channel threshold are moved into the upper half plane by
         a tiny amount and flagged; one :class:`ThresholdWarning` names them.
     """
-    energies = check_energies(energies)
+    check_model(model)
+    energies = check_energies(energies, model)
+    eta = check_eta(eta)
     if len(model.leads) != 2:
         raise LeadError(
             f"transmission() needs exactly two leads, the model has {len(model.leads)}; use transmission_matrix()"
@@ -509,7 +498,9 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
     (``Gamma = W W^dag``): ``R_pp = N_p - i Tr[Gamma_p (G_pp - G_pp^dag)]
     + Tr[Gamma_p G_pp Gamma_p G_pp^dag]``.
     """
-    energies = check_energies(energies)
+    check_model(model)
+    energies = check_energies(energies, model)
+    eta = check_eta(eta)
     check_resolution(model, energies)
     blocks = layer_blocks(model, slicing)
     n_leads = len(model.leads)
