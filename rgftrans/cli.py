@@ -98,10 +98,11 @@ def _window_poles(cfg, model):
 
 def _check_grid(cfg, model, poles) -> None:
     """Warnings about an energy grid too coarse for the configured temperatures or the model's resonances."""
-    from .resolution import warn_unresolved_resonances
+    from .resolution import warn_energies_outside_leads, warn_unresolved_resonances
     from .thermal import warn_grid_for_temperatures
 
     energies = cfg.energies()
+    warn_energies_outside_leads(model, energies)
     warn_grid_for_temperatures(energies, cfg.temperatures())
     if cfg.energy.refine_tolerance is None and poles is not None:
         warn_unresolved_resonances(model, energies, poles=poles)
@@ -125,6 +126,50 @@ def _print_regime(cfg, device, model, poles) -> None:
     print(f"    {'WARNING: ' if est.coulomb_blockade else ''}{est.verdict}")
 
 
+def _check_figure_suffix(path: str) -> None:
+    """One-line error for a figure file name whose suffix matplotlib cannot write, before any computing."""
+    from .errors import RgftransError
+
+    suffix = Path(path).suffix.lower().lstrip(".")
+    if suffix not in _FIGURE_SUFFIXES:
+        raise RgftransError(f"{path}: cannot draw a figure to a '.{suffix}' file; end the name in one of "
+                            f"{', '.join('.' + s for s in sorted(_FIGURE_SUFFIXES))}")
+
+
+#: Figure formats matplotlib's Agg and vector back-ends write.
+_FIGURE_SUFFIXES = frozenset({"png", "pdf", "svg", "svgz", "eps", "ps", "jpg", "jpeg", "tif", "tiff", "webp"})
+
+
+def _say_where_written(config: str, output: str | Path) -> None:
+    """Print where a config makes us write when that is outside the config's own folder."""
+    base = Path(config).resolve().parent
+    target = Path(output)
+    target = (target if target.is_absolute() else Path.cwd() / target).resolve()
+    if base != target.parent and base not in target.parents:
+        print(f"  note: writing outside the config's folder: {target}")
+
+
+def _positive_int(text: str) -> int:
+    """argparse type: a whole number >= 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, got {value}")
+    return value
+
+
+def _scheduler_address(text: str) -> str:
+    """argparse type: a Dask scheduler address protocol://host:port."""
+    from .config import is_scheduler_address
+
+    if not is_scheduler_address(text):
+        raise argparse.ArgumentTypeError(f"not a scheduler address, got {text!r}; write protocol://host:port, "
+                                         "e.g. tcp://127.0.0.1:8786")
+    return text
+
+
 def _cmd_check(args) -> int:
     import numpy as np
 
@@ -133,7 +178,12 @@ def _cmd_check(args) -> int:
     from .rgf import layer_blocks, lead_self_energies
 
     _refuse_waveguide(args.config)
+    if args.draw:
+        _check_figure_suffix(args.draw)
     cfg = load_config(args.config)
+    estimate = cfg.estimate()
+    estimate.refuse_if_too_big(cfg.output.path)
+    n_geometries = cfg.check_geometries()
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
     check_resolution(model, cfg.energies())  # the warning run would give, here before any computing
@@ -158,6 +208,11 @@ def _cmd_check(args) -> int:
         print(f"  sweep axis {ax.name}: {len(ax.values)} values from {ax.values[0]:.4g} to {ax.values[-1]:.4g} "
               f"{ax.units}")
     print(f"  {n_points} parameter point(s) x {len(energies)} energies -> {cfg.output.path}")
+    if n_geometries > 1:
+        print(f"  {n_geometries} distinct geometries along the sweep, each checked")
+    for line in estimate.lines():
+        print(f"  estimate: {line}")
+    _say_where_written(args.config, cfg.output.path)
     _print_regime(cfg, device, model, poles)
     if args.draw:
         import matplotlib
@@ -179,8 +234,16 @@ def _cmd_run(args) -> int:
 
     _refuse_waveguide(args.config)
     cfg = load_config(args.config)
+    output = args.output or cfg.output.path
+    if Path(output).suffix.lower() not in (".h5", ".hdf5"):
+        from .store import StoreError
+
+        raise StoreError(f"{output}: the result file is HDF5; end its name in .h5")
+    cfg.estimate(args.workers).refuse_if_too_big(output)
+    cfg.check_geometries()
     device = cfg.build_device(cfg.base_point())
     model = device.discretise()
+    _say_where_written(args.config, output)
     print(f"{args.config}: coherent single-particle transport (Landauer); no charging energy")
     poles = _window_poles(cfg, model)
     _check_grid(cfg, model, poles)
@@ -443,8 +506,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("config", help="TOML config file")
     p.add_argument("--overwrite", action="store_true", help="replace an existing result file of another sweep")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--workers", type=int, metavar="N", help="worker processes (default: [cluster] workers, 2)")
-    p.add_argument("--cluster", metavar="ADDRESS", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786")
+    p.add_argument("--workers", type=_positive_int, metavar="N", help="worker processes (default: [cluster] workers, 2)")
+    p.add_argument("--cluster", type=_scheduler_address, metavar="ADDRESS", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786")
     p.add_argument("--output", metavar="H5", help="result file (default: [output] path)")
     p.set_defaults(func=_cmd_run)
 

@@ -122,6 +122,12 @@ _NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_\-]*$"
 # A Dask scheduler address: protocol, host, port.
 _ADDRESS_PATTERN = re.compile(r"^(tcp|tls|ucx)://[A-Za-z0-9.\-\[\]:]+:\d{1,5}$")
 
+
+def is_scheduler_address(text: str) -> bool:
+    """True for ``protocol://host:port`` with protocol tcp, tls or ucx and a port below 65536."""
+    match = _ADDRESS_PATTERN.match(text)
+    return bool(match) and int(text.rsplit(":", 1)[1]) < 65536
+
 _LAYER_MAX = 65535  # GDSII layer numbers are 16-bit
 
 
@@ -448,12 +454,18 @@ class TemperatureSpec(_Table):
     kelvin: Annotated[list[NonNegativeFloat], Field(min_length=1)]
 
 
+#: Most values on one energy grid or sweep axis, and most points of a whole sweep grid: a million energies
+#: resolve a 10 meV window to 10 neV, far below any temperature; beyond that a number is a typing slip.
+MAX_GRID_POINTS = 1_000_000
+MAX_SWEEP_POINTS = 10_000_000
+
+
 class EnergyRange(_Table):
     """One uniform piece of a composite energy grid."""
 
     start_meV: float
     stop_meV: float
-    points: Annotated[int, Field(ge=1)]
+    points: Annotated[int, Field(ge=1, le=MAX_GRID_POINTS)]
 
     @model_validator(mode="after")
     def _check(self):
@@ -467,7 +479,7 @@ class EnergySpec(_Table):
 
     start_meV: float | None = None
     stop_meV: float | None = None
-    points: Annotated[int, Field(ge=1)] | None = None
+    points: Annotated[int, Field(ge=1, le=MAX_GRID_POINTS)] | None = None
     values_meV: Annotated[list[float], Field(min_length=1)] | None = None
     range: Annotated[list[EnergyRange], Field(min_length=1)] | None = None
     relative_to_fermi: bool = False
@@ -475,7 +487,7 @@ class EnergySpec(_Table):
     #: transmission is still stored on the grid as written.
     refine_tolerance: PositiveFloat | None = None
     #: Most energies a refined point may use (default 20 x the grid).
-    refine_max_points: Annotated[int, Field(ge=2)] | None = None
+    refine_max_points: Annotated[int, Field(ge=2, le=MAX_GRID_POINTS)] | None = None
 
     @model_validator(mode="after")
     def _check_grid(self):
@@ -538,7 +550,7 @@ class SweepAxisSpec(_Table):
     parameter: NonEmptyString
     start: float | None = None
     stop: float | None = None
-    points: Annotated[int, Field(ge=1)] | None = None
+    points: Annotated[int, Field(ge=1, le=MAX_GRID_POINTS)] | None = None
     values: Annotated[list[float], Field(min_length=1)] | None = None
 
     @model_validator(mode="after")
@@ -607,7 +619,7 @@ class ClusterSpec(_Table):
         if self.executor != "dask":
             raise _problem(f"an address needs executor = \"dask\", got {self.address!r} with executor = "
                            f"{self.executor!r}; set executor = \"dask\" or drop the address", "address")
-        if not _ADDRESS_PATTERN.match(self.address):
+        if not is_scheduler_address(self.address):
             raise _problem(f"not a scheduler address, got {self.address!r}; "
                            "write protocol://host:port, e.g. \"tcp://127.0.0.1:8786\"", "address")
         return self
@@ -726,8 +738,15 @@ class RunConfig(_Table):
         return self
 
     def _check_axes(self) -> None:
+        from .store import dataset_name
+
         catalogue = self.parameters()
         seen: set[str] = set()
+        stored: dict[str, str] = {}
+        total = math.prod(axis.points if axis.points is not None else len(axis.values) for axis in self.sweep.axis)
+        if total > MAX_SWEEP_POINTS:
+            raise _problem(f"the sweep grid has {total:.3g} points, more than {MAX_SWEEP_POINTS:.0e}; "
+                           "use fewer points per axis or split the sweep", "sweep.axis")
         for k, axis in enumerate(self.sweep.axis):
             key = f"sweep.axis[{k}]"
             if axis.parameter not in catalogue:
@@ -738,6 +757,11 @@ class RunConfig(_Table):
                 raise _problem(f"parameter swept twice, got {axis.parameter!r} again; "
                                "merge the two axes into one", f"{key}.parameter")
             seen.add(axis.parameter)
+            name = dataset_name(axis.parameter)
+            if name in stored:
+                raise _problem(f"{axis.parameter!r} and {stored[name]!r} would both be stored as {name!r} in the "
+                               "result file; rename one of the gates or leads", f"{key}.parameter")
+            stored[name] = axis.parameter
             for value in axis.array():
                 message = self._bad_value(axis.parameter, float(value))
                 if message:
@@ -943,6 +967,57 @@ class RunConfig(_Table):
         """
         p = self._point(point)
         return tuple(p[f"leads.{lead.name}.offset_nm"] for lead in self.leads)
+
+    def estimate(self, workers: int | None = None):
+        """What the sweep will cost, from the base point's region alone (:class:`rgftrans.budget.RunEstimate`)."""
+        from .budget import run_estimate
+        from .device import estimate_size
+
+        axes = self.axes()
+        return run_estimate(
+            estimate_size(self.build_device(self.base_point())),
+            n_points=math.prod(len(ax.values) for ax in axes),
+            n_energies=len(self.energies()),
+            n_leads=len(self.leads),
+            n_temperatures=max(len(self.temperatures()), 1),
+            n_ldos_energies=len(self.output.ldos_at_meV),
+            workers=workers or self.cluster.workers,
+        )
+
+    def sweep_geometries(self) -> list[dict[str, float]]:
+        """One sweep point (a parameter mapping) for each distinct geometry the sweep visits, base point first."""
+        from itertools import product
+
+        axes = [ax for ax in self.axes() if self.parameters()[ax.name].changes_geometry]
+        points = [{}]
+        for values in product(*(ax.values for ax in axes)) if axes else []:
+            points.append({ax.name: float(v) for ax, v in zip(axes, values)})
+        seen, out = set(), []
+        for point in points:
+            key = self.geometry_key(point)
+            if key not in seen:
+                seen.add(key)
+                out.append(point)
+        return out
+
+    def check_geometries(self) -> int:
+        """Check every geometry the sweep visits (lattice fill and leads only, no Hamiltonian).
+
+        Returns the number of distinct geometries.  Raises ConfigError naming
+        the first sweep point whose lead misses or overlaps the device, so
+        ``rgftrans check`` finds what ``run`` would refuse at a later point.
+        """
+        from .device import check_geometry
+        from .errors import GeometryError, LeadError
+
+        points = self.sweep_geometries()
+        for point in points[1:]:
+            try:
+                check_geometry(self.build_device(point))
+            except (GeometryError, LeadError) as error:
+                where = ", ".join(f"{k} = {v:g}" for k, v in point.items())
+                raise ConfigError(f"{self._source}: at sweep point {where}: {error}") from None
+        return len(points)
 
     # --- records ---
 

@@ -23,6 +23,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from .budget import device_size, refuse_oversized_device
 from .errors import GeometryError, LatticeError, LeadError, PotentialError, ResolutionWarning, ValidityWarning
 from .fields import Disorder, MagneticField, gauge_weight, peierls_phase, rashba_matrix, zeeman_matrix
 from .geometry import Region
@@ -545,54 +546,14 @@ def discretise(device: Device) -> TightBindingModel:
     lattice = device.lattice
     terms = _Terms(device)
     t = terms.t
-    region = device.region
-    all_tags = lattice.tags_in_box(*region.bounds)
-    xy_all = lattice.positions(all_tags)
-    inside = region.contains(xy_all)
-    tags = all_tags[inside]
-    xy = xy_all[inside]
-    if len(tags) == 0:
-        xmin, ymin, xmax, ymax = region.bounds
-        raise GeometryError(
-            f"the region ({xmax - xmin:.3g} x {ymax - ymin:.3g} nm) holds no lattice site at spacing "
-            f"a = {lattice.spacing:.3g} nm; enlarge the region or refine the lattice"
-        )
-    index = _TagIndex(tags)
+    refuse_oversized_device(estimate_size(device))
+    tags, xy, index, rows, cols = _sites(device)
+    geoms = _lead_geometries(device, tags, xy, index)
+    n = len(tags)
     potential = _evaluate_potential(device.potential, xy)
     scalar_onsite = lattice.onsite_in_t * t + potential
     if device.disorder is not None:
         scalar_onsite = scalar_onsite + device.disorder.values(tags)
-    rows, cols = _bond_pairs(lattice, tags, index)
-    n = len(tags)
-
-    pattern = sp.coo_matrix((np.ones(len(rows), bool), (rows, cols)), shape=(n, n)).tocsr()
-    n_pieces, labels = connected_components(pattern, directed=False)
-    if n_pieces > 1:
-        sizes = np.bincount(labels)
-        small = np.argmin(sizes)
-        x, y = xy[np.flatnonzero(labels == small)[0]]
-        raise GeometryError(
-            f"the region discretises into {n_pieces} disconnected pieces (sizes {sorted(sizes.tolist(), reverse=True)} "
-            f"sites; the smallest near (x, y) = ({x:.3g}, {y:.3g}) nm); join them or remove the stray parts"
-        )
-    if not device.leads:
-        raise LeadError("the device has no leads; add at least one Lead")
-    names = [lead.name for lead in device.leads]
-    dup = {nm for nm in names if names.count(nm) > 1}
-    if dup:
-        raise LeadError(f"lead names must be unique, {sorted(dup)} appear more than once; rename them")
-
-    bounds = np.array(region.bounds)
-    extent = max(bounds[2] - bounds[0], bounds[3] - bounds[1], np.ptp(xy[:, 0]), np.ptp(xy[:, 1]))
-    geoms = [_lead_geometry(lead, lattice, tags, xy, index) for lead in device.leads]
-    deep_sites = []
-    for geo in geoms:
-        period_len = np.linalg.norm(geo.period)
-        depth = int(np.ceil(extent / period_len)) + 3
-        deep = np.vstack([geo.cell(j) for j in range(depth)])
-        _check_lead_clear(geo, lattice, deep, index, len(geo.cell_tags))
-        deep_sites.append(deep)
-    _check_leads_apart(device.leads, lattice, deep_sites)
 
     # Gauge switch f: 0 on leads along x, 1 on leads along y (see rgftrans.fields).
     cells_x = [lattice.positions(np.vstack([g.cell(j) for j in range(3)])) for g in geoms if g.along_x]
@@ -608,6 +569,88 @@ def discretise(device: Device) -> TightBindingModel:
                              coordination=lattice.coordination, norbs=terms.norbs,
                              spacing_nm=lattice.spacing if device.hopping is None else None,
                              potential_meV=potential)
+
+
+def estimate_size(device: Device):
+    """Sites, layer widths, memory and time of a device from its area alone (see :mod:`rgftrans.budget`)."""
+    norbs = 2 if device.spin else 1
+    return device_size(device.region, device.lattice, [lead.side for lead in device.leads], norbs)
+
+
+def check_geometry(device: Device) -> int:
+    """Check the region and every lead without building the Hamiltonian; return the number of sites.
+
+    The cheap part of :func:`discretise` (lattice fill, connectivity, lead
+    placement): a sweep checks every geometry it will visit with it before
+    computing anything.  Raises what :func:`discretise` raises for geometry.
+    """
+    refuse_oversized_device(estimate_size(device))
+    tags, xy, index, _, _ = _sites(device)
+    _lead_geometries(device, tags, xy, index)
+    return len(tags)
+
+
+def _sites(device: Device):
+    """Lattice sites of the region (tags, positions, index) and their bonds; one connected piece."""
+    lattice = device.lattice
+    region = device.region
+    all_tags = lattice.tags_in_box(*region.bounds)
+    xy_all = lattice.positions(all_tags)
+    inside = region.contains(xy_all)
+    tags = all_tags[inside]
+    xy = xy_all[inside]
+    if len(tags) == 0:
+        xmin, ymin, xmax, ymax = region.bounds
+        raise GeometryError(
+            f"the region ({xmax - xmin:.3g} x {ymax - ymin:.3g} nm) holds no lattice site at spacing "
+            f"a = {lattice.spacing:.3g} nm; enlarge the region or refine the lattice (lengths are in nm)"
+        )
+    index = _TagIndex(tags)
+    rows, cols = _bond_pairs(lattice, tags, index)
+    n = len(tags)
+    pattern = sp.coo_matrix((np.ones(len(rows), bool), (rows, cols)), shape=(n, n)).tocsr()
+    n_pieces, labels = connected_components(pattern, directed=False)
+    if n_pieces > 1:
+        sizes = np.bincount(labels)
+        small = np.argmin(sizes)
+        x, y = xy[np.flatnonzero(labels == small)[0]]
+        raise GeometryError(
+            f"the region discretises into {n_pieces} disconnected pieces (sizes {sorted(sizes.tolist(), reverse=True)} "
+            f"sites; the smallest near (x, y) = ({x:.3g}, {y:.3g}) nm); join them or remove the stray parts"
+        )
+    if device.hopping is None and n < FEW_SITES:
+        warnings.warn(
+            f"the device has {n} site(s) at spacing a = {lattice.spacing:.3g} nm: are the lengths in nm? A "
+            "continuum model needs many sites per Fermi wavelength", ValidityWarning, stacklevel=4)
+    return tags, xy, index, rows, cols
+
+
+#: Fewer sites than this in a continuum (effective-mass) device earn a warning: a real dot or wire
+#: discretised at a few nm has hundreds of sites; a handful means lengths typed in the wrong unit.
+FEW_SITES = 10
+
+
+def _lead_geometries(device: Device, tags, xy, index) -> list:
+    """Where each lead attaches; one-line LeadErrors for leads that miss, overlap or run alongside the device."""
+    lattice = device.lattice
+    if not device.leads:
+        raise LeadError("the device has no leads; add at least one Lead")
+    names = [lead.name for lead in device.leads]
+    dup = {nm for nm in names if names.count(nm) > 1}
+    if dup:
+        raise LeadError(f"lead names must be unique, {sorted(dup)} appear more than once; rename them")
+    bounds = np.array(device.region.bounds)
+    extent = max(bounds[2] - bounds[0], bounds[3] - bounds[1], np.ptp(xy[:, 0]), np.ptp(xy[:, 1]))
+    geoms = [_lead_geometry(lead, lattice, tags, xy, index) for lead in device.leads]
+    deep_sites = []
+    for geo in geoms:
+        period_len = np.linalg.norm(geo.period)
+        depth = int(np.ceil(extent / period_len)) + 3
+        deep = np.vstack([geo.cell(j) for j in range(depth)])
+        _check_lead_clear(geo, lattice, deep, index, len(geo.cell_tags))
+        deep_sites.append(deep)
+    _check_leads_apart(device.leads, lattice, deep_sites)
+    return geoms
 
 
 #: Largest potential-energy step (meV) between a lead and the device sites it touches before a warning.

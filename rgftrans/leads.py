@@ -420,6 +420,24 @@ def _velocity_basis(phis: np.ndarray, lam: complex, h_hop: np.ndarray):
     return q @ u, vel
 
 
+def band_edges(h_cell, h_hop, *, k_points: int = 129) -> tuple[float, float]:
+    """Lowest and highest energy (meV) of a lead's bands E_n(k), sampled at ``k_points`` Bloch phases.
+
+    Bands of the Bloch Hamiltonian ``h_cell + h_hop e^{ik} + h_hop^dag e^{-ik}``
+    over k in [-pi, pi] (Ashcroft & Mermin, Solid State Physics, 1976, ch. 10,
+    from memory).  A sampled extremum lies within ``(pi/k_points)^2 / 2`` of
+    the true one in units of the band curvature: ample for saying that an
+    energy is outside every band.
+    """
+    h_cell = np.asarray(h_cell, dtype=complex)
+    h_hop = np.asarray(h_hop, dtype=complex)
+    k = np.linspace(-np.pi, np.pi, k_points)
+    phase = np.exp(1j * k)[:, None, None]
+    bloch = h_cell[None] + h_hop[None] * phase + h_hop.conj().T[None] * phase.conj()
+    bands = np.linalg.eigvalsh(bloch)
+    return float(bands.min()), float(bands.max())
+
+
 def require_off_threshold(modes: list, energy: float, what: str) -> None:
     """Refuse flux-normalised quantities at a channel threshold, where a channel has zero velocity."""
     if any(m.at_threshold for m in modes):

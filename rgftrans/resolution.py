@@ -34,7 +34,8 @@ import numpy as np
 from .errors import ResolutionWarning, RgftransError
 
 __all__ = ["MIN_POINTS_PER_WIDTH", "SPIKE_JUMP", "RefinedSampling", "refine", "refined_transmission",
-           "sharp_features", "warn_sharp_features", "warn_unresolved_resonances", "window_poles"]
+           "sharp_features", "warn_energies_outside_leads", "warn_sharp_features", "warn_unresolved_resonances",
+           "window_poles"]
 
 #: Fewest grid points across a resonance's full width (FWHM) before it counts as resolved.
 MIN_POINTS_PER_WIDTH = 3
@@ -119,6 +120,38 @@ def warn_unresolved_resonances(model, energies, *, poles=None) -> list:
             f"it -- refine the grid there to <= {w / MIN_POINTS_PER_WIDTH:.3g} meV or set [energy] refine_tolerance",
             ResolutionWarning, stacklevel=2)
     return bad
+
+
+def warn_energies_outside_leads(model, energies) -> int:
+    """Warn in words when grid energies lie below or above every band of a lead (T = 0 there); return how many.
+
+    Below a lead's band bottom no channel is open and nothing is transmitted
+    from or into it; above the lattice band's top the same holds, and a
+    continuum (effective-mass) model is already far outside its validity
+    there.  Either is a grid that wastes its points, usually a sign of an
+    energy unit or offset slip.
+    """
+    from .leads import band_edges
+
+    energies = np.asarray(energies, dtype=float)
+    dead = np.zeros(energies.shape, dtype=bool)
+    for lead in model.leads:
+        lo, hi = band_edges(lead.h_cell, lead.h_hop)
+        below, above = energies < lo, energies > hi
+        if np.any(below) or np.any(above):
+            parts = []
+            if np.any(below):
+                parts.append(f"{np.count_nonzero(below)} below its band bottom {lo:.4g} meV")
+            if np.any(above):
+                parts.append(f"{np.count_nonzero(above)} above its band top {hi:.4g} meV")
+            warnings.warn(
+                f"lead '{lead.name}': {' and '.join(parts)} of the {energies.size} energies "
+                f"({energies[0]:.4g}..{energies[-1]:.4g} meV); no channel is open there and T = 0"
+                + (" -- no energy is in the band: are the energies in meV, measured from the band bottom?"
+                   if np.all(below | above) else ""),
+                ResolutionWarning, stacklevel=2)
+        dead |= below | above
+    return int(np.count_nonzero(dead))
 
 
 def sharp_features(energies, values, *, jump: float = SPIKE_JUMP) -> np.ndarray:

@@ -86,7 +86,17 @@ except ImportError:
 
 
 __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "Axis", "QuantitySpec", "ResultData", "ResultFile", "StoreError",
-           "OutputLock", "is_own_file", "lock_owner", "printable", "read_result", "summary", "validate"]
+           "OutputLock", "dataset_name", "is_own_file", "lock_owner", "printable", "read_result", "summary", "validate"]
+
+def dataset_name(parameter: str) -> str:
+    """HDF5 name of a sweep axis: the parameter path with '.' as '__' and '-' as '_'.
+
+    ``gates.plunger.voltage_V`` is stored as ``gates__plunger__voltage_V``.  Two
+    parameters that map to one name (gates ``a-b`` and ``a_b``) are refused by the
+    config before a run.
+    """
+    return parameter.replace(".", "__").replace("-", "_")
+
 
 #: Value of the root ``format`` attribute that marks a file as ours.
 FORMAT_NAME = "rgftrans-result"

@@ -32,7 +32,7 @@ import numpy as np
 
 from .config import RunConfig
 from .errors import ComputationFailed, RgftransError, RgftransWarning
-from .store import Axis, OutputLock, QuantitySpec, ResultFile, StoreError
+from .store import Axis, OutputLock, QuantitySpec, ResultFile, StoreError, dataset_name
 
 __all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name", "sweep_temperatures",
            "stored_conductance"]
@@ -74,11 +74,8 @@ def grid_points(cfg: RunConfig) -> Iterator[tuple[tuple[int, ...], dict[str, flo
 
 
 def axis_dataset_name(parameter: str) -> str:
-    """HDF5/xarray name of a sweep axis: the parameter path with '.' as '__' and '-' as '_'.
-
-    ``gates.plunger.voltage_V`` is stored as ``gates__plunger__voltage_V``.
-    """
-    return parameter.replace(".", "__").replace("-", "_")
+    """HDF5 name of a sweep axis (see :func:`rgftrans.store.dataset_name`)."""
+    return dataset_name(parameter)
 
 
 #: Name of the trailing dimension of the stored conductances.
@@ -415,7 +412,12 @@ def _iterate_dask(tasks, workers: int, address: str | None):
         raise RgftransError("the dask executor needs dask[distributed]; install it with pip install "
                             "'rgftrans[cluster]'") from None
     if address:
-        client = Client(address, timeout="20s")
+        try:
+            client = Client(address, timeout="20s")
+        except (OSError, TimeoutError, ValueError) as error:
+            raise SweepFailed(f"could not reach the Dask scheduler at {address} ({type(error).__name__}: "
+                              f"{str(error).splitlines()[0] if str(error) else 'no answer'}); start it with "
+                              "`dask scheduler` and workers, or drop the address to run locally") from None
         cluster = None
     else:
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
@@ -471,7 +473,10 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
     if path.suffix.lower() not in (".h5", ".hdf5"):
         raise StoreError(f"{path}: the result file is HDF5; end its name in .h5")
 
-    # Validate the device up front: a bad geometry fails here, before any file or process exists.
+    # Validate the device up front: too big for the machine, a bad geometry at any sweep point -- all fail
+    # here, before any file or process exists.
+    cfg.estimate(workers).refuse_if_too_big(path)
+    cfg.check_geometries()
     model = cfg.build_device(cfg.base_point()).discretise()
     journal = _Journal(path, cfg.config_hash())
     with OutputLock(path):  # one writer per output; a second run is refused with the first one's name

@@ -68,6 +68,28 @@ BAD = [
     ("TOML syntax", ("points = 7", "points = = 7"), "line"),
     ("gate without depth", None, "depth_nm",
      '\n[gates]\n[[gates.gate]]\nname = "g"\nrectangle_nm = [0.0, 0.0, 1.0, 1.0]\nvoltage_V = -0.1\n'),
+    # Refuse before allocating: absurd sizes end in one line before any array is made.
+    ("1e20 energy points", ("points = 7", "points = 99999999999999999999"), "points"),
+    ("1e12 energy points", ("points = 7", "points = 1000000000000"), "points"),
+    ("1e12 sweep points", None, "points",
+     '\n[[sweep.axis]]\nparameter = "field.tesla"\nstart = 0.0\nstop = 1.0\npoints = 1000000000000\n'),
+    ("1e8 sweep grid", None, "sweep grid",
+     '\n[[sweep.axis]]\nparameter = "field.tesla"\nstart = 0.0\nstop = 1.0\npoints = 10000\n'
+     '\n[[sweep.axis]]\nparameter = "potential.constant_meV"\nstart = 0.0\nstop = 1.0\npoints = 10000\n'),
+    ("1e6 nm device at 1 nm", (("spacing_nm = 5.0\n\n[geometry]\nrectangle_nm = [0.0, 0.0, 100.0, 60.0]",
+                                "spacing_nm = 1.0\n\n[geometry]\nrectangle_nm = [0.0, 0.0, 1000000.0, 60.0]")),
+     "memory"),
+    ("4e8-site device", (("spacing_nm = 5.0\n\n[geometry]\nrectangle_nm = [0.0, 0.0, 100.0, 60.0]",
+                          "spacing_nm = 1.0\n\n[geometry]\nrectangle_nm = [0.0, 0.0, 20000.0, 20000.0]")),
+     "memory"),
+    # check finds what run would refuse: names colliding in the file, a lead pushed off at a later point.
+    ("names collide after mangling", None, "stored as",
+     '\n[gates]\ndepth_nm = 50.0\n[[gates.gate]]\nname = "a-b"\nrectangle_nm = [0.0, 70.0, 10.0, 80.0]\n'
+     'voltage_V = -0.1\n[[gates.gate]]\nname = "a_b"\nrectangle_nm = [20.0, 70.0, 30.0, 80.0]\nvoltage_V = -0.1\n'
+     '\n[[sweep.axis]]\nparameter = "gates.a-b.voltage_V"\nvalues = [-0.1, -0.2]\n'
+     '\n[[sweep.axis]]\nparameter = "gates.a_b.voltage_V"\nvalues = [-0.1, -0.2]\n'),
+    ("lead moved off the device later", None, "at sweep point",
+     '\n[[sweep.axis]]\nparameter = "leads.drain.offset_nm"\nvalues = [0.0, 10.0, 40.0]\n'),
 ]
 
 
@@ -111,6 +133,50 @@ def test_argument_errors_exit_2(capsys):
     with pytest.raises(SystemExit) as exc:
         main(["frobnicate"])
     assert exc.value.code == EXIT_BAD_INPUT
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["run", "{cfg}", "--workers", "-2"], "--workers"),
+    (["run", "{cfg}", "--workers", "0"], "--workers"),
+    (["run", "{cfg}", "--workers", "two"], "--workers"),
+    (["run", "{cfg}", "--cluster", "not-an-address"], "scheduler address"),
+    (["run", "{cfg}", "--cluster", "tcp://10.0.0.5:99999"], "scheduler address"),
+    (["run", "{cfg}", "--output", "{tmp}/x.txt"], "HDF5"),
+    (["check", "{cfg}", "--draw", "{tmp}/dev.xyz"], ".xyz"),
+], ids=["workers-negative", "workers-zero", "workers-word", "cluster-word", "cluster-port", "output-suffix",
+        "draw-suffix"])
+def test_every_argument_gives_one_line(tmp_path, capsys, args, fragment):
+    cfg = tmp_path / "good.toml"
+    cfg.write_text(GOOD.format(out=tmp_path / "out.h5"))
+    argv = [a.format(cfg=cfg, tmp=tmp_path) for a in args]
+    try:
+        status = main(argv)
+    except SystemExit as exc:  # argparse's own refusal: usage line and exit 2
+        status = exc.code
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == EXIT_BAD_INPUT
+    assert len([line for line in err if "error" in line]) == 1 and fragment in err[-1], err
+    assert not any(tmp_path.glob("*.h5")) and not any(tmp_path.glob("*.png"))
+
+
+def test_check_prints_the_estimate_and_where_it_writes(tmp_path, capsys):
+    cfg = tmp_path / "cfg" / "good.toml"
+    cfg.parent.mkdir()
+    cfg.write_text(GOOD.format(out=tmp_path / "elsewhere" / "out.h5"))
+    assert main(["check", str(cfg)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "estimate: about" in out and "memory about" in out and "time about" in out
+    assert "writing outside the config's folder" in out
+
+
+def test_a_device_of_one_site_is_questioned(tmp_path, capsys):
+    text = GOOD.format(out=tmp_path / "out.h5").replace("[0.0, 0.0, 100.0, 60.0]", "[0.0, 0.0, 6.0, 6.0]")
+    text = text.replace("span_nm = [10.0, 50.0]", "span_nm = [0.0, 6.0]").replace("span_nm = [0.0, 30.0]",
+                                                                                "span_nm = [0.0, 6.0]")
+    (tmp_path / "tiny.toml").write_text(text)
+    main(["check", str(tmp_path / "tiny.toml")])
+    err = capsys.readouterr().err
+    assert "are the lengths in nm?" in err and err.count("are the lengths in nm?") == 1
 
 
 @pytest.mark.parametrize("command", ["check", "run", "info", "plot"])
