@@ -916,8 +916,9 @@ def _parameter_bounds(fitted, p0, bounds, where, *, user_given) -> dict:
         out[name] = (lo, hi)
     unknown = sorted(set(bounds) - set(fitted))
     if unknown and user_given:
-        raise CompareError(f"{where}: ranges given for {unknown}, which are not fitted (fitted: {list(fitted)}); fit "
-                           f"them or drop the ranges")
+        flags = ", ".join(_arg(f"bounds.{n}") for n in unknown)
+        raise CompareError(f"{where}: {flags} given for {unknown}, which are not fitted (fitted: {list(fitted)}); "
+                           f"fit them or drop the range")
     return out
 
 
@@ -1003,6 +1004,8 @@ def _problems(*, sweep, trace, fitted, p0, x0, sol, ranges, scales, reduced_chi2
         problems.append(FitProblem(
             "not_converged", "", "", math.nan, float(sol.nfev), float(max_evaluations),
             f"no convergence after {sol.nfev} model evaluations; start nearer ({nearer})"))
+    if problems and problems[0].kind == "not_moved":
+        return problems  # a bad chi-square or residual then only restates that the start is wrong
     if noise_given:
         if reduced_chi2 > MAX_REDUCED_CHI_SQUARE:
             problems.append(FitProblem(
