@@ -129,6 +129,8 @@ _CUTOFF_KT = 40.0
 _MU_BLOCK = 64
 #: Points of the dense model curve per measured point, and its bounds.
 _CURVE_DENSITY, _CURVE_MIN, _CURVE_MAX = 4, 200, 2000
+#: Fraction of the overlay's height one line of the value box takes (small font, default figure size).
+_TEXT_LINE_FRACTION = 0.05
 #: Lowest temperature a fitted temperature may reach (K); it must stay positive.
 _MIN_FIT_TEMPERATURE_K = 1e-4
 #: Default range of a fitted lever arm: the start's sign, |alpha| within this factor of the start either way.
@@ -1303,8 +1305,13 @@ def plot_fit(fit: TraceFit, *, ax=None):
     top.set_ylabel("conductance (2e²/h)")
     right = top.secondary_yaxis("right", functions=(lambda g: g * G0_S * 1e6, lambda u: u / (G0_S * 1e6)))
     right.set_ylabel("conductance (µS)")
+    lines = _value_lines(fit)
+    # Headroom above the data for the legend and the value box (about 5 % of the height per text line), so
+    # neither hides a peak.
+    lo, hi = top.get_ylim()
+    top.set_ylim(lo, lo + (hi - lo) / max(1.0 - _TEXT_LINE_FRACTION * len(lines), 0.3))
     top.legend(loc="upper left", fontsize="small")
-    top.text(0.98, 0.97, "\n".join(_value_lines(fit)), transform=top.transAxes, ha="right", va="top",
+    top.text(0.98, 0.97, "\n".join(lines), transform=top.transAxes, ha="right", va="top",
              fontsize="small", bbox=dict(boxstyle="round", facecolor="white", edgecolor="0.7", alpha=0.9))
     if fit.success:
         top.set_title(f"{fit.n_points} points, {', '.join(fit.fitted)} fitted", fontsize="medium")
