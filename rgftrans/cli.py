@@ -436,10 +436,22 @@ def _cmd_compare(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
-    from .compare import CompareError, fit_trace, plot_fit, read_trace
+    from .compare import CompareError, argument_names, fit_trace, plot_fit, read_trace
 
-    trace = read_trace(args.trace, gate_column=_column(args.gate_column), value_column=_column(args.value_column),
-                       kind=args.kind, units=args.units, bias_V=args.bias, description=args.description)
+    # How compare's messages name its arguments on the command line (rgftrans.compare.argument_names).
+    flags = {
+        "gate_column": "--gate-column", "value_column": "--value-column", "kind": "--kind", "units": "--units",
+        "bias_V": "--bias", "lever_arm": "--lever-arm", "offset": "--offset", "r_series_ohm": "--r-series",
+        "temperature_K": "--temperature", "noise_S": "--noise", "mu_ref_meV": "--mu-ref", "fit": "--fit",
+        "fit_series": "--fit-series", "fit_temperature": "--fit-temperature", "leads": "--leads",
+        "gate_axis": "--gate-axis", "select": "--select", "bounds.lever_arm": "--lever-arm-range",
+        "bounds.offset": "--offset-range", "bounds.r_series": "--r-series-range",
+        "bounds.temperature": "--temperature-range",
+    }
+    # The parameter each range flag bounds, with the argparse attribute that holds it.
+    ranges = {"lever_arm": "lever_arm_range", "offset": "offset_range", "r_series": "r_series_range",
+                       "temperature": "temperature_range"}
+
     select = {}
     for item in args.select or ():
         name, sep, value = item.partition("=")
@@ -455,24 +467,40 @@ def _cmd_compare(args) -> int:
         leads = tuple(x.strip() for x in args.leads.split(","))
         if len(leads) != 2:
             raise CompareError(f"--leads {args.leads!r}: give two lead names, FROM,TO")
+    bounds = {}
+    for name, attr in ranges.items():
+        text = getattr(args, attr)
+        if text is None:
+            continue
+        try:
+            lo, hi = (float(x) for x in text.split(","))
+        except ValueError:
+            raise CompareError(f"{flags['bounds.' + name]} {text!r}: write MIN,MAX, e.g. "
+                               f"{flags['bounds.' + name]}=10,200") from None
+        bounds[name] = (lo, hi)
     fit = [x.strip() for x in args.fit.split(",") if x.strip()] if args.fit else None
     initial = {}
     if args.lever_arm is not None:
         initial["lever_arm"] = args.lever_arm
     if args.offset is not None:
         initial["offset"] = args.offset
-    result = fit_trace(args.result, trace, temperature_K=args.temperature, fit=fit, r_series_ohm=args.r_series,
-                       fit_series=args.fit_series, fit_temperature=args.fit_temperature, noise_S=args.noise,
-                       initial=initial or None, mu_ref_meV=args.mu_ref, leads=leads, gate_axis=args.gate_axis,
-                       select=select or None)
+    with argument_names(flags):  # messages name our flags, not Python keywords
+        trace = read_trace(args.trace, gate_column=_column(args.gate_column),
+                           value_column=_column(args.value_column), kind=args.kind, units=args.units,
+                           bias_V=args.bias, description=args.description)
+        result = fit_trace(args.result, trace, temperature_K=args.temperature, fit=fit, r_series_ohm=args.r_series,
+                           fit_series=args.fit_series, fit_temperature=args.fit_temperature, noise_S=args.noise,
+                           initial=initial or None, bounds=bounds or None, mu_ref_meV=args.mu_ref, leads=leads,
+                           gate_axis=args.gate_axis, select=select or None)
+    # Only a fit worth reporting gets here (a failed one raised TraceFitFailed: exit 1, nothing written).
     text = result.summary()
     print(text)
     base = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix = base.with_name(f"{base.name}_{args.group}")
+    target = args.save or args.result
+    result.to_hdf5(target, args.group, overwrite=args.overwrite)  # first: a refused group leaves no other file
     prefix.parent.mkdir(parents=True, exist_ok=True)
     Path(f"{prefix}.txt").write_text(text + "\n", encoding="utf-8")
-    target = args.save or args.result
-    result.to_hdf5(target, args.group, overwrite=args.overwrite)
     fig, _ = plot_fit(result)
     fig.savefig(f"{prefix}.png", dpi=150)
     print(f"  written: group '{args.group}' in {target}; {prefix}.txt; {prefix}.png")
@@ -560,7 +588,11 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Read a measured trace (CSV with a header, or two plain columns), fit the stored "
                                    "sweep to it at the measurement temperature (lever arm and offset by default; "
                                    "series resistance and temperature on request) and write the fitted parameters "
-                                   "as text, into the HDF5 file and as an overlay figure with residuals.")
+                                   "as text, into the HDF5 file and as an overlay figure with residuals.  A fit "
+                                   "that does not move from its start, ends at the edge of a parameter's range or "
+                                   "does not describe the trace (reduced chi-square > 10 with --noise; without it, "
+                                   "an rms residual above half the trace's standard deviation) is reported in one "
+                                   "line with exit status 1 and nothing is written.")
     p.add_argument("result", help="HDF5 result file with a transmission quantity")
     p.add_argument("trace", help="measured trace: CSV or two-column text")
     p.add_argument("--temperature", type=float, required=True, metavar="K",
@@ -578,14 +610,24 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--select", action="append", metavar="NAME=VALUE",
                    help="value of another sweep axis (repeat for each)")
     p.add_argument("--lever-arm", type=float, metavar="MEV_PER_V", help="lever arm (start value, or fixed)")
+    p.add_argument("--lever-arm-range", metavar="MIN,MAX", help="range of the fitted lever arm in meV/V (default: "
+                                                                "the start's sign, a factor 10 either way)")
     p.add_argument("--offset", type=float, metavar="V", help="gate-voltage offset V_0 (start value, or fixed)")
+    p.add_argument("--offset-range", metavar="MIN,MAX", help="range of the fitted offset in V (default: free; "
+                                                             "write --offset-range=-0.2,0.1 for a negative MIN)")
     p.add_argument("--r-series", type=float, default=0.0, metavar="OHM", help="series resistance (default 0)")
+    p.add_argument("--r-series-range", metavar="MIN,MAX", help="range of the fitted series resistance in ohm "
+                                                               "(default: >= 0)")
     p.add_argument("--fit", metavar="LIST", help="fitted parameters, comma-separated among lever_arm, offset, "
                                                  "r_series, temperature")
     p.add_argument("--fit-series", action="store_true", help="also fit the series resistance")
     p.add_argument("--fit-temperature", action="store_true", help="also fit the temperature")
+    p.add_argument("--temperature-range", metavar="MIN,MAX", help="range of the fitted temperature in K "
+                                                                  "(default: >= 1e-4 K)")
     p.add_argument("--noise", type=float, metavar="S", help="noise sigma of the measurement (default: estimated)")
-    p.add_argument("--mu-ref", type=float, default=0.0, metavar="MEV", help="reference chemical potential")
+    p.add_argument("--mu-ref", type=float, metavar="MEV", help="chemical potential on the stored energy axis at "
+                                                              "V_g = V_0 (default: the sweep's stored Fermi "
+                                                              "energy, else 0 meV)")
     p.add_argument("--leads", metavar="FROM,TO", help="transmission from one lead into another (default: first two)")
     p.add_argument("--group", default="compare", help="HDF5 group and file-name suffix (default: compare)")
     p.add_argument("--save", metavar="H5", help="write the fit here instead of into the result file")

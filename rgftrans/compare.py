@@ -26,8 +26,9 @@ conductance measured at V_g is the thermal conductance at
 
 with alpha the lever arm in meV/V (positive for a gate that attracts
 electrons), V_0 the offset in V (the gate voltage at which mu = mu_ref) and
-mu_ref a fixed reference on the stored energy axis (default 0 meV; it only
-relabels V_0).  A sweep whose parameter axis already is a gate voltage (units
+mu_ref a fixed reference on the stored energy axis (default: the sweep's
+stored Fermi energy, file attribute ``fermi_energy_meV``, where its config
+gives a density, else 0 meV; it only relabels V_0).  A sweep whose parameter axis already is a gate voltage (units
 V or mV) is compared directly: G_j = G(mu_ref, T) is computed at each stored
 gate value g_j from that point's T(E), interpolated (monotone cubic, PCHIP) and
 evaluated at V_g - V_0, so only the offset (no lever arm) can be fitted.
@@ -43,6 +44,17 @@ chi-square is 1 by construction and the standard errors are scaled by the
 estimate).  Standard errors and correlations come from the covariance
 (J^T J)^-1 of the whitened residuals at the optimum (Gauss-Newton; Press et
 al., Numerical Recipes, 3rd ed. (2007), sec. 15.5).
+
+Failure
+-------
+A fit is only returned when it is worth reporting.  :func:`fit_trace` raises
+:class:`TraceFitFailed` (a :class:`~rgftrans.errors.FitFailed`, command-line
+exit status 1) when the optimiser did not move from its start, when a fitted
+parameter ended at a bound of its range, when it ran out of evaluations, or
+when the model does not describe the trace: reduced chi-square above
+:data:`MAX_REDUCED_CHI_SQUARE` with a given noise, or (noise estimated) an rms
+residual above :data:`MAX_RESIDUAL_SPREAD` of the trace's own spread.  The
+exception carries the flags (:class:`FitProblem`) and the failed attempt.
 
 References
 ----------
@@ -65,18 +77,32 @@ from scipy.interpolate import PchipInterpolator
 from scipy.optimize import least_squares
 from scipy.special import expit
 
-from .errors import ResolutionWarning, RgftransWarning
+from .errors import FitFailed, ResolutionWarning, RgftransWarning
 from .materials import CONDUCTANCE_QUANTUM_S
 from .store import ResultData, read_result
 from .thermal import BOLTZMANN_MEV_PER_K
-from .traces import _GATE_UNITS, MIN_TRACE_POINTS, CompareError, MeasuredTrace, _unit_key, read_trace
+from .traces import (
+    _GATE_UNITS,
+    MIN_TRACE_POINTS,
+    CompareError,
+    MeasuredTrace,
+    _arg,
+    _unit_key,
+    argument_names,
+    read_trace,
+)
 
 __all__ = [
     "PARAMETER_UNITS",
+    "MAX_REDUCED_CHI_SQUARE",
+    "MAX_RESIDUAL_SPREAD",
     "CompareError",
+    "FitProblem",
     "FitWarning",
     "MeasuredTrace",
     "TraceFit",
+    "TraceFitFailed",
+    "argument_names",
     "add_series_resistance",
     "fit_trace",
     "model_conductance",
@@ -103,11 +129,33 @@ _CUTOFF_KT = 40.0
 _MU_BLOCK = 64
 #: Points of the dense model curve per measured point, and its bounds.
 _CURVE_DENSITY, _CURVE_MIN, _CURVE_MAX = 4, 200, 2000
+#: Fraction of the overlay's height one line of the value box takes (small font, default figure size).
+_TEXT_LINE_FRACTION = 0.05
 #: Lowest temperature a fitted temperature may reach (K); it must stay positive.
 _MIN_FIT_TEMPERATURE_K = 1e-4
+#: Default range of a fitted lever arm: the start's sign, |alpha| within this factor of the start either way.
+#: A lever arm does not change sign (the gate would repel instead of attract), and the start, from the peak
+#: spacing, is known to better than a factor of a few; a fit that wants to leave this range has locked onto
+#: the wrong feature.
+LEVER_ARM_RANGE_FACTOR = 10.0
+#: With the noise given, a reduced chi-square above this fails the fit: a model that describes the trace
+#: gives 1 +- sqrt(2/dof); 10 is beyond any statistical spread and beyond a noise misjudged by a factor of 3.
+MAX_REDUCED_CHI_SQUARE = 10.0
+#: With the noise estimated, the fit fails when the rms residual exceeds this fraction of the trace's own
+#: standard deviation about its mean (explained variance below 75 %); see :func:`_residual_problem`.
+MAX_RESIDUAL_SPREAD = 0.5
+#: A fitted parameter "did not move" when it changed by less than this fraction of its scale (see
+#: :func:`_parameter_scales`); an optimiser that takes any step at all moves far more than this.
+_UNMOVED_FRACTION = 1e-6
 
 #: Units of the fit parameters.
 PARAMETER_UNITS = {"lever_arm": "meV/V", "offset": "V", "r_series": "ohm", "temperature": "K"}
+#: Names of the parameters in failure messages.
+_PARAMETER_LABELS = {"lever_arm": "lever arm", "offset": "offset", "r_series": "series resistance",
+                     "temperature": "temperature"}
+#: The argument that sets each parameter's start (or fixed) value (spelled by :func:`rgftrans.traces._arg`).
+_START_ARGUMENT = {"lever_arm": "lever_arm", "offset": "offset", "r_series": "r_series_ohm",
+                   "temperature": "temperature_K"}
 _PARAMETER_LONG_NAMES = {
     "lever_arm": "lever arm alpha in mu = mu_ref + alpha (V_g - V_0)",
     "offset": "gate-voltage offset V_0 (mu = mu_ref at V_g = V_0)",
@@ -119,7 +167,67 @@ _HDF5_FORMAT = "rgftrans-trace-fit"
 
 
 class FitWarning(RgftransWarning):
-    """A fit that ended but whose uncertainties are doubtful (singular covariance, parameter at a bound)."""
+    """A fit that ended but whose uncertainties are doubtful (singular covariance: a parameter not determined)."""
+
+
+@dataclass(frozen=True)
+class FitProblem:
+    """One reason a trace fit failed.
+
+    Attributes
+    ----------
+    kind : {"not_moved", "at_bound", "not_converged", "chi_square", "residual"}
+        The optimiser did not move from its start; a parameter ended at a
+        bound of its range; the optimiser ran out of evaluations; reduced
+        chi-square above :data:`MAX_REDUCED_CHI_SQUARE` (noise given); rms
+        residual above :data:`MAX_RESIDUAL_SPREAD` of the trace's spread
+        (noise estimated).
+    parameter : str
+        The parameter concerned ("at_bound"), or "" for the whole fit.
+    side : {"lower", "upper", ""}
+        Which bound ("at_bound" only).
+    bound : float
+        The bound's value in the parameter's units (NaN unless "at_bound").
+    value : float
+        The parameter's final value ("at_bound"); the reduced chi-square
+        ("chi_square"); rms residual over the trace's spread ("residual");
+        model evaluations ("not_converged"); NaN otherwise.
+    limit : float
+        The threshold that ``value`` crossed (NaN where none applies).
+    text : str
+        One clause saying what happened and what to try.
+    """
+
+    kind: str
+    parameter: str
+    side: str
+    bound: float
+    value: float
+    limit: float
+    text: str
+
+
+class TraceFitFailed(FitFailed):
+    """A trace fit that ran but is not worth reporting (one-line message; command-line exit status 1).
+
+    Attributes
+    ----------
+    problems : tuple of FitProblem
+        Every reason, in the order of the message.
+    attempt : TraceFit
+        The failed attempt (``success`` False), for a figure clearly titled
+        as failed; :meth:`TraceFit.to_hdf5` refuses to store it.
+    """
+
+    def __init__(self, message: str, problems=(), attempt=None):
+        super().__init__(message)
+        self.problems = tuple(problems)
+        self.attempt = attempt
+
+    @property
+    def kinds(self) -> tuple:
+        """The kinds of the problems, e.g. ("at_bound",)."""
+        return tuple(p.kind for p in self.problems)
 
 
 # --- series resistance --------------------------------------------------------------------------
@@ -129,9 +237,9 @@ def _check_resistance(r_series_ohm) -> float:
     try:
         r = float(r_series_ohm)
     except (TypeError, ValueError):
-        raise CompareError(f"r_series_ohm must be a number in ohm, got {r_series_ohm!r}") from None
+        raise CompareError(f"{_arg('r_series_ohm')} must be a number in ohm, got {r_series_ohm!r}") from None
     if not math.isfinite(r) or r < 0.0:
-        raise CompareError(f"r_series_ohm = {r!r}; pass a finite series resistance >= 0 ohm")
+        raise CompareError(f"{_arg('r_series_ohm')} = {r!r}; pass a finite series resistance >= 0 ohm")
     return r
 
 
@@ -273,18 +381,18 @@ class _Sweep:
         gate_axis = stored(gate_axis) if gate_axis is not None else None
         unknown = sorted(set(select) - set(axis_names))
         if unknown:
-            raise CompareError(f"{where}: select names axes {unknown} the sweep lacks; its axes are {axis_names}")
+            raise CompareError(f"{where}: {_arg('select')} names axes {unknown} the sweep lacks; its axes are {axis_names}")
         if gate_axis is not None and gate_axis not in axis_names:
             raise CompareError(
-                f"{where}: no axis {gate_axis!r} for gate_axis; its axes are {axis_names or 'none (energy only)'}"
+                f"{where}: no axis {gate_axis!r} for {_arg('gate_axis')}; its axes are {axis_names or 'none (energy only)'}"
             )
         if gate_axis is not None and gate_axis in select:
-            raise CompareError(f"{where}: axis {gate_axis!r} is the gate axis; remove it from select")
+            raise CompareError(f"{where}: axis {gate_axis!r} is the gate axis; remove it from {_arg('select')}")
         missing = [n for n in axis_names if n != gate_axis and n not in select]
         if missing:
-            hint = f"gate_axis={missing[0]!r} to compare along it" if gate_axis is None else ""
+            hint = f"{_arg('gate_axis')} {missing[0]!r} to compare along it" if gate_axis is None else ""
             raise CompareError(
-                f"{where}: axes {missing} are not fixed; pass select={{{missing[0]!r}: <value>}}"
+                f"{where}: axes {missing} are not fixed; pass {_arg('select')} {missing[0]!r} with a value"
                 + (f" or {hint}" if hint else "")
             )
         index: list = []
@@ -296,7 +404,7 @@ class _Sweep:
             try:
                 hit = np.flatnonzero(np.isclose(axis.values, float(value), rtol=1e-9, atol=1e-12))
             except (TypeError, ValueError):
-                raise CompareError(f"{where}: select[{axis.name!r}] = {value!r}; pass a number in {axis.units}") from None
+                raise CompareError(f"{where}: {_arg('select')} {axis.name!r} = {value!r}; pass a number in {axis.units}") from None
             if hit.size == 0:
                 raise CompareError(
                     f"{where}: axis {axis.name!r} has no value {value!r}; it holds "
@@ -317,6 +425,13 @@ class _Sweep:
             raise CompareError(f"{where}: the selected transmission contains NaN; recompute those energies")
         self.energies = np.asarray(data.energies_meV, dtype=float)
         self.gate_axis = gate_axis
+        fermi = data.attrs.get("fermi_energy_meV")
+        try:
+            fermi = float(fermi)
+        except (TypeError, ValueError):
+            fermi = float("nan")
+        #: The Fermi energy of the swept device (meV) where its config gave a density, else NaN.
+        self.fermi_energy_meV = fermi
         if gate_axis is None:
             self.transmission = t
             self.gate_values = None
@@ -326,7 +441,7 @@ class _Sweep:
             if key not in _GATE_UNITS:
                 raise CompareError(
                     f"{where}: axis {gate_axis!r} is in {axis.units!r}, not a gate voltage; use the energy axis "
-                    f"with a lever arm instead (gate_axis=None)"
+                    f"with a lever arm instead (no {_arg('gate_axis')})"
                 )
             if axis.size < 2:
                 raise CompareError(f"{where}: gate axis {gate_axis!r} has one value; direct comparison needs two or more")
@@ -345,7 +460,7 @@ class _Sweep:
         except TypeError:
             pair = []
         if len(pair) != 2:
-            raise CompareError(f"{where}: leads must be a pair (from, to), got {leads!r}; leads are {list(names)}")
+            raise CompareError(f"{where}: {_arg('leads')} must be a pair (from, to), got {leads!r}; leads are {list(names)}")
         out = []
         for lead in pair:
             if isinstance(lead, (int, np.integer)) and 0 <= lead < len(names):
@@ -439,15 +554,15 @@ def _check_temperature(temperature_K, *, positive: bool) -> float:
     try:
         value = float(temperature_K)
     except (TypeError, ValueError):
-        raise CompareError(f"temperature_K must be a number in K, got {temperature_K!r}") from None
+        raise CompareError(f"{_arg('temperature_K')} must be a number in K, got {temperature_K!r}") from None
     if not math.isfinite(value) or value < 0.0 or (positive and value == 0.0):
         bound = "> 0" if positive else ">= 0"
-        raise CompareError(f"temperature_K = {value!r}; pass a finite electron temperature {bound} K")
+        raise CompareError(f"{_arg('temperature_K')} = {value!r}; pass a finite electron temperature {bound} K")
     return value
 
 
 def model_conductance(result, gate_V, *, temperature_K, lever_arm_meV_per_V=None, offset_V=0.0,
-                      r_series_ohm=0.0, mu_ref_meV=0.0, leads=None, gate_axis=None, select=None,
+                      r_series_ohm=0.0, mu_ref_meV=None, leads=None, gate_axis=None, select=None,
                       check: bool = True):
     """Conductance a stored sweep predicts at the given gate voltages, as measured through R_s.
 
@@ -468,7 +583,9 @@ def model_conductance(result, gate_V, *, temperature_K, lever_arm_meV_per_V=None
     offset_V : float, V, keyword-only
     r_series_ohm : float, ohm, keyword-only
     mu_ref_meV : float, meV, keyword-only
-        The chemical potential on the stored energy axis at V = V_0.
+        The chemical potential on the stored energy axis at V = V_0.  Default
+        (None): the sweep's stored Fermi energy (file attribute
+        ``fermi_energy_meV``) where its config gave a density, else 0 meV.
     leads : (from, to) pair of lead names or indices, keyword-only
         Transmission from the first into the second; default the first two leads.
     gate_axis : str, keyword-only
@@ -493,9 +610,27 @@ def model_conductance(result, gate_V, *, temperature_K, lever_arm_meV_per_V=None
         p["lever_arm"] = float(lever_arm_meV_per_V)
     elif lever_arm_meV_per_V is not None:
         raise CompareError(f"{sweep.path}: axis {gate_axis!r} already is a gate voltage; drop lever_arm_meV_per_V")
+    mu_ref, _ = _reference_potential(sweep, mu_ref_meV)
     if check:
-        sweep.check_resolution(gate, p, float(mu_ref_meV))
-    return add_series_resistance(sweep.device_g0(gate, p, float(mu_ref_meV)) * G0_S, p["r_series"])
+        sweep.check_resolution(gate, p, mu_ref)
+    return add_series_resistance(sweep.device_g0(gate, p, mu_ref) * G0_S, p["r_series"])
+
+
+def _reference_potential(sweep, mu_ref_meV) -> tuple[float, str]:
+    """mu_ref (meV) and where it came from: given, the stored Fermi energy, or 0 meV for want of one."""
+    if mu_ref_meV is not None:
+        try:
+            value = float(mu_ref_meV)
+        except (TypeError, ValueError):
+            value = float("nan")
+        if not math.isfinite(value):
+            raise CompareError(f"{_arg('mu_ref_meV')} = {mu_ref_meV!r}; pass a finite chemical potential in meV on "
+                               f"the stored energy axis, or leave it out for the stored Fermi energy")
+        return value, f"given with {_arg('mu_ref_meV')}"
+    if math.isfinite(sweep.fermi_energy_meV):
+        return sweep.fermi_energy_meV, "the sweep's stored Fermi energy (file attribute fermi_energy_meV)"
+    return 0.0, (f"0 meV because the sweep stores no Fermi energy (its config gives no density); "
+                 f"set {_arg('mu_ref_meV')} to choose another")
 
 
 # --- the fit --------------------------------------------------------------------------------------
@@ -518,6 +653,8 @@ class TraceFit:
     lead_in, lead_out : str
         Transmission from ``lead_in`` into ``lead_out``.
     mu_ref_meV : float, meV
+        The chemical potential at V_g = V_0 (energy mode) or at which the
+        stored gate points are evaluated (gate mode).
     parameter_names : tuple of str
         All model parameters, fitted or fixed (units in :data:`PARAMETER_UNITS`).
     fitted : tuple of str
@@ -540,8 +677,14 @@ class TraceFit:
     curve_gate_V, curve_S : (m,) float ndarray
         The model (with R_s) on a dense gate grid, for plots.
     success : bool
+        True for a returned fit; False only for the failed attempt carried
+        by :class:`TraceFitFailed`.
     message : str
     n_evaluations : int
+    mu_ref_source : str
+        Where ``mu_ref_meV`` came from (given, the stored Fermi energy, or 0 meV for want of one).
+    bounds : dict of str to (float, float)
+        The range each fitted parameter was allowed (its units).
     """
 
     source: str
@@ -574,6 +717,8 @@ class TraceFit:
     success: bool
     message: str
     n_evaluations: int
+    mu_ref_source: str = ""
+    bounds: dict = None
 
     def summary(self) -> str:
         """Multi-line human description: data, noise model, parameters with errors, strong correlations."""
@@ -581,7 +726,8 @@ class TraceFit:
                else f"stored gate axis {self.gate_axis!r} compared at V_g - V_0")
         lines = [
             f"trace fit: {self.source or 'trace'} ({self.description}) against {self.result_path}",
-            f"  {how}, mu_ref = {self.mu_ref_meV:g} meV; transmission {self.lead_in!r} -> {self.lead_out!r}",
+            f"  {how}; transmission {self.lead_in!r} -> {self.lead_out!r}",
+            f"  mu_ref = {self.mu_ref_meV:.6g} meV: {self.mu_ref_source or 'as given'}",
             f"  {self.n_points} points, {len(self.fitted)} fitted parameter(s), {self.dof} degrees of freedom",
         ]
         if self.noise_source == "given":
@@ -625,6 +771,8 @@ class TraceFit:
             ``overwrite`` is False.
         """
         path = Path(path)
+        if not self.success:
+            raise CompareError(f"{path}: this is a failed fit attempt ({self.message}); it is not stored as a result")
         try:
             f = h5py.File(path, "a")
         except OSError as exc:
@@ -646,6 +794,7 @@ class TraceFit:
                 "chi_square": self.chi_square, "reduced_chi_square": self.reduced_chi_square, "dof": self.dof,
                 "n_points": self.n_points, "noise_S": self.noise_S, "noise_source": self.noise_source,
                 "success": self.success, "message": self.message, "n_evaluations": self.n_evaluations,
+                "mu_ref_source": self.mu_ref_source,
             }
             for key, value in attrs.items():
                 g.attrs[key] = value
@@ -674,6 +823,8 @@ class TraceFit:
                 ds = params.create_dataset(name, data=self.values[name])
                 ds.attrs["units"], ds.attrs["long_name"] = PARAMETER_UNITS[name], _PARAMETER_LONG_NAMES[name]
                 ds.attrs["stderr"], ds.attrs["fitted"] = self.stderr[name], name in self.fitted
+                if name in (self.bounds or {}):
+                    ds.attrs["bounds"] = np.asarray(self.bounds[name], dtype=float)
             labels = np.array(self.fitted, dtype=h5py.string_dtype())
             rows = dataset("fitted_parameter", labels, "", "fitted parameter (rows)")
             rows.make_scale("fitted_parameter")
@@ -718,6 +869,9 @@ def read_fit(path, group: str = "compare") -> TraceFit:
             model_S=g["model_conductance"][()], model_device_S=g["model_device_conductance"][()],
             residuals_S=g["residual"][()], curve_gate_V=g["curve_gate_voltage"][()], curve_S=g["model_curve"][()],
             success=bool(a["success"]), message=_text(a["message"]), n_evaluations=int(a["n_evaluations"]),
+            mu_ref_source=_text(a.get("mu_ref_source", "")),
+            bounds={n: tuple(float(v) for v in g["parameters"][n].attrs["bounds"]) for n in names
+                    if "bounds" in g["parameters"][n].attrs},
         )
 
 
@@ -731,18 +885,164 @@ def _covariance(jac: np.ndarray) -> tuple[np.ndarray, bool]:
     return cov, bool(np.count_nonzero(keep) == s.size)
 
 
+def _parameter_bounds(fitted, p0, bounds, where, *, user_given) -> dict:
+    """The range of each fitted parameter: the caller's, else the default (see :data:`LEVER_ARM_RANGE_FACTOR`)."""
+    alpha = p0.get("lever_arm", 1.0)
+    default = {
+        "lever_arm": tuple(sorted((alpha / LEVER_ARM_RANGE_FACTOR, alpha * LEVER_ARM_RANGE_FACTOR))),
+        "offset": (-np.inf, np.inf),
+        "r_series": (0.0, np.inf),
+        "temperature": (_MIN_FIT_TEMPERATURE_K, np.inf),
+    }
+    floor = {"r_series": (0.0, "0 ohm"), "temperature": (_MIN_FIT_TEMPERATURE_K, f"{_MIN_FIT_TEMPERATURE_K:g} K")}
+    out = {}
+    for name in fitted:
+        if name not in bounds:
+            out[name] = default[name]
+            continue
+        flag, unit = _arg(f"bounds.{name}"), PARAMETER_UNITS[name]
+        try:
+            lo, hi = (float(v) for v in bounds[name])
+        except (TypeError, ValueError):
+            raise CompareError(f"{where}: {flag} = {bounds[name]!r}; give two numbers MIN,MAX in {unit}") from None
+        if math.isnan(lo) or math.isnan(hi) or not lo < hi:
+            raise CompareError(f"{where}: {flag} = ({lo:g}, {hi:g}) {unit} is empty; give MIN < MAX")
+        if name in floor and lo < floor[name][0]:
+            raise CompareError(f"{where}: {flag} starts at {lo:g} {unit}, below {floor[name][1]}; raise MIN")
+        if name == "lever_arm" and lo < 0.0 < hi:
+            raise CompareError(f"{where}: {flag} = ({lo:g}, {hi:g}) {unit} contains 0 (no gate effect at all); give "
+                               f"a range of one sign")
+        if not lo <= p0[name] <= hi:
+            raise CompareError(f"{where}: the start {_arg(_START_ARGUMENT[name])} = {p0[name]:g} {unit} lies outside "
+                               f"{flag} ({lo:g}, {hi:g}); start inside the range or widen it")
+        out[name] = (lo, hi)
+    unknown = sorted(set(bounds) - set(fitted))
+    if unknown and user_given:
+        flags = ", ".join(_arg(f"bounds.{n}") for n in unknown)
+        raise CompareError(f"{where}: {flags} given for {unknown}, which are not fitted (fitted: {list(fitted)}); "
+                           f"fit them or drop the range")
+    return out
+
+
+def _parameter_scales(fitted, p0, trace) -> np.ndarray:
+    """The size of a real step of each fitted parameter, for the "did not move" test.
+
+    Lever arm and temperature: their start values.  Offset: the mean gate
+    step of the trace (a shift by one step is a visible change).  Series
+    resistance: its start or the resistance at the trace's peak, 1/max(G),
+    whichever is larger.
+    """
+    gate = trace.gate_V
+    g_max = float(np.max(np.abs(trace.conductance_S)))
+    scale = {
+        "lever_arm": abs(p0["lever_arm"]) if "lever_arm" in p0 else 1.0,
+        "offset": abs(float(gate[-1] - gate[0])) / max(gate.size - 1, 1),
+        "r_series": max(abs(p0["r_series"]), 1.0 / g_max if g_max > 0.0 else 1.0),
+        "temperature": abs(p0["temperature"]),
+    }
+    return np.array([scale[name] for name in fitted])
+
+
+def _residual_problem(residuals_S, measured_S) -> tuple[float, float]:
+    """rms residual over the trace's standard deviation, and that deviation (S); the noise-free failure test.
+
+    Without a given noise the reduced chi-square is 1 by construction and
+    tests nothing, so the fit is judged against the trace itself: it fails
+    when the rms residual exceeds :data:`MAX_RESIDUAL_SPREAD` (0.5) of the
+    trace's standard deviation about its mean, i.e. when the model explains
+    less than 75 % of the trace's variance.  The trace's spread is used rather
+    than its range because Coulomb peaks are narrow: a model that misses
+    every peak leaves residuals of order the spread (ratio >= 1) but only a
+    small fraction of the range.  A correct model leaves the noise sigma,
+    and sigma^2 = s^2 (signal) + sigma^2 gives ratio sigma / sqrt(s^2 + sigma^2),
+    above 0.5 only when the noise exceeds s / sqrt(3) ~ 0.58 of the signal's
+    own spread, a trace too noisy to fix a lever arm unless the noise is
+    given (then the chi-square test applies instead).
+    """
+    spread = float(np.std(measured_S))
+    rms = float(np.sqrt(np.mean(np.square(residuals_S))))
+    if spread == 0.0:
+        return (0.0 if rms == 0.0 else math.inf), spread
+    return rms / spread, spread
+
+
+def _problems(*, sweep, trace, fitted, p0, x0, sol, ranges, scales, reduced_chi2, noise_given, sigma, residuals,
+              mu_ref, max_evaluations) -> list:
+    """Every reason this fit is not worth reporting (empty list for a good fit); clauses name arguments by _arg."""
+    problems = []
+    starts = ", ".join(f"{_arg(_START_ARGUMENT[n])} {p0[n]:g} {PARAMETER_UNITS[n]}" for n in fitted)
+    nearer = ", ".join(_arg(_START_ARGUMENT[n]) for n in fitted if n in ("lever_arm", "offset")) or starts
+    moved = np.abs(sol.x - x0) > _UNMOVED_FRACTION * scales
+    if not np.any(moved):
+        why = ""
+        if sweep.mode == "energy":
+            mu = sweep.mu(trace.gate_V, p0, mu_ref)
+            lo, hi = float(mu.min()), float(mu.max())
+            e0, e1 = float(sweep.energies[0]), float(sweep.energies[-1])
+            if hi < e0 or lo > e1:
+                why = (f" (the trace maps to mu = {lo:.4g}..{hi:.4g} meV, outside the stored energies "
+                       f"{e0:.4g}..{e1:.4g} meV)")
+            else:
+                why = f" (the trace maps to mu = {lo:.4g}..{hi:.4g} meV, where the stored transmission is flat)"
+        problems.append(FitProblem(
+            "not_moved", "", "", math.nan, math.nan, math.nan,
+            f"the fit did not move from its start ({starts}): the model does not change with its parameters "
+            f"there{why}; start nearer ({nearer})"))
+    for name, xi, (lo, hi), active in zip(fitted, sol.x, (ranges[n] for n in fitted), sol.active_mask):
+        tol = 1e-9 * max(abs(lo) if math.isfinite(lo) else 0.0, abs(hi) if math.isfinite(hi) else 0.0, 1e-300)
+        side = "lower" if (active < 0 or xi - lo <= tol) else "upper" if (active > 0 or hi - xi <= tol) else ""
+        if not side:
+            continue
+        bound = lo if side == "lower" else hi
+        unit = PARAMETER_UNITS[name]
+        advice = (f"widen {_arg(f'bounds.{name}')} or start nearer ({_arg(_START_ARGUMENT[name])})"
+                  if name in ("lever_arm", "offset") else
+                  f"fix it instead (set {_arg(_START_ARGUMENT[name])} and do not fit it) or widen "
+                  f"{_arg(f'bounds.{name}')}")
+        problems.append(FitProblem(
+            "at_bound", name, side, float(bound), float(xi), math.nan,
+            f"{_PARAMETER_LABELS[name]} stuck at its {side} bound {bound:g} {unit}; {advice}"))
+    if sol.status == 0:
+        problems.append(FitProblem(
+            "not_converged", "", "", math.nan, float(sol.nfev), float(max_evaluations),
+            f"no convergence after {sol.nfev} model evaluations; start nearer ({nearer})"))
+    if problems and problems[0].kind == "not_moved":
+        return problems  # a bad chi-square or residual then only restates that the start is wrong
+    if noise_given:
+        if reduced_chi2 > MAX_REDUCED_CHI_SQUARE:
+            problems.append(FitProblem(
+                "chi_square", "", "", math.nan, float(reduced_chi2), MAX_REDUCED_CHI_SQUARE,
+                f"reduced chi-square {reduced_chi2:.3g} > {MAX_REDUCED_CHI_SQUARE:g} with the given noise "
+                f"{_arg('noise_S')} {sigma * 1e6:.3g} uS: the model does not describe the trace; start nearer "
+                f"({nearer}), check the noise, or also fit the series resistance or temperature "
+                f"({_arg('fit_series')}, {_arg('fit_temperature')})"))
+    else:
+        ratio, spread = _residual_problem(residuals, trace.conductance_S)
+        if ratio > MAX_RESIDUAL_SPREAD:
+            rms = ratio * spread if math.isfinite(ratio) else float(np.sqrt(np.mean(np.square(residuals))))
+            problems.append(FitProblem(
+                "residual", "", "", math.nan, float(ratio), MAX_RESIDUAL_SPREAD,
+                f"rms residual {rms * 1e6:.3g} uS is {ratio:.3g} of the trace's spread {spread * 1e6:.3g} uS "
+                f"(limit {MAX_RESIDUAL_SPREAD:g}): the model does not describe the trace; start nearer ({nearer}) "
+                f"or give the noise ({_arg('noise_S')}) to judge the fit by chi-square"))
+    return problems
+
+
 def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series_ohm=0.0, fit_series: bool = False,
               fit_temperature: bool = False, noise_S=None, initial: Mapping[str, float] | None = None,
-              mu_ref_meV: float = 0.0, leads=None, gate_axis=None, select=None, max_evaluations: int = 2000
-              ) -> TraceFit:
-    """Fit a stored sweep to a measured trace by least squares.
+              bounds: Mapping[str, tuple] | None = None, mu_ref_meV: float | None = None, leads=None,
+              gate_axis=None, select=None, max_evaluations: int = 2000) -> TraceFit:
+    """Fit a stored sweep to a measured trace by least squares, or fail loudly.
 
     Minimises sum_i ((G_meas,i - G_model,i) / sigma)² over the fitted
     parameters, with G_model = add_series_resistance(G(mu(V_i), T), R_s) (the
     model is brought to the measured quantity, so the data are never
     corrected).  Trust-region reflective least squares
-    (:func:`scipy.optimize.least_squares`, scaled by the Jacobian), with
-    temperature > 0 and R_s >= 0 as bounds.
+    (:func:`scipy.optimize.least_squares`, scaled by the Jacobian) within the
+    parameters' ranges (``bounds``).
+
+    A fit is returned only when it is worth reporting; otherwise
+    :class:`TraceFitFailed` is raised (module docstring, "Failure").
 
     Parameters
     ----------
@@ -760,13 +1060,23 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
         Add "r_series" / "temperature" to ``fit``.
     noise_S : float, S, keyword-only
         The measurement's noise sigma.  None: estimated from the residual rms
-        (reduced chi-square then 1 by construction).
+        (reduced chi-square then 1 by construction; the fit is judged by its
+        residual against the trace's spread instead, see :func:`_residual_problem`).
     initial : dict, keyword-only
         "lever_arm" (meV/V; required in energy mode, start value or fixed
         value, e.g. ΔE between two stored peaks / ΔV_g between the measured
         ones) and "offset" (V; default: the centre of the trace maps to the
         centre of the stored energy grid, or 0 in gate mode).
-    mu_ref_meV, leads, gate_axis, select
+    bounds : dict of str to (float, float), keyword-only
+        Range of a fitted parameter, in its units.  Defaults: lever arm of the
+        start's sign within a factor :data:`LEVER_ARM_RANGE_FACTOR` of it;
+        offset free; series resistance >= 0; temperature >= 1e-4 K.  A start
+        outside a given range is refused.
+    mu_ref_meV : float, meV, keyword-only
+        The chemical potential at V_g = V_0.  Default: the sweep's stored
+        Fermi energy (file attribute ``fermi_energy_meV``) where it has one,
+        else 0 meV; :attr:`TraceFit.mu_ref_source` says which.
+    leads, gate_axis, select
         As in :func:`model_conductance`.
     max_evaluations : int, keyword-only
         Cap on model evaluations.
@@ -775,13 +1085,26 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
     -------
     TraceFit
 
+    Raises
+    ------
+    CompareError
+        Bad input (one line, naming the argument; within
+        :func:`argument_names` the caller's spelling, e.g. command-line flags).
+    TraceFitFailed
+        The optimiser did not move from its start, a fitted parameter ended
+        at a bound, no convergence within ``max_evaluations``, reduced
+        chi-square above :data:`MAX_REDUCED_CHI_SQUARE` (noise given) or rms
+        residual above :data:`MAX_RESIDUAL_SPREAD` of the trace's spread
+        (noise estimated).  One line naming each problem and what to try;
+        ``problems`` and ``attempt`` carry the details.
+
     Warns
     -----
     ResolutionWarning
         At the fitted parameters: a gate step mapping to more than kT/2; an
         energy grid not covering the mapped window ± 20 kT or coarser than kT/2 in it.
     FitWarning
-        Singular covariance (a parameter not determined) or a parameter at a bound.
+        Singular covariance (a parameter not determined).
     """
     if not isinstance(trace, MeasuredTrace):
         raise CompareError(f"trace must be a MeasuredTrace (from read_trace), got {type(trace).__name__}")
@@ -800,9 +1123,9 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
     bad = [n for n in fitted if n not in names]
     if bad:
         extra = " (a stored gate axis needs no lever arm)" if "lever_arm" in bad and sweep.mode == "gate" else ""
-        raise CompareError(f"{where}: cannot fit {bad}{extra}; fit names are {list(names)}")
+        raise CompareError(f"{where}: cannot fit {bad}{extra} ({_arg('fit')}); fit names are {list(names)}")
     if not fitted:
-        raise CompareError(f"{where}: nothing to fit; pass fit= with at least one of {list(names)}")
+        raise CompareError(f"{where}: nothing to fit; pass {_arg('fit')} with at least one of {list(names)}")
     fitted = tuple(n for n in names if n in fitted)  # canonical order
     n, k = trace.n_points, len(fitted)
     if n <= k:
@@ -814,29 +1137,33 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
             f"{where}: initial names {unknown}; it takes 'lever_arm' and 'offset' (r_series_ohm and temperature_K "
             f"are keywords of their own)"
         )
-    mu_ref = float(mu_ref_meV)
+    mu_ref, mu_ref_source = _reference_potential(sweep, mu_ref_meV)
     p0 = {"r_series": _check_resistance(r_series_ohm), "temperature": _check_temperature(temperature_K, positive=True)}
     if sweep.mode == "energy":
         if "lever_arm" not in initial:
             raise CompareError(
-                f"{where}: give initial={{'lever_arm': alpha}} in meV/V (e.g. the energy spacing of two stored "
+                f"{where}: give the lever arm {_arg('lever_arm')} in meV/V (e.g. the energy spacing of two stored "
                 f"peaks over the gate spacing of the measured ones)"
             )
         p0["lever_arm"] = float(initial["lever_arm"])
         if not math.isfinite(p0["lever_arm"]) or p0["lever_arm"] == 0.0:
-            raise CompareError(f"{where}: initial lever_arm = {p0['lever_arm']!r}; pass a finite, non-zero meV/V")
+            raise CompareError(f"{where}: {_arg('lever_arm')} = {p0['lever_arm']!r}; pass a finite, non-zero meV/V")
         e = sweep.energies
         default_offset = 0.5 * (trace.gate_V[0] + trace.gate_V[-1]) - (0.5 * (e[0] + e[-1]) - mu_ref) / p0["lever_arm"]
         p0["offset"] = float(initial.get("offset", default_offset))
     else:
         if "lever_arm" in initial:
-            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage; drop initial['lever_arm']")
+            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage; drop {_arg('lever_arm')}")
         p0["offset"] = float(initial.get("offset", 0.0))
+    if not math.isfinite(p0["offset"]):
+        raise CompareError(f"{where}: {_arg('offset')} = {p0['offset']!r}; pass a finite gate voltage in V")
     if noise_S is not None:
         sigma = float(noise_S)
         if not math.isfinite(sigma) or sigma <= 0.0:
-            raise CompareError(f"{where}: noise_S = {noise_S!r}; pass the positive noise sigma in S, or None to estimate it")
-    lower = {"lever_arm": -np.inf, "offset": -np.inf, "r_series": 0.0, "temperature": _MIN_FIT_TEMPERATURE_K}
+            raise CompareError(f"{where}: {_arg('noise_S')} = {noise_S!r}; pass the positive noise sigma in S, or "
+                               f"leave it out to estimate it")
+    p0["temperature"] = max(p0["temperature"], _MIN_FIT_TEMPERATURE_K) if "temperature" in fitted else p0["temperature"]
+    ranges = _parameter_bounds(fitted, p0, dict(bounds or {}), where, user_given=bounds is not None)
 
     gate = trace.gate_V
     g_meas = trace.conductance_S
@@ -854,9 +1181,9 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
         return (g_meas - model(params(x), gate)) / scale
 
     x0 = np.array([p0[name] for name in fitted])
-    lb = np.array([lower[name] for name in fitted])
-    x0 = np.maximum(x0, lb)
-    sol = least_squares(residual, x0, bounds=(lb, np.full(k, np.inf)), x_scale="jac", max_nfev=max_evaluations)
+    lb = np.array([ranges[name][0] for name in fitted])
+    ub = np.array([ranges[name][1] for name in fitted])
+    sol = least_squares(residual, x0, bounds=(lb, ub), x_scale="jac", max_nfev=max_evaluations)
     p = params(sol.x)
     whitened = sol.fun
     chi2 = float(whitened @ whitened)
@@ -869,45 +1196,76 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
         chi2, noise_source = float(dof), "estimated"
     else:
         noise_source = "given"
-    message = sol.message
-    if not full_rank:
-        warnings.warn(f"{where}: the fit does not determine every parameter of {list(fitted)} (singular covariance); "
-                      f"fix some of them or measure a wider gate range", FitWarning, stacklevel=2)
-        message += "; singular covariance"
-    at_bound = [name for name, active in zip(fitted, sol.active_mask) if active != 0]
-    if at_bound:
-        warnings.warn(f"{where}: {at_bound} ended at a bound ({', '.join(f'{b} = {p[b]:g}' for b in at_bound)}); "
-                      f"their standard errors are not meaningful; fix them instead", FitWarning, stacklevel=2)
-        message += f"; at bound: {' '.join(at_bound)}"
     err = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = cov / np.outer(err, err)
     stderr = {name: float("nan") for name in names}
     stderr.update(zip(fitted, (float(v) for v in err)))
 
-    sweep.check_resolution(gate, p, mu_ref, stacklevel=3)
     device = sweep.device_g0(gate, p, mu_ref) * G0_S
     model_S = add_series_resistance(device, p["r_series"])
     m = int(np.clip(_CURVE_DENSITY * n, _CURVE_MIN, _CURVE_MAX))
     curve_gate = np.linspace(gate[0], gate[-1], m)
     for arr in (device, model_S):
         arr.setflags(write=False)
-    return TraceFit(
+    residuals = g_meas - model_S
+    problems = _problems(sweep=sweep, trace=trace, fitted=fitted, p0=p0, x0=x0, sol=sol, ranges=ranges,
+                         scales=_parameter_scales(fitted, p0, trace), reduced_chi2=chi2 / dof,
+                         noise_given=noise_S is not None, sigma=sigma, residuals=residuals, mu_ref=mu_ref,
+                         max_evaluations=max_evaluations)
+    message = "; ".join(pr.text for pr in problems) if problems else sol.message
+    if not full_rank:
+        message += "; singular covariance"
+    outcome = TraceFit(
         source=trace.source, description=trace.description, result_path=sweep.path, mode=sweep.mode,
         gate_axis=sweep.gate_axis or "", lead_in=sweep.lead_in, lead_out=sweep.lead_out, mu_ref_meV=mu_ref,
         parameter_names=names, fitted=fitted, values={name: float(p[name]) for name in names}, stderr=stderr,
         covariance=cov, correlation=corr, chi_square=chi2, reduced_chi_square=chi2 / dof, dof=dof, n_points=n,
         noise_S=float(sigma), noise_source=noise_source, gate_V=gate, measured_S=g_meas, model_S=model_S,
-        model_device_S=device, residuals_S=g_meas - model_S, curve_gate_V=curve_gate,
-        curve_S=model(p, curve_gate), success=bool(sol.success), message=message, n_evaluations=int(sol.nfev),
+        model_device_S=device, residuals_S=residuals, curve_gate_V=curve_gate,
+        curve_S=model(p, curve_gate), success=not problems, message=message, n_evaluations=int(sol.nfev),
+        mu_ref_source=mu_ref_source, bounds={name: tuple(float(v) for v in ranges[name]) for name in fitted},
     )
+    if problems:
+        # No warnings about resolution or covariance at parameters nobody should use: the one line says it all.
+        raise TraceFitFailed(f"{where}: {message}", problems, outcome)
+    if not full_rank:
+        warnings.warn(f"{where}: the fit does not determine every parameter of {list(fitted)} (singular covariance); "
+                      f"fix some of them or measure a wider gate range", FitWarning, stacklevel=2)
+    sweep.check_resolution(gate, p, mu_ref, stacklevel=3)
+    return outcome
 
 
 # --- the figure ----------------------------------------------------------------------------------
 
 
+def _value_lines(fit: TraceFit) -> list:
+    """One line per parameter for the figure: fitted ones as value ± standard error, fixed ones marked."""
+    symbols = {"lever_arm": "α", "offset": "V₀", "r_series": "R_s", "temperature": "T"}
+    units = {"lever_arm": "meV/V", "offset": "mV", "r_series": "kΩ", "temperature": "K"}
+    factor = {"lever_arm": 1.0, "offset": 1e3, "r_series": 1e-3, "temperature": 1.0}
+    lines = []
+    for name in fit.parameter_names:
+        v, e = fit.values[name] * factor[name], fit.stderr[name] * factor[name]
+        if name in fit.fitted:
+            lines.append(f"{symbols[name]} = {v:.5g} ± {e:.2g} {units[name]}")
+        else:
+            lines.append(f"{symbols[name]} = {v:.5g} {units[name]} (fixed)")
+    lines.append(f"μ_ref = {fit.mu_ref_meV:.4g} meV")
+    if fit.noise_source == "given":
+        lines.append(f"reduced χ² = {fit.reduced_chi_square:.3g}")
+    else:
+        lines.append(f"σ estimated = {fit.noise_S * 1e6:.3g} µS")
+    return lines
+
+
 def plot_fit(fit: TraceFit, *, ax=None):
-    """Measured and modelled conductance against gate voltage, residuals below.
+    """Measured and modelled conductance against plunger gate voltage, residuals below.
+
+    The fitted values with their standard errors (and the fixed ones) stand
+    in a text box on the overlay.  A failed attempt (``fit.success`` False,
+    from :attr:`TraceFitFailed.attempt`) is titled "FAILED FIT - not a
+    result" with the reason, and its model curve is dashed grey.
 
     Parameters
     ----------
@@ -924,7 +1282,7 @@ def plot_fit(fit: TraceFit, *, ax=None):
     import matplotlib.pyplot as plt
 
     if ax is None:
-        fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6, 5), layout="constrained",
+        fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6.5, 5.5), layout="constrained",
                                           gridspec_kw={"height_ratios": (3, 1)})
     elif isinstance(ax, (tuple, list)):
         top, bottom = ax
@@ -935,21 +1293,35 @@ def plot_fit(fit: TraceFit, *, ax=None):
         ax.remove()
         top = fig.add_subplot(spec[0])
         bottom = fig.add_subplot(spec[1], sharex=top)
+    mv = 1e3  # gate voltages drawn in mV
     label = fit.description or fit.source or "measured"
-    top.plot(fit.gate_V, fit.measured_S / G0_S, ".", ms=3, color="0.3", label=f"measured: {label}")
-    top.plot(fit.curve_gate_V, fit.curve_S / G0_S, "-", color="tab:red", lw=1.5,
-             label=f"model ({', '.join(fit.fitted)} fitted)")
-    top.set_ylabel("conductance G (2e²/h)")
+    top.plot(fit.gate_V * mv, fit.measured_S / G0_S, ".", ms=3, color="0.3", label=f"measured: {label}")
+    if fit.success:
+        top.plot(fit.curve_gate_V * mv, fit.curve_S / G0_S, "-", color="tab:red", lw=1.5,
+                 label=f"model ({', '.join(fit.fitted)} fitted)")
+    else:
+        top.plot(fit.curve_gate_V * mv, fit.curve_S / G0_S, "--", color="0.5", lw=1.2,
+                 label="model at the failed attempt's parameters")
+    top.set_ylabel("conductance (2e²/h)")
     right = top.secondary_yaxis("right", functions=(lambda g: g * G0_S * 1e6, lambda u: u / (G0_S * 1e6)))
-    right.set_ylabel("conductance G (µS)")
-    top.legend(loc="best", fontsize="small")
-    chi = (f"reduced χ² = {fit.reduced_chi_square:.3g}" if fit.noise_source == "given"
-           else f"σ estimated = {fit.noise_S * 1e6:.3g} µS")
-    top.set_title(f"{fit.n_points} points, {chi}", fontsize="medium")
+    right.set_ylabel("conductance (µS)")
+    lines = _value_lines(fit)
+    # Headroom above the data for the legend and the value box (about 5 % of the height per text line), so
+    # neither hides a peak.
+    lo, hi = top.get_ylim()
+    top.set_ylim(lo, lo + (hi - lo) / max(1.0 - _TEXT_LINE_FRACTION * len(lines), 0.3))
+    top.legend(loc="upper left", fontsize="small")
+    top.text(0.98, 0.97, "\n".join(lines), transform=top.transAxes, ha="right", va="top",
+             fontsize="small", bbox=dict(boxstyle="round", facecolor="white", edgecolor="0.7", alpha=0.9))
+    if fit.success:
+        top.set_title(f"{fit.n_points} points, {', '.join(fit.fitted)} fitted", fontsize="medium")
+    else:
+        reason = fit.message if len(fit.message) <= 90 else fit.message[:87] + "..."
+        top.set_title(f"FAILED FIT - not a result\n{reason}", fontsize="small", color="tab:red")
     bottom.axhspan(-fit.noise_S / G0_S, fit.noise_S / G0_S, color="tab:blue", alpha=0.15, lw=0, label="± σ")
     bottom.axhline(0.0, color="0.5", lw=0.8)
-    bottom.plot(fit.gate_V, fit.residuals_S / G0_S, ".", ms=3, color="tab:blue", label="measured − model")
-    bottom.set_xlabel("gate voltage V_g (V)")
+    bottom.plot(fit.gate_V * mv, fit.residuals_S / G0_S, ".", ms=3, color="tab:blue", label="measured − model")
+    bottom.set_xlabel("plunger gate voltage (mV)")
     bottom.set_ylabel("residual (2e²/h)")
     bottom.legend(loc="best", fontsize="small")
     if top is not bottom:

@@ -9,15 +9,18 @@ from __future__ import annotations
 import csv
 import math
 import re
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Mapping
 
 import numpy as np
 
 from .errors import RgftransError
 from .materials import CONDUCTANCE_QUANTUM_S
 
-__all__ = ["CompareError", "MeasuredTrace", "read_trace", "MIN_TRACE_POINTS"]
+__all__ = ["CompareError", "MeasuredTrace", "argument_names", "read_trace", "MIN_TRACE_POINTS"]
 
 G0_S = CONDUCTANCE_QUANTUM_S  # 2e²/h in S
 #: Fewest data rows a trace may have (a fit needs more rows than fitted parameters, too).
@@ -32,6 +35,43 @@ _HEADER_UNIT = re.compile(r"^(?P<name>.*?)\s*[\[(]\s*(?P<unit>[^\])]*?)\s*[\])]\
 
 class CompareError(RgftransError):
     """A measured trace, a stored sweep or a fit request that cannot be compared."""
+
+
+# --- how messages name the caller's arguments ----------------------------------------------------
+
+#: The Python spelling of every argument a message of this module or :mod:`rgftrans.compare` may name
+#: (keys not listed are spelled as the key itself).
+_PYTHON_NAMES = {
+    "lever_arm": "initial['lever_arm']",
+    "offset": "initial['offset']",
+    "bounds.lever_arm": "bounds['lever_arm']",
+    "bounds.offset": "bounds['offset']",
+    "bounds.r_series": "bounds['r_series']",
+    "bounds.temperature": "bounds['temperature']",
+}
+_ARGUMENT_NAMES: ContextVar[Mapping[str, str]] = ContextVar("rgftrans_compare_argument_names", default={})
+
+
+@contextmanager
+def argument_names(names: Mapping[str, str]):
+    """Within the block, error and failure messages name arguments as ``names`` says.
+
+    The command line maps the Python keywords (``"noise_S"``, ``"bias_V"``,
+    ``"lever_arm"`` for ``initial['lever_arm']``, ``"bounds.lever_arm"``, …) to
+    its flags (``"--noise"``, ``"--bias"``, ``"--lever-arm"``,
+    ``"--lever-arm-range"``), so a user of the command line reads the flag
+    they can change.  Keys not given keep their Python spelling.
+    """
+    token = _ARGUMENT_NAMES.set(dict(names))
+    try:
+        yield
+    finally:
+        _ARGUMENT_NAMES.reset(token)
+
+
+def _arg(key: str) -> str:
+    """How messages name the argument ``key`` in the current context (see :func:`argument_names`)."""
+    return _ARGUMENT_NAMES.get().get(key, _PYTHON_NAMES.get(key, key))
 
 
 def _unit_key(unit: str) -> str:
@@ -200,20 +240,22 @@ def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conduc
     """
     path = Path(path)
     if kind not in _KINDS:
-        raise CompareError(f"{path}: kind must be 'conductance' or 'current', got {kind!r}")
+        raise CompareError(f"{path}: {_arg('kind')} must be 'conductance' or 'current', got {kind!r}")
     if kind == "current":
         if bias_V is None:
             raise CompareError(
-                f"{path}: a current trace needs the source-drain bias to become a conductance; pass bias_V=<volts>"
+                f"{path}: a current trace needs the source-drain bias to become a conductance; pass {_arg('bias_V')} "
+                f"(volts)"
             )
         try:
             bias = float(bias_V)
         except (TypeError, ValueError):
-            raise CompareError(f"{path}: bias_V must be a number in V, got {bias_V!r}") from None
+            raise CompareError(f"{path}: {_arg('bias_V')} must be a number in V, got {bias_V!r}") from None
         if not math.isfinite(bias) or bias == 0.0:
-            raise CompareError(f"{path}: bias_V = {bias!r} V; pass the finite, non-zero bias of the measurement")
+            raise CompareError(f"{path}: {_arg('bias_V')} = {bias!r} V; pass the finite, non-zero bias of the measurement")
     elif bias_V is not None:
-        raise CompareError(f"{path}: bias_V applies to kind='current' only; drop it or pass kind='current'")
+        raise CompareError(f"{path}: {_arg('bias_V')} applies to {_arg('kind')} 'current' only; drop it or pass "
+                           f"{_arg('kind')} 'current'")
 
     text = _read_text(path)
     header: list[str] | None = None
@@ -249,7 +291,7 @@ def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conduc
                 if header is not None and wanted in (header[i].lower(), names[i].lower()):
                     return i
         raise CompareError(
-            f"{path}: no column {spec!r} for the {what}; columns present: {present}; pass {keyword}= one of them"
+            f"{path}: no column {spec!r} for the {what}; columns present: {present}; pass {_arg(keyword)} one of them"
         )
 
     if n_cols == 0:
@@ -260,31 +302,32 @@ def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conduc
         left = [i for i in range(n_cols) if i not in (i_gate, i_second)]
         if len(left) != 1:
             raise CompareError(
-                f"{path}: cannot tell which column holds the {kind}: columns present: {present}; pass value_column="
+                f"{path}: cannot tell which column holds the {kind}: columns present: {present}; pass {_arg('value_column')}"
             )
         i_value = left[0]
     else:
         i_value = resolve(value_column, kind, "value_column")
     if i_value == i_gate:
-        raise CompareError(f"{path}: gate_column and value_column both select column {names[i_gate]!r}; pick two columns")
+        raise CompareError(f"{path}: {_arg('gate_column')} and {_arg('value_column')} both select column {names[i_gate]!r}; pick two columns")
 
     # Units of the value column: from the argument and/or the header.
     table, other = (_CONDUCTANCE_UNITS, _CURRENT_UNITS) if kind == "conductance" else (_CURRENT_UNITS, _CONDUCTANCE_UNITS)
     head_unit = header_units[i_value]
     if units is not None and head_unit is not None and _unit_key(units) != _unit_key(head_unit):
         raise CompareError(
-            f"{path}: column {header[i_value]!r} says [{head_unit}] but units={units!r} was passed; drop one of them"
+            f"{path}: column {header[i_value]!r} says [{head_unit}] but {_arg('units')} {units!r} was passed; drop one of them"
         )
     unit = units if units is not None else head_unit
     if unit is None:
         raise CompareError(
-            f"{path}: the units of the {kind} column {names[i_value]!r} are not known; pass units= "
+            f"{path}: the units of the {kind} column {names[i_value]!r} are not known; pass {_arg('units')} "
             f"(one of {', '.join(table)}) or write them in the header as '{names[i_value]} [unit]'"
         )
     key = _unit_key(unit)
     if key not in table:
         if key in other:
-            hint = "kind='current' and bias_V=" if kind == "conductance" else "kind='conductance'"
+            hint = (f"{_arg('kind')} 'current' and {_arg('bias_V')}" if kind == "conductance"
+                    else f"{_arg('kind')} 'conductance'")
             raise CompareError(f"{path}: the value column is in {unit!r}, which is not a {kind}; pass {hint}")
         raise CompareError(f"{path}: unknown {kind} unit {unit!r}; use one of {', '.join(table)}")
     value_scale = table[key]

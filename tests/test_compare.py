@@ -235,7 +235,7 @@ def test_gate_axis_fit_recovers_offset(energy_sweep, gate_sweep):
 
 
 @pytest.mark.parametrize("kwargs, fragment", [
-    (dict(temperature_K=0.25), "initial={'lever_arm'"),
+    (dict(temperature_K=0.25), "the lever arm initial['lever_arm']"),
     (dict(temperature_K=0.25, initial={"lever_arm": 80.0}, fit=("gain",)), "cannot fit ['gain']"),
     (dict(temperature_K=0.0, initial={"lever_arm": 80.0}), "temperature_K = 0.0"),
     (dict(temperature_K=0.25, initial={"lever_arm": 80.0}, noise_S=-1.0), "noise_S = -1.0"),
@@ -250,7 +250,7 @@ def test_fit_request_errors(energy_sweep, kwargs, fragment):
 
 
 @pytest.mark.parametrize("kwargs, fragment", [
-    (dict(), "pass select={'vg_plunger'"),
+    (dict(), "pass select 'vg_plunger'"),
     (dict(gate_axis="vg_plunger", fit=("lever_arm", "offset")), "needs no lever arm"),
     (dict(gate_axis="bias"), "no axis 'bias'"),
 ])
@@ -324,12 +324,12 @@ BAD_FILES = [
     ("turns back", "Vg [V],G [uS]\n0.1,1\n0.2,2\n0.15,3\n0.3,4\n", {}, ["line 4", "turns back"]),
     ("repeated gate", "Vg [V],G [uS]\n0.1,1\n0.2,2\n0.2,3\n0.3,4\n", {}, ["line 4", "repeats line 3"]),
     ("current without bias", "Vg [V],I [nA]\n0.1,1\n0.2,2\n0.3,3\n", dict(kind="current"), ["bias_V"]),
-    ("conductance given as current", "Vg [V],I [nA]\n0.1,1\n0.2,2\n0.3,3\n", {}, ["kind='current'"]),
+    ("conductance given as current", "Vg [V],I [nA]\n0.1,1\n0.2,2\n0.3,3\n", {}, ["kind 'current'"]),
     ("too few points", "Vg [V],G [uS]\n0.1,1\n0.2,2\n", {}, ["2 data row(s)", "at least 3"]),
     ("short row", "Vg [V],G [uS]\n0.1,1\n0.2\n0.3,3\n", {}, ["line 3", "1 cell(s), expected 2"]),
     ("unknown unit", "Vg [V],G [furlong]\n0.1,1\n0.2,2\n0.3,3\n", {}, ["unknown conductance unit 'furlong'"]),
-    ("conflicting units", "Vg [V],G [uS]\n0.1,1\n0.2,2\n0.3,3\n", dict(units="S"), ["says [uS]", "units='S'"]),
-    ("no units", "0.1 1\n0.2 2\n0.3 3\n", {}, ["units of the conductance column", "units="]),
+    ("conflicting units", "Vg [V],G [uS]\n0.1,1\n0.2,2\n0.3,3\n", dict(units="S"), ["says [uS]", "units 'S'"]),
+    ("no units", "0.1 1\n0.2 2\n0.3 3\n", {}, ["units of the conductance column", "pass units (one of"]),
     ("ambiguous value", "Vg [V],G [uS],I [nA]\n0.1,1,2\n0.2,2,3\n0.3,3,4\n", {}, ["cannot tell", "'I [nA]'"]),
 ]
 
@@ -395,7 +395,7 @@ def test_plot_fit_labels(fits, given_ax):
     ax = plt.subplots()[1] if given_ax else None
     fig, (top, right, bottom) = plot_fit(fits["all four, sigma given"], ax=ax)
     assert "2e²/h" in top.get_ylabel() and "µS" in right.get_ylabel()
-    assert "(V)" in bottom.get_xlabel() and "2e²/h" in bottom.get_ylabel()
+    assert "plunger gate voltage (mV)" in bottom.get_xlabel() and "2e²/h" in bottom.get_ylabel()
     assert top.get_legend() is not None
     plt.close(fig)
 
