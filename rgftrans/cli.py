@@ -205,10 +205,11 @@ def _cmd_plot(args) -> int:
     matplotlib.use("Agg")
     from .plots import plot_result
 
-    fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy)
+    fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy,
+                         temperature=args.temperature, over_energy=args.over_energy)
     out = Path(args.out or Path(args.result).with_suffix(".png"))
     out.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(out, dpi=150)
+    fig.savefig(out, dpi=150, bbox_inches="tight")
     print(f"wrote {out}")
     return EXIT_OK
 
@@ -453,14 +454,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("result", help="HDF5 result file")
     p.set_defaults(func=_cmd_info)
 
-    p = sub.add_parser("plot", help="plot conductance from a result file",
-                       description="Conductance lines (no sweep axis), a map over one sweep axis and energy, or "
-                                   "a map over two sweep axes at one energy.")
+    p = sub.add_parser("plot", help="plot the stored conductance of a result file",
+                       description="The stored conductance G(mu, T) in 2e^2/h: against energy without a sweep "
+                                   "axis; against the swept parameter at one energy for one axis (--over-energy: "
+                                   "a map over energy and the parameter); for two or more axes the map "
+                                   "G(p1, p2) at one energy and temperature, first parameter on x.  Lines are "
+                                   "drawn at every stored temperature, maps at the lowest unless --temperature "
+                                   "picks one.")
     p.add_argument("result", help="HDF5 result file")
     p.add_argument("--out", metavar="PNG", help="output file (default: the result file with .png)")
     p.add_argument("--lead-out", help="receiving lead (default: the second lead)")
     p.add_argument("--lead-in", help="sending lead (default: the first lead)")
-    p.add_argument("--energy", type=float, metavar="MEV", help="energy for maps over two sweep axes")
+    p.add_argument("--energy", type=float, metavar="MEV",
+                   help="chemical potential of cuts over sweep parameters, within the stored energies (default: "
+                        "the Fermi energy when the file has one, else the middle of the grid)")
+    p.add_argument("--temperature", type=float, metavar="K",
+                   help="one stored temperature (default: all for lines, the lowest for maps)")
+    p.add_argument("--over-energy", action="store_true", help="plot against energy instead of the parameters")
     p.set_defaults(func=_cmd_plot)
 
     p = sub.add_parser("export", help="write a stored quantity to a CSV file",
