@@ -14,7 +14,7 @@ import numpy as np
 
 __all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result",
            "plot_gate_potential", "plot_width_track", "plot_track_on_map", "plot_bic_plane", "plot_fano_collapse",
-           "DEVICE_SITES_SHOWN"]
+           "plot_spectrum", "plot_waveguide_field", "DEVICE_SITES_SHOWN"]
 
 _LEAD_COLOURS = ("tab:red", "tab:blue", "tab:green", "tab:purple", "tab:orange", "tab:brown")
 
@@ -802,3 +802,50 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     axes[1].set_ylabel("resonance width Γ (meV)")
     axes[1].legend(fontsize="small", frameon=False)
     return fig, axes
+
+
+def plot_spectrum(spectrum, *, cutoffs_GHz=(), ax=None, title: str | None = None):
+    """Power transmission, reflection and absorption of a waveguide against frequency (GHz).
+
+    Parameters
+    ----------
+    spectrum : rgftrans.photonic.Spectrum
+    cutoffs_GHz : sequence of float
+        Port cutoff frequencies to mark (dash-dot lines) where they fall in the band.
+
+    Returns
+    -------
+    fig, ax
+    """
+    fig, ax = _axes(ax)
+    f = spectrum.frequencies_GHz
+    names = spectrum.port_names
+    ax.plot(f, spectrum.transmission[:, 1, 0], lw=1.2, label=f"transmitted, {names[0]} → {names[1]}")
+    ax.plot(f, spectrum.transmission[:, 0, 0], lw=1.0, ls="--", label=f"reflected at {names[0]}")
+    if np.abs(spectrum.absorption).max() > 1e-9:
+        ax.plot(f, spectrum.absorption[:, 0], lw=1.0, ls=":", label="absorbed")
+    marked = False
+    for fc in cutoffs_GHz:
+        if f[0] <= fc <= f[-1]:
+            ax.axvline(fc, color="0.6", lw=0.8, ls="-.", label=None if marked else "port cutoff")
+            marked = True
+    ax.set_xlabel("frequency (GHz)")
+    ax.set_ylabel("power fraction (1)")
+    ax.set_xlim(f[0], f[-1])
+    if title:
+        ax.set_title(_wrap(title, 60), fontsize="medium")
+    ax.legend(frameon=False, fontsize="small")
+    return fig, ax
+
+
+def plot_waveguide_field(model, magnitude, *, label: str, title: str | None = None, ax=None):
+    """``|E_z|`` over a waveguide grid: positions in the waveguide's own length unit (mm or µm).
+
+    Parameters
+    ----------
+    model : rgftrans.photonic.PhotonicModel
+    magnitude : (n_nodes,) float ndarray
+    label : str
+        Colour-bar label with its unit, e.g. ``"|E_z| / incident peak (1)"``.
+    """
+    return plot_map(model.model, magnitude, label=label, cmap="inferno", title=title, length_unit=model.unit, ax=ax)
