@@ -348,3 +348,45 @@ def test_command_line_plot_of_a_file_without_points(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err == f"rgftrans: error: no completed sweep point in {path}; run `rgftrans run CONFIG` first\n"
     assert not (tmp_path / "g.png").exists()
+
+
+# --- the waveguide: its own units ----------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def waveguide():
+    from rgftrans.photonic import Dielectric, Port, Waveguide
+    from rgftrans.geometry import disk
+
+    # Invented 20 mm x 8 mm guide with a dielectric puck; cutoff of the first mode c / (2 * 8 mm) = 18.7 GHz.
+    guide = Waveguide(rectangle(0, 0, 20, 8), [Port("inlet", "left", (0, 8)), Port("outlet", "right", (0, 8))],
+                      spacing=0.5, unit="mm", dielectrics=[Dielectric(disk((10, 4), 2), 4.0, name="puck")])
+    pm = guide.discretise()
+    return pm, pm.spectrum(np.linspace(19.0, 24.0, 11))
+
+
+def test_waveguide_spectrum_and_field_say_GHz_and_mm(waveguide, figure_dir):
+    from rgftrans.plots import plot_spectrum, plot_waveguide_field
+
+    pm, spectrum = waveguide
+    fig, ax = plot_spectrum(spectrum, cutoffs_GHz=pm.cutoffs_GHz(0, 2))
+    fig.savefig(figure_dir / "waveguide_spectrum.png", dpi=100, bbox_inches="tight")
+    _assert_physical_labels(fig)
+    assert ax.get_xlabel() == "frequency (GHz)"
+    assert not any("meV" in label for label in _labels(fig))
+    fm = pm.field_map(21.0, 0, 0)
+    fig, ax = plot_waveguide_field(pm, np.abs(fm.field), label="|E_z| / incident peak (1)")
+    _assert_physical_labels(fig)
+    assert (ax.get_xlabel(), ax.get_ylabel()) == ("x position (mm)", "y position (mm)")
+    assert not any("nm" in label or "meV" in label for label in _labels(fig))
+
+
+def test_waveguide_result_types_carry_frequency_fields():
+    import dataclasses
+
+    from rgftrans.photonic import DarkMode, SpectralLine, Spectrum
+    from rgftrans.waveguide_config import WaveguideRun
+
+    for cls in (Spectrum, SpectralLine, DarkMode, WaveguideRun):
+        names = [f.name for f in dataclasses.fields(cls)]
+        assert not any("meV" in n for n in names), (cls.__name__, names)
+    assert "frequency_GHz" in [f.name for f in dataclasses.fields(SpectralLine)]
+    assert "frequency_GHz" in [f.name for f in dataclasses.fields(DarkMode)]
