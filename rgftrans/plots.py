@@ -599,11 +599,12 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
             curves = g[:, k, :]
             notes.append(f"μ = {energies[k]:.4g} meV")
         for j, style in zip(t_idx, _LINE_STYLES * (len(t_idx) // len(_LINE_STYLES) + 1)):
-            ax.plot(x, curves[:, j], style, lw=1.3, color=_temperature_colour(j, len(temps)),
-                    label=f"{temps[j]:g} K")
+            ax.plot(x, curves[:, j], ls=style, marker="o" if len(x) < 30 else None, ms=3, lw=1.3,
+                    color=_temperature_colour(j, len(temps)), label=f"{temps[j]:g} K")
+        top = np.nanmax(curves[:, t_idx]) if np.isfinite(curves[:, t_idx]).any() else 1.0
         ax.set_xlabel(xlabel)
         ax.set_ylabel(CONDUCTANCE_LABEL)
-        ax.set_ylim(bottom=0)
+        ax.set_ylim(0, 1.12 * top if top > 0 else 1.0)  # headroom for the legend
         ax.set_xlim(np.nanmin(x), np.nanmax(x))
         ax.legend(title="temperature", fontsize="small", frameon=False)
         _siemens_axis(ax)
