@@ -268,10 +268,11 @@ def _cmd_plot(args) -> int:
     matplotlib.use("Agg")
     from .plots import plot_result
 
-    fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy)
+    fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy,
+                         temperature=args.temperature, over_energy=args.over_energy)
     out = Path(args.out or Path(args.result).with_suffix(".png"))
     out.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(out, dpi=150)
+    fig.savefig(out, dpi=150, bbox_inches="tight")
     print(f"wrote {out}")
     return EXIT_OK
 
@@ -508,9 +509,66 @@ def _cmd_compare(args) -> int:
 
 
 def _cmd_waveguide(args) -> int:
-    from .waveguide_config import run_waveguide
+    import matplotlib
+    import numpy as np
 
-    return run_waveguide(args.config, out_prefix=args.out_prefix, output=args.output, quiet=args.quiet)
+    matplotlib.use("Agg")
+    from ._figure_style import format_value, parameter_name
+    from .plots import plot_bic_plane, plot_spectrum, plot_waveguide_field
+    from .waveguide_config import load_waveguide, parameter_units, run_waveguide, write_waveguide
+
+    say = (lambda *a: None) if args.quiet else print
+    cfg, _ = load_waveguide(args.config)  # validate before any work
+    run = run_waveguide(args.config)
+    pm, spectrum = run.model, run.spectrum
+    freqs = spectrum.frequencies_GHz
+    say(f"{args.config}: {pm.model.n_sites} grid nodes, spacing {pm.spacing} {pm.unit}; "
+        + "; ".join(f"port {lead.name!r} cutoffs " + ", ".join(f"{f:.4g}" for f in pm.cutoffs_GHz(k, 2)) + " GHz"
+                    for k, lead in enumerate(pm.model.leads)))
+    t = spectrum.transmission[:, 1, 0]
+    say(f"  T from {spectrum.port_names[0]!r} to {spectrum.port_names[1]!r}: {len(freqs)} frequencies "
+        f"{freqs[0]:g}-{freqs[-1]:g} GHz, T between {t.min():.3g} and {t.max():.3g}; "
+        f"max absorption {spectrum.absorption.max():.3g}")
+    prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    cutoffs = [f for k in range(min(2, len(spectrum.port_names))) for f in pm.cutoffs_GHz(k, 3)]
+    fig, _ = plot_spectrum(spectrum, cutoffs_GHz=cutoffs, title=f"grid {pm.spacing:g} {pm.unit}")
+    fig.savefig(f"{prefix}_spectrum.png", dpi=150, bbox_inches="tight")
+    if run.sharpest is not None:
+        res, fm = run.sharpest, run.field_map
+        line = min(run.lines, key=lambda x: x.width_GHz)
+        say(f"  sharpest line in T(f) near {line.frequency_GHz:.5g} GHz: pole at {res.frequency_GHz:.6g} GHz, "
+            f"Q = {res.q_factor:.4g}; field enhancement {fm.enhancement:.3g} x the incident peak")
+        fig, _ = plot_waveguide_field(pm, np.abs(fm.field), label="|E_z| / incident peak (1)",
+                                      title=f"|E_z| at {res.frequency_GHz:.5g} GHz (Q = {res.q_factor:.3g}), "
+                                            f"from port {spectrum.port_names[0]!r}")
+        fig.savefig(f"{prefix}_field.png", dpi=150, bbox_inches="tight")
+    if run.search is not None:
+        s = run.search
+        (n1, v1), (n2, v2) = cfg.axes()
+        units = parameter_units(s.names, pm.unit)
+        say(f"  dark-state search over {parameter_name(n1)} x {parameter_name(n2)} ({len(v1)} x {len(v2)}): "
+            f"{run.seeds} cavity mode(s) in the band where each port has one mode")
+        for k, mode in enumerate(run.dark_modes):
+            p1, p2 = (format_value(v, u) for v, u in zip(mode.parameter, units))
+            say(f"  BIC {k} ({mode.kind}) at {parameter_name(n1)} = {p1}, {parameter_name(n2)} = {p2}: "
+                f"f = {mode.frequency_GHz:.7g} GHz, {mode.orders_of_magnitude:.1f} decades below the width one "
+                f"grid step away, width ~ |p - p*|^{mode.exponent:.2f}")
+            say("    Q one grid step away (+p1, -p1, +p2, -p2): " + ", ".join(f"{q:.3g}" for q in mode.nearby_q))
+        if not run.dark_modes:
+            say("  no BIC in this plane (no cell where both port couplings vanish together); widen the ranges")
+        else:
+            fig, _ = plot_bic_plane(s, units=units,
+                                    state_text=lambda lam: f"f = {float(pm.frequency_GHz(max(lam, 0.0))):.6g} GHz")
+            fig.savefig(f"{prefix}_plane.png", dpi=150, bbox_inches="tight")
+            mode = run.dark_modes[0]
+            fig, _ = plot_waveguide_field(mode.model, mode.mode_field, label="|E_z| / its maximum (1)",
+                                          title=f"dark mode at {mode.frequency_GHz:.6g} GHz")
+            fig.savefig(f"{prefix}_dark_mode.png", dpi=150, bbox_inches="tight")
+    target = Path(args.output or (cfg.output.path if cfg.output else f"{prefix}.h5"))
+    write_waveguide(run, target)
+    say(f"  written: {target}; figures {prefix}_*.png")
+    return EXIT_OK
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -544,14 +602,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("result", help="HDF5 result file")
     p.set_defaults(func=_cmd_info)
 
-    p = sub.add_parser("plot", help="plot conductance from a result file",
-                       description="Conductance lines (no sweep axis), a map over one sweep axis and energy, or "
-                                   "a map over two sweep axes at one energy.")
+    p = sub.add_parser("plot", help="plot the stored conductance of a result file",
+                       description="The stored conductance G(mu, T) in 2e^2/h: against energy without a sweep "
+                                   "axis; against the swept parameter at one energy for one axis (--over-energy: "
+                                   "a map over energy and the parameter); for two or more axes the map "
+                                   "G(p1, p2) at one energy and temperature, first parameter on x.  Lines are "
+                                   "drawn at every stored temperature, maps at the lowest unless --temperature "
+                                   "picks one.")
     p.add_argument("result", help="HDF5 result file")
     p.add_argument("--out", metavar="PNG", help="output file (default: the result file with .png)")
     p.add_argument("--lead-out", help="receiving lead (default: the second lead)")
     p.add_argument("--lead-in", help="sending lead (default: the first lead)")
-    p.add_argument("--energy", type=float, metavar="MEV", help="energy for maps over two sweep axes")
+    p.add_argument("--energy", type=float, metavar="MEV",
+                   help="chemical potential of cuts over sweep parameters, within the stored energies (default: "
+                        "the Fermi energy when the file has one, else the middle of the grid)")
+    p.add_argument("--temperature", type=float, metavar="K",
+                   help="one stored temperature (default: all for lines, the lowest for maps)")
+    p.add_argument("--over-energy", action="store_true", help="plot against energy instead of the parameters")
     p.set_defaults(func=_cmd_plot)
 
     p = sub.add_parser("export", help="write a stored quantity to a CSV file",

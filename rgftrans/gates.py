@@ -34,8 +34,8 @@ axis-aligned rectangle with exactly four corners.  A :class:`GateLayout`
 (gates plus the 2DEG depth) is the object a device uses: it is callable as
 ``U(x, y)`` in meV, so ``Device(..., potential=layout)`` works, and
 :meth:`GateLayout.with_voltages` makes the copies a gate sweep needs.
-:func:`gates_from_gds` reads the gates from a GDSII layout and
-:func:`plot_gate_potential` draws the map.
+:func:`gates_from_gds` reads the gates from a GDSII layout;
+:func:`rgftrans.plots.plot_gate_potential` draws the map.
 
 All lengths are in nm, voltages in V, potentials in V, energies in meV.
 
@@ -83,7 +83,6 @@ __all__ = [
     "GateLayout",
     "gate_potential",
     "gates_from_gds",
-    "plot_gate_potential",
     "POLYGON_METHODS",
     "solid_angle_polygon",
     "solid_angle_rectangle",
@@ -875,73 +874,3 @@ def gates_from_gds(path: str | os.PathLike, *, layers: Mapping[int, str] | list[
             parts.append(Region(outline))
         gates.append(Gate(name, union(*parts), voltages[name]))
     return GateLayout(tuple(gates), d)
-
-
-# --- plot ----------------------------------------------------------------------------------------
-
-
-def plot_gate_potential(layout: GateLayout, *, extent_nm: tuple[float, float, float, float], ax=None,
-                        resolution: int = 200, cmap: str = "RdBu_r"):
-    """Colour map of the electron potential energy U (meV) with the gate outlines.
-
-    Parameters
-    ----------
-    layout : GateLayout
-    extent_nm : (4,) tuple of float, nm, keyword-only
-        ``(xmin, ymin, xmax, ymax)`` of the window, the order of
-        :attr:`Region.bounds`.
-    ax : matplotlib Axes, optional
-        Axes to draw into; a new figure by default.
-    resolution : int, keyword-only
-        Grid points along each axis (>= 2).
-    cmap : str, keyword-only
-        Colour map; diverging by default, centred on U = 0 (blue attracts
-        electrons, red repels them).
-
-    Returns
-    -------
-    fig, ax : matplotlib Figure and Axes
-    """
-    import matplotlib.pyplot as plt
-    from matplotlib.colors import CenteredNorm
-
-    if not isinstance(layout, GateLayout):
-        raise GeometryError(f"layout must be a GateLayout, got {type(layout).__name__}; build one with GateLayout(gates, depth_nm)")
-    try:
-        xmin, ymin, xmax, ymax = (float(v) for v in extent_nm)
-    except (TypeError, ValueError):
-        raise GeometryError(f"extent_nm must be (xmin, ymin, xmax, ymax) in nm, got {extent_nm!r}; pass four numbers") from None
-    if not (xmin < xmax and ymin < ymax) or not all(map(math.isfinite, (xmin, ymin, xmax, ymax))):
-        raise GeometryError(
-            f"extent_nm must be finite with xmin < xmax and ymin < ymax, got {extent_nm!r}; "
-            "order it (xmin, ymin, xmax, ymax)"
-        )
-    if isinstance(resolution, bool) or not isinstance(resolution, (int, np.integer)) or resolution < 2:
-        raise GeometryError(f"resolution must be an integer >= 2, got {resolution!r}; e.g. 200")
-
-    if ax is None:
-        fig, ax = plt.subplots(figsize=(6, 4.5), layout="constrained")
-    else:
-        fig = ax.figure
-    xs = np.linspace(xmin, xmax, int(resolution))
-    ys = np.linspace(ymin, ymax, int(resolution))
-    gx, gy = np.meshgrid(xs, ys)
-    energy = layout.potential_energy_meV(gx, gy)
-    mesh = ax.pcolormesh(xs, ys, energy, shading="auto", cmap=cmap, norm=CenteredNorm(vcenter=0.0))
-    fig.colorbar(mesh, ax=ax, label="potential energy U (meV)", shrink=0.85)
-    for gate in layout.gates:
-        for part in shapely.get_parts(gate.shape.geometry):
-            for ring in (part.exterior, *part.interiors):
-                rx, ry = np.asarray(ring.coords).T
-                ax.plot(rx, ry, color="k", lw=1.0)
-        label_at = gate.shape.geometry.representative_point()
-        if xmin <= label_at.x <= xmax and ymin <= label_at.y <= ymax:
-            ax.annotate(f"{gate.name}\n{gate.voltage:+.3g} V", (label_at.x, label_at.y), ha="center",
-                        va="center", fontsize="small")
-    ax.set_xlim(xmin, xmax)
-    ax.set_ylim(ymin, ymax)
-    ax.set_aspect("equal")
-    ax.set_xlabel("x (nm)")
-    ax.set_ylabel("y (nm)")
-    ax.set_title(f"gates over a 2DEG at depth {layout.depth_nm:g} nm", fontsize="medium")
-    return fig, ax

@@ -49,7 +49,7 @@ from .geometry import Region
 from .lattices import square
 
 __all__ = ["LENGTH_UNITS", "Dielectric", "Port", "Waveguide", "PhotonicModel", "Spectrum", "FieldMap",
-           "PhotonicResonance", "MIN_POINTS_PER_WAVELENGTH"]
+           "PhotonicResonance", "SpectralLine", "DarkMode", "MIN_POINTS_PER_WAVELENGTH"]
 
 #: Metres per length unit.
 LENGTH_UNITS = {"mm": 1e-3, "um": 1e-6}
@@ -246,6 +246,70 @@ class PhotonicResonance:
     lam: complex
 
 
+@dataclass(frozen=True)
+class SpectralLine:
+    """A line seen in T(f): a Fano profile fitted over frequency.
+
+    Attributes
+    ----------
+    frequency_GHz, width_GHz : float
+        Centre and full width of the line.
+    q_factor : float
+        ``frequency / width``.
+    fano_q : float
+        Fano asymmetry parameter (dimensionless).
+    """
+
+    frequency_GHz: float
+    width_GHz: float
+    q_factor: float
+    fano_q: float
+
+
+@dataclass(frozen=True, eq=False)
+class DarkMode:
+    """A bound state in the continuum of a waveguide, found over a plane of two dielectric parameters.
+
+    Attributes
+    ----------
+    parameter : (2,) float
+        The two search parameters at the BIC (their own units: permittivity 1, shifts in the waveguide's unit).
+    names : (str, str)
+        Their parameter paths (``dielectric.<name>.permittivity`` / ``shift_x`` / ``shift_y``).
+    frequency_GHz : float
+        Frequency of the dark mode.
+    lam : float
+        The same as ``(k0 a)^2`` (dimensionless), the engine's energy variable.
+    width_GHz : float
+        Width of the pole found there (zero to round-off at a BIC).
+    orders_of_magnitude : float
+        ``log10`` of (typical width one grid step away / width at the BIC).
+    exponent : float
+        Power of ``width ~ |p - p*|^n`` (2 at a BIC).
+    nearby_q : (4,) float
+        Q factors (``f / width``) one grid step away (+p1, -p1, +p2, -p2).
+    kind, explanation : str
+        ``"accidental"`` or ``"symmetry-protected"``, and why it is dark, in words.
+    mode_field : (n_nodes,) float
+        ``|E_z|`` of the mode normalised to its maximum, on the grid of the waveguide rebuilt at ``parameter``.
+    model : PhotonicModel
+        That rebuilt waveguide.
+    """
+
+    parameter: np.ndarray
+    names: tuple
+    frequency_GHz: float
+    lam: float
+    width_GHz: float
+    orders_of_magnitude: float
+    exponent: float
+    nearby_q: np.ndarray
+    kind: str
+    explanation: str
+    mode_field: np.ndarray = field(repr=False)
+    model: "PhotonicModel" = field(repr=False)
+
+
 @dataclass(frozen=True, eq=False)
 class PhotonicModel:
     """The gridded waveguide: a tight-binding model in ``lambda = (k0 a)^2`` plus what converts it back."""
@@ -269,6 +333,11 @@ class PhotonicModel:
     def frequency_GHz(self, lam):
         """Inverse of :meth:`lam` (complex lambda gives a complex frequency)."""
         return const.c * np.sqrt(np.asarray(lam)) / (2 * np.pi * self.spacing_m) / 1e9
+
+    def width_GHz(self, lam, width_lam):
+        """A width in lambda (dimensionless) as a width in frequency: ``df = f dlambda / (2 lambda)``."""
+        lam = np.asarray(lam, dtype=float)
+        return self.frequency_GHz(lam) * np.asarray(width_lam, dtype=float) / (2 * lam)
 
     @property
     def loss_tangent(self) -> np.ndarray:

@@ -40,6 +40,8 @@ from __future__ import annotations
 import os
 import tomllib
 from pathlib import Path
+from dataclasses import dataclass
+from dataclasses import field as dc_field
 from typing import Annotated, Literal
 
 import numpy as np
@@ -49,9 +51,11 @@ from pydantic import Field, PrivateAttr, ValidationError, model_validator
 
 from .config import ConfigError, Pair, _one_shape, _problem, _Table, _toml_message, _translate
 from .geometry import Region
-from .photonic import Dielectric, Port, Waveguide
+from .photonic import DarkMode, Dielectric, FieldMap, PhotonicModel, PhotonicResonance, Port, SpectralLine, \
+    Spectrum, Waveguide
 
-__all__ = ["WaveguideConfig", "load_waveguide", "parse_waveguide", "is_waveguide_config", "run_waveguide"]
+__all__ = ["WaveguideConfig", "WaveguideRun", "load_waveguide", "parse_waveguide", "is_waveguide_config",
+           "run_waveguide", "write_waveguide"]
 
 class _Shape(_Table):
     rectangle: Annotated[list[float], Field(min_length=4, max_length=4)] | None = None
@@ -225,107 +229,81 @@ def load_waveguide(path) -> tuple[WaveguideConfig, str]:
     return parse_waveguide(text, source=str(file)), text
 
 
-def _write_h5(path: Path, text: str, pm, spectrum, search=None) -> None:
-    """Everything into one HDF5 file, written beside the target and renamed over it (never half-written)."""
-    import h5py
+@dataclass(frozen=True, eq=False)
+class WaveguideRun:
+    """Everything ``rgftrans waveguide CONFIG`` computes, in frequency and length units (GHz, the waveguide's unit).
 
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".partial")
-    with h5py.File(tmp, "w") as f:
-        f.attrs["format"] = "rgftrans-waveguide"
-        f.create_dataset("config", data=text)
-        g = f.create_group("waveguide")
-        g.attrs["ports"] = " ".join(spectrum.port_names)
-        g.attrs["spacing"], g.attrs["unit"] = pm.spacing, pm.unit
-        freq = g.create_dataset("frequency", data=spectrum.frequencies_GHz)
-        freq.attrs["units"], freq.attrs["long_name"] = "GHz", "frequency"
-        freq.make_scale("frequency")
-        for key, data, units, long in (
-                ("transmission", spectrum.transmission, "1",
-                 "power transmission [frequency, port_out, port_in]; diagonal: reflection"),
-                ("n_open", spectrum.n_open, "1", "propagating modes of each port"),
-                ("absorption", spectrum.absorption, "1", "absorbed fraction per input port: N - sum_out T")):
-            ds = g.create_dataset(key, data=data)
-            ds.attrs["units"], ds.attrs["long_name"] = units, long
-            ds.dims[0].attach_scale(freq)
-        for k, name in enumerate(spectrum.port_names):
-            ds = g.create_dataset(f"cutoffs/{name}", data=pm.cutoffs_GHz(k, 4))
-            ds.attrs["units"], ds.attrs["long_name"] = "GHz", f"cutoff frequencies of port {name} on this grid"
-    if search is not None:
-        from .bic2d import write_grid_search
+    Attributes
+    ----------
+    config_text : str
+    model : PhotonicModel
+    spectrum : Spectrum
+        Power transmission, reflection and absorption over ``frequencies_GHz``.
+    lines : list of SpectralLine
+        Lines fitted in T(f) from the first port into the second.
+    sharpest : PhotonicResonance or None
+        The pole behind the narrowest line (lossless waveguides only).
+    field_map : FieldMap or None
+        ``E_z`` at that pole's frequency, sent in from the first port.
+    search : GridSearch or None
+        The plane search (its energies are lambda = (k0 a)^2, dimensionless; use ``dark_modes`` for frequencies).
+    seeds : int
+        Cavity modes followed over the plane.
+    dark_modes : list of DarkMode
+    """
 
-        write_grid_search(search, tmp, group="waveguide/darkstates")
-    os.replace(tmp, path)
+    config_text: str
+    model: PhotonicModel
+    spectrum: Spectrum
+    lines: list
+    sharpest: PhotonicResonance | None = None
+    field_map: FieldMap | None = None
+    search: object = None
+    seeds: int = 0
+    dark_modes: list = dc_field(default_factory=list)
 
 
-def run_waveguide(config_path, *, out_prefix=None, output=None, quiet=False) -> int:
-    """``rgftrans waveguide CONFIG``: spectrum, field map at the sharpest resonance, dark-state search."""
-    import matplotlib
+def run_waveguide(config_path) -> WaveguideRun:
+    """Compute what ``rgftrans waveguide CONFIG`` reports: spectrum, field at the sharpest line, dark modes.
 
-    matplotlib.use("Agg")
+    Nothing is printed, drawn or written here (the command line does that);
+    a line narrower than three frequency steps is reported as a ResolutionWarning.
+    """
+    import warnings
+
     from .darkstates import find_resonances
     from .errors import ResolutionWarning
-    from .plots import plot_bic_plane, plot_map
 
-    say = (lambda *a: None) if quiet else print
     cfg, text = load_waveguide(config_path)
     freqs = cfg.frequencies_GHz()
     pm = cfg.build().discretise()
-    say(f"{config_path}: {pm.model.n_sites} grid nodes, spacing {pm.spacing} {pm.unit}; "
-        + "; ".join(f"port {lead.name!r} cutoffs " + ", ".join(f"{f:.4g}" for f in pm.cutoffs_GHz(k, 2)) + " GHz"
-                    for k, lead in enumerate(pm.model.leads)))
     spectrum = pm.spectrum(freqs)
     t = spectrum.transmission[:, 1, 0]
-    say(f"  T from {spectrum.port_names[0]!r} to {spectrum.port_names[1]!r}: {len(freqs)} frequencies "
-        f"{freqs[0]:g}-{freqs[-1]:g} GHz, T between {t.min():.3g} and {t.max():.3g}; "
-        f"max absorption {spectrum.absorption.max():.3g}")
-    prefix = Path(out_prefix or Path(config_path).with_suffix(""))
-    prefix.parent.mkdir(parents=True, exist_ok=True)
-    fig, ax = _plot_spectrum(pm, spectrum)
-    fig.savefig(f"{prefix}_spectrum.png", dpi=150)
-    import warnings
-
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ResolutionWarning)
-        lines = find_resonances(freqs, t)
+        fits = find_resonances(freqs, t)  # unit-agnostic: its "energies" are frequencies here
+    lines = [SpectralLine(frequency_GHz=fit.energy_meV, width_GHz=fit.width_meV,
+                          q_factor=fit.energy_meV / fit.width_meV if fit.width_meV > 0 else np.inf, fano_q=fit.q)
+             for fit in fits]
+    sharpest = field_map = None
     if lines and not pm.is_lossy:
-        sharp = min(lines, key=lambda fit: fit.width_meV)
-        res = min(pm.resonances(sharp.energy_meV, count=3), key=lambda r: abs(r.frequency_GHz - sharp.energy_meV))
+        line = min(lines, key=lambda x: x.width_GHz)
+        sharpest = min(pm.resonances(line.frequency_GHz, count=3), key=lambda r: abs(r.frequency_GHz - line.frequency_GHz))
         spacing = float(np.median(np.diff(freqs)))
-        if res.width_GHz < 3 * spacing:
-            warnings.warn(f"the line at {res.frequency_GHz:.6g} GHz is {res.width_GHz:.2g} GHz wide but the frequency "
-                          f"grid spacing is {spacing:.2g} GHz: T(f) does not resolve it (its Q comes from the pole); "
-                          "add points around it to see its shape", ResolutionWarning, stacklevel=2)
-        fm = pm.field_map(res.frequency_GHz, 0, 0)
-        say(f"  sharpest line in T(f) near {sharp.energy_meV:.5g} GHz: pole at {res.frequency_GHz:.6g} GHz, "
-            f"Q = {res.q_factor:.4g}; field enhancement {fm.enhancement:.3g} x the incident peak")
-        fig, ax = plot_map(pm.model, np.abs(fm.field), label="|E_z| / incident peak", cmap="inferno",
-                           title=f"|E_z| at {res.frequency_GHz:.5g} GHz (Q = {res.q_factor:.3g}), "
-                                 f"from port {spectrum.port_names[0]!r}")
-        ax.set_xlabel(f"x ({pm.unit})")
-        ax.set_ylabel(f"y ({pm.unit})")
-        fig.savefig(f"{prefix}_field.png", dpi=150)
-    search = None
+        if sharpest.width_GHz < 3 * spacing:
+            warnings.warn(f"the line at {sharpest.frequency_GHz:.6g} GHz is {sharpest.width_GHz:.2g} GHz wide but the "
+                          f"frequency grid spacing is {spacing:.2g} GHz: T(f) does not resolve it (its Q comes from "
+                          "the pole); add points around it to see its shape", ResolutionWarning, stacklevel=2)
+        field_map = pm.field_map(sharpest.frequency_GHz, 0, 0)
+    search, seeds, dark = None, 0, []
     if cfg.search is not None:
-        search = _search(cfg, pm, freqs, say)
-        if search.bics:
-            fig, _ = plot_bic_plane(search)
-            fig.savefig(f"{prefix}_plane.png", dpi=150)
-            bic = search.bics[0]
-            pmb = cfg.build(dict(zip(search.names, bic.parameter))).discretise()
-            e_z = bic.state / np.sqrt(pmb.permittivity.real)
-            fig, ax = plot_map(pmb.model, np.abs(e_z) / np.abs(e_z).max(), label="|E_z| (normalised)",
-                               cmap="inferno", title=f"dark mode at {float(pm.frequency_GHz(bic.energy_meV)):.6g} GHz")
-            ax.set_xlabel(f"x ({pm.unit})")
-            ax.set_ylabel(f"y ({pm.unit})")
-            fig.savefig(f"{prefix}_dark_mode.png", dpi=150)
-    target = Path(output or (cfg.output.path if cfg.output else f"{prefix}.h5"))
-    _write_h5(target, text, pm, spectrum, search)
-    say(f"  written: {target}; figures {prefix}_*.png")
-    return 0
+        search, seeds = _search(cfg, pm, freqs)
+        dark = [_dark_mode(cfg, pm, search, bic) for bic in search.bics]
+    return WaveguideRun(config_text=text, model=pm, spectrum=spectrum, lines=lines, sharpest=sharpest,
+                        field_map=field_map, search=search, seeds=seeds, dark_modes=dark)
 
 
-def _search(cfg, pm, freqs, say):
+def _search(cfg, pm, freqs):
     from .bic2d import plane_seeds, search_grid
 
     (n1, v1), (n2, v2) = cfg.axes()
@@ -335,37 +313,94 @@ def _search(cfg, pm, freqs, say):
 
     centre = cfg.build({n1: v1[len(v1) // 2], n2: v2[len(v2) // 2]}).discretise()
     seeds = plane_seeds(centre.model, float(pm.lam(freqs[0])), float(pm.lam(freqs[-1])))
-    say(f"  dark-state search over {n1} x {n2} ({len(v1)} x {len(v2)}): {len(seeds)} cavity mode(s) in the band "
-        "where each port has one mode")
-    search = search_grid(build, v1, v2, seeds, names=(n1, n2))
-    for k, bic in enumerate(search.bics):
-        f_bic = float(pm.frequency_GHz(bic.energy_meV))
-        say(f"  BIC {k} ({bic.kind}) at {n1} = {bic.parameter[0]:.8g}, {n2} = {bic.parameter[1]:.8g}: "
-            f"f = {f_bic:.7g} GHz, {bic.orders_of_magnitude:.1f} decades below the width one grid step away, "
-            f"Gamma ~ |p - p*|^{bic.exponent:.2f}")
-        say("    Q one grid step away (+p1, -p1, +p2, -p2): " + ", ".join(f"{2 * q:.3g}" for q in bic.nearby_q))
-    if not search.bics:
-        say("  no BIC in this plane (no cell where both port couplings vanish together); widen the ranges")
-    return search
+    return search_grid(build, v1, v2, seeds, names=(n1, n2)), len(seeds)
 
 
-def _plot_spectrum(pm, spectrum):
-    import matplotlib.pyplot as plt
+def _dark_mode(cfg, pm, search, bic) -> DarkMode:
+    """A BIC of the plane search in the waveguide's own units (GHz; Q of the frequency)."""
+    lam = float(bic.energy_meV)  # the engine's energy variable is lambda = (k0 a)^2 here
+    pmb = cfg.build(dict(zip(search.names, bic.parameter))).discretise()
+    e_z = np.abs(bic.state / np.sqrt(pmb.permittivity.real))
+    return DarkMode(parameter=np.asarray(bic.parameter, float), names=tuple(search.names),
+                    frequency_GHz=float(pm.frequency_GHz(lam)), lam=lam,
+                    width_GHz=float(pm.width_GHz(lam, bic.width_meV)),
+                    orders_of_magnitude=float(bic.orders_of_magnitude), exponent=float(bic.exponent),
+                    nearby_q=2 * np.asarray(bic.nearby_q, float),  # Q in f = 2 Q in lambda (f ~ sqrt(lambda))
+                    kind=bic.kind, explanation=bic.explanation, mode_field=e_z / e_z.max(), model=pmb)
 
-    fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
-    f = spectrum.frequencies_GHz
-    names = spectrum.port_names
-    ax.plot(f, spectrum.transmission[:, 1, 0], lw=1.2, label=f"T {names[0]} → {names[1]}")
-    ax.plot(f, spectrum.transmission[:, 0, 0], lw=1.0, ls="--", label=f"R at {names[0]}")
-    if np.abs(spectrum.absorption).max() > 1e-9:
-        ax.plot(f, spectrum.absorption[:, 0], lw=1.0, ls=":", label="absorbed")
-    for k, name in enumerate(names[:2]):
-        for fc in pm.cutoffs_GHz(k, 3):
-            if f[0] <= fc <= f[-1]:
-                ax.axvline(fc, color="0.6", lw=0.8, ls="-.")
-    ax.set_xlabel("frequency (GHz)")
-    ax.set_ylabel("power fraction")
-    ax.set_title(f"grid {pm.spacing:g} {pm.unit}; dash-dot lines: port cutoffs", fontsize="medium")
-    ax.legend(frameon=False, fontsize="small")
-    return fig, ax
 
+def parameter_units(names, unit: str) -> tuple[str, ...]:
+    """Units of waveguide search parameters: permittivity dimensionless, shifts in the waveguide's length unit."""
+    return tuple("1" if n.endswith("permittivity") else unit for n in names)
+
+
+def write_waveguide(run: WaveguideRun, path) -> None:
+    """Everything into one HDF5 file, written beside the target and renamed over it (never half-written).
+
+    Layout: ``/config`` (TOML text); ``/waveguide`` with ``frequency`` (GHz, dimension scale),
+    ``transmission``, ``n_open``, ``absorption`` and ``cutoffs/<port>`` (GHz); with a search,
+    ``/waveguide/darkstates`` with ``p1``, ``p2`` (their units), ``seed_frequency`` and ``frequency`` (GHz) of the
+    followed modes, the coupling ``residuals``, and per BIC ``bic_<k>/``: ``parameter``, ``frequency`` (GHz),
+    ``lam`` ((k0 a)^2), ``width`` (GHz), ``nearby_q``, ``orders_of_magnitude``, ``exponent``, ``state``.
+    """
+    import h5py
+
+    path = Path(path)
+    pm, spectrum = run.model, run.spectrum
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(path.name + ".partial")
+
+    def put(group, key, data, units, long_name):
+        ds = group.create_dataset(key, data=data)
+        ds.attrs["units"], ds.attrs["long_name"] = units, long_name
+        return ds
+
+    with h5py.File(tmp, "w") as f:
+        f.attrs["format"] = "rgftrans-waveguide"
+        f.create_dataset("config", data=run.config_text)
+        g = f.create_group("waveguide")
+        g.attrs["ports"] = " ".join(spectrum.port_names)
+        g.attrs["spacing"], g.attrs["unit"] = pm.spacing, pm.unit
+        freq = put(g, "frequency", spectrum.frequencies_GHz, "GHz", "frequency")
+        freq.make_scale("frequency")
+        for key, data, units, long in (
+                ("transmission", spectrum.transmission, "1",
+                 "power transmission [frequency, port_out, port_in]; diagonal: reflection"),
+                ("n_open", spectrum.n_open, "1", "propagating modes of each port"),
+                ("absorption", spectrum.absorption, "1", "absorbed fraction per input port: N - sum_out T")):
+            put(g, key, data, units, long).dims[0].attach_scale(freq)
+        for k, name in enumerate(spectrum.port_names):
+            put(g, f"cutoffs/{name}", pm.cutoffs_GHz(k, 4), "GHz", f"cutoff frequencies of port {name} on this grid")
+        if run.search is not None:
+            s = run.search
+            d = g.create_group("darkstates")
+            d.attrs["kind"] = "plane"
+            d.attrs["axes"] = " ".join(s.names)
+            d.attrs["long_name"] = "dark-mode (BIC) search over a plane of two dielectric parameters"
+            d.attrs["channels"] = " ".join(f"{lead}:{c}" for lead, c in s.channels)
+            u1, u2 = parameter_units(s.names, pm.unit)
+            put(d, "p1", s.p1, u1, f"search parameter {s.names[0]}")
+            put(d, "p2", s.p2, u2, f"search parameter {s.names[1]}")
+            put(d, "seed_frequency", pm.frequency_GHz(np.maximum(s.seeds_meV, 0.0)), "GHz",
+                "frequency of each followed cavity mode at the grid centre")
+            put(d, "frequency", pm.frequency_GHz(np.abs(s.energies_meV)), "GHz",
+                "self-consistent frequency of the followed mode (seed, p1, p2)")
+            put(d, "residuals", s.residuals, "1",
+                "signed unit-normalised coupling of the followed mode to each open channel (seed, p1, p2, channel)")
+            for i, (mode, seed) in enumerate(zip(run.dark_modes, s.seed_of_bic)):
+                b = d.create_group(f"bic_{i}")
+                for key, val, units, long in (
+                        ("parameter", mode.parameter, "", f"({s.names[0]}, {s.names[1]}) at the BIC"),
+                        ("frequency", mode.frequency_GHz, "GHz", "frequency of the dark mode"),
+                        ("lam", mode.lam, "1", "(k0 a)^2 of the dark mode"),
+                        ("width", mode.width_GHz, "GHz", "width of the pole at the BIC"),
+                        ("orders_of_magnitude", mode.orders_of_magnitude, "1",
+                         "log10(width one grid step away / width at the BIC)"),
+                        ("exponent", mode.exponent, "1", "n in width ~ |p - p*|^n"),
+                        ("nearby_q", mode.nearby_q, "1", "Q = f / width one grid step away (+p1, -p1, +p2, -p2)"),
+                        ("state", s.bics[i].state, "1", "the dark mode, phi = sqrt(eps) E_z, unit norm")):
+                    put(b, key, np.asarray(val, float), units, long)
+                b.attrs["kind"] = mode.kind
+                b.attrs["seed"] = int(seed)
+                b.attrs["explanation"] = mode.explanation
+    os.replace(tmp, path)

@@ -40,12 +40,11 @@ import numpy as np  # noqa: E402
 from rgftrans.device import Device, Lead  # noqa: E402
 from rgftrans.errors import RgftransError  # noqa: E402
 from rgftrans.config import load_config  # noqa: E402
-from rgftrans.gates import plot_gate_potential  # noqa: E402
 from rgftrans.geometry import disk, rectangle  # noqa: E402
 from rgftrans.lattices import square  # noqa: E402
 from rgftrans.local import bond_currents, local_quantities, scattering_states  # noqa: E402
 from rgftrans.materials import CONDUCTANCE_QUANTUM_S  # noqa: E402
-from rgftrans.plots import plot_currents, plot_device, plot_map, plot_transmission  # noqa: E402
+from rgftrans.plots import plot_currents, plot_device, plot_gate_potential, plot_map, plot_transmission  # noqa: E402
 from rgftrans.rgf import four_terminal_resistance, transmission, transmission_matrix  # noqa: E402
 from rgftrans.slicing import slice_layers  # noqa: E402
 from rgftrans.store import read_result  # noqa: E402

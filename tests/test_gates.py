@@ -24,7 +24,6 @@ from rgftrans.gates import (
     GateLayout,
     gate_potential,
     gates_from_gds,
-    plot_gate_potential,
     solid_angle_polygon,
 )
 from rgftrans.geometry import disk, polygon, rectangle
@@ -464,28 +463,3 @@ def test_unknown_polygon_method():
 # --- plot ----------------------------------------------------------------------------------------
 
 
-def test_plot_gate_potential():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    layout = split_gate_with_plunger()
-    fig, ax = plot_gate_potential(layout, extent_nm=(-400.0, -300.0, 400.0, 400.0), resolution=40)
-    try:
-        assert ax.get_xlabel() == "x (nm)" and ax.get_ylabel() == "y (nm)"
-        assert ax.get_aspect() == 1.0
-        assert ax.get_xlim() == (-400.0, 400.0)
-        colourbar_axes = [a for a in fig.axes if a is not ax]
-        assert len(colourbar_axes) == 1 and "meV" in colourbar_axes[0].get_ylabel()
-        mesh = ax.collections[0]
-        assert mesh.get_array().size == 40 * 40
-        assert len(ax.lines) == 3  # one outline per gate (none has holes)
-    finally:
-        plt.close(fig)
-
-
-def test_plot_rejects_bad_extent():
-    with pytest.raises(GeometryError) as error:
-        plot_gate_potential(split_gate_with_plunger(), extent_nm=(100.0, 0.0, -100.0, 50.0))
-    assert "xmin < xmax" in one_line(error)

@@ -190,8 +190,12 @@ def test_command_line_cavity_spectrum_field_and_bic(tmp_path, capsys):
         for b in bics:
             eps, shift = b["parameter"][()]
             model = cfg.build({"dielectric.puck.permittivity": eps, "dielectric.puck.shift_x": shift}).discretise()
-            pole = resonances(model.model, float(b["energy"][()]), count=1)[0]
+            assert b["frequency"].attrs["units"] == "GHz" and b["lam"].attrs["units"] == "1"
+            assert float(model.frequency_GHz(b["lam"][()])) == pytest.approx(float(b["frequency"][()]), rel=1e-12)
+            pole = resonances(model.model, float(b["lam"][()]), count=1)[0]  # the engine works in lambda
             assert abs(pole.width_meV) < 1e-12 * pole.energy_meV and pole.n_open == (1, 1)
+        units = {k: f["waveguide/darkstates"][k].attrs["units"] for k in ("p1", "p2", "frequency", "seed_frequency")}
+        assert units == {"p1": "1", "p2": "mm", "frequency": "GHz", "seed_frequency": "GHz"}
 
 
 @pytest.mark.parametrize("edit, fragment", [
