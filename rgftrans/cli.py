@@ -220,7 +220,7 @@ def _cmd_check(args) -> int:
         matplotlib.use("Agg")
         from .plots import plot_device
 
-        fig, ax = plot_device(model)
+        fig, ax = plot_device(model, device=device)
         ax.set_title(Path(args.config).name)
         Path(args.draw).parent.mkdir(parents=True, exist_ok=True)
         fig.savefig(args.draw, dpi=150)
