@@ -1260,7 +1260,7 @@ def _value_lines(fit: TraceFit) -> list:
 
 
 def plot_fit(fit: TraceFit, *, ax=None):
-    """Measured and modelled conductance against plunger gate voltage, residuals below.
+    """Measured and modelled conductance against gate voltage, residuals below.
 
     The fitted values with their standard errors (and the fixed ones) stand
     in a text box on the overlay.  A failed attempt (``fit.success`` False,
@@ -1321,7 +1321,13 @@ def plot_fit(fit: TraceFit, *, ax=None):
     bottom.axhspan(-fit.noise_S / G0_S, fit.noise_S / G0_S, color="tab:blue", alpha=0.15, lw=0, label="± σ")
     bottom.axhline(0.0, color="0.5", lw=0.8)
     bottom.plot(fit.gate_V * mv, fit.residuals_S / G0_S, ".", ms=3, color="tab:blue", label="measured − model")
-    bottom.set_xlabel("plunger gate voltage (mV)")
+    if fit.gate_axis:  # the sweep's own gate: its physical name ("plunger gate voltage (mV)")
+        from ._figure_style import axis_display
+
+        gate_label = axis_display(fit.gate_axis, "V", np.array([0.0, 1e-3]))[0]
+    else:
+        gate_label = "gate voltage (mV)"
+    bottom.set_xlabel(gate_label)
     bottom.set_ylabel("residual (2e²/h)")
     bottom.legend(loc="best", fontsize="small")
     if top is not bottom:

@@ -395,7 +395,7 @@ def test_plot_fit_labels(fits, given_ax):
     ax = plt.subplots()[1] if given_ax else None
     fig, (top, right, bottom) = plot_fit(fits["all four, sigma given"], ax=ax)
     assert "2e²/h" in top.get_ylabel() and "µS" in right.get_ylabel()
-    assert "plunger gate voltage (mV)" in bottom.get_xlabel() and "2e²/h" in bottom.get_ylabel()
+    assert "gate voltage (mV)" in bottom.get_xlabel() and "2e²/h" in bottom.get_ylabel()
     assert top.get_legend() is not None
     plt.close(fig)
 

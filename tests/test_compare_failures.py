@@ -236,7 +236,7 @@ def test_figure_shows_values_with_errors_and_units(sweep, trace):
     assert f"α = {fit.values['lever_arm']:.5g} ± {fit.stderr['lever_arm']:.2g} meV/V" in text
     assert f"V₀ = {fit.values['offset'] * 1e3:.5g} ± {fit.stderr['offset'] * 1e3:.2g} mV" in text
     assert "(fixed)" in text and "FAILED" not in text
-    assert bottom.get_xlabel() == "plunger gate voltage (mV)" and top.get_ylabel() == "conductance (2e²/h)"
+    assert bottom.get_xlabel() == "gate voltage (mV)" and top.get_ylabel() == "conductance (2e²/h)"
     # the axis is in mV: the plotted points are the gate voltages times 1000
     np.testing.assert_allclose(top.lines[0].get_xdata(), trace.gate_V * 1e3)
     plt.close(fig)
