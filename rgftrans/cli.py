@@ -285,15 +285,22 @@ def _cmd_darkstates(args) -> int:
     data = read_result(args.result)
     if len(data.axes) == 2:
         return _darkstates_plane(args, data)
-    search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis)
+    search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis, progress=not args.quiet)
     t = search.track
-    print(f"{args.result}: resonance followed along {search.axis_name} over {len(t.parameters)} values; width from "
-          f"{t.widths_meV.min():.3g} to {t.widths_meV.max():.3g} meV")
-    if not search.bics:
+    lo, hi = search.energy_window
+    widths = t.widths_meV[t.valid]
+    print(f"{args.result}: resonance followed along {search.axis_name} over {search.valid_points} of "
+          f"{len(t.parameters)} values (stored energies {lo:.6g}..{hi:.6g} meV); width from "
+          f"{widths.min():.3g} to {widths.max():.3g} meV")
+    for p, e in search.left_window:
+        print(f"  pole left the stored energies at p = {p:.9g} (Re z = {e:.6g} meV), following stopped")
+    inside = [loc for loc in search.bics if not loc.outside_stored_energies]
+    if not inside:
         print("  no width zero found along this axis (two conditions must be met in an asymmetric layout: "
               "try a second parameter, or give --energy near another resonance)")
     for loc, diag, q in zip(search.bics, search.diagnostics, search.nearby_q):
-        print(f"  BIC ({loc.kind}) at {search.axis_name} = {loc.parameter:.9g}, E = {loc.energy_meV:.6f} meV, "
+        label = "BIC" if not loc.outside_stored_energies else "UNCONFIRMED width zero OUTSIDE the stored energies"
+        print(f"  {label} ({loc.kind}) at {search.axis_name} = {loc.parameter:.9g}, E = {loc.energy_meV:.6f} meV, "
               f"width {loc.width_meV:.2e} meV ({loc.orders_of_magnitude:.1f} decades below {loc.typical_width_meV:.2e}),"
               f" Gamma ~ |p - p*|^{loc.exponent:.2f}")
         print(f"    Q nearby: {', '.join(f'{v:.3g}' for v in q)}")
@@ -305,14 +312,14 @@ def _cmd_darkstates(args) -> int:
     fig.savefig(f"{prefix}_width.png", dpi=150)
     fig, ax = plot_track_on_map(args.result, search)
     fig.savefig(f"{prefix}_track.png", dpi=150)
-    if search.bics and np.ndim(search.bics[0].parameter) == 0:
+    if inside and np.ndim(inside[0].parameter) == 0:
         from .config import parse_config
 
-        loc = search.bics[0]
+        loc = inside[0]
         cfg = parse_config(data.config_text)
         model = cfg.build_device({**cfg.base_point(), search.axis_name: float(loc.parameter)}).discretise()
         density = model.per_site(np.abs(loc.resonance.state) ** 2)
-        q_near = search.nearby_q[0][0]
+        q_near = search.nearby_q[search.bics.index(loc)][0]
         fig, ax = plot_map(model, density, label="|ψ|² (per site)",
                            title=f"dark state at E = {loc.energy_meV:.4f} meV; Q = {q_near:.3g} just beside it")
         fig.savefig(f"{prefix}_dark_state.png", dpi=150)
@@ -491,6 +498,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0; one-axis sweeps)")
     p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
     p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_darkstates)
 
     p = sub.add_parser("compare", help="fit a stored sweep to a measured conductance trace",
