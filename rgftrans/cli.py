@@ -335,30 +335,39 @@ def _darkstates_plane(args, data) -> int:
     from .plots import plot_bic_plane, plot_fano_collapse, plot_map
 
     stored = stored_plane_builder(args.result, data)
-    search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"),
-                                stored=stored)
+    search = search_sweep_plane(args.result, energy_guess=args.energy, report=lambda m: print(f"  {m}"),
+                                progress=not args.quiet, stored=stored)
     n1, n2 = search.names
+    total = len(search.p1) * len(search.p2)
+    inside = [b for b in search.bics if not b.outside_stored_energies]
+    outside = len(search.bics) - len(inside)
     print(f"{args.result}: {len(search.seeds_meV)} dot state(s) followed over {len(search.p1)} x {len(search.p2)} "
-          f"values of {n1}, {n2}; {search.candidates} candidate cell(s), {len(search.bics)} BIC(s) located")
-    if not search.bics:
+          f"values of {n1}, {n2} (computed at {', '.join(f'{v} of {total}' for v in search.valid_points)} grid "
+          f"points); {search.candidates} candidate cell(s), {len(inside)} BIC(s) located"
+          + (f", {outside} more OUTSIDE the stored energies (unconfirmed)" if outside else ""))
+    for note in search.notes:
+        print(f"  note: {note}")
+    if not inside:
         print("  no BIC in this plane: no cell where both couplings change sign together; widen the parameter "
               "ranges or give --energy near another state")
     for k, bic in enumerate(search.bics):
-        print(f"  BIC {k} ({bic.kind}) at {n1} = {bic.parameter[0]:.9g}, {n2} = {bic.parameter[1]:.9g}: "
+        label = f"BIC {k}" if not bic.outside_stored_energies else \
+            f"UNCONFIRMED candidate {k}, OUTSIDE the stored energies"
+        print(f"  {label} ({bic.kind}) at {n1} = {bic.parameter[0]:.9g}, {n2} = {bic.parameter[1]:.9g}: "
               f"E = {bic.energy_meV:.6f} meV, open channels {bic.n_open}, width {abs(bic.width_meV):.1e} meV "
               f"({bic.orders_of_magnitude:.1f} decades below {bic.typical_width_meV:.2e} meV one grid step away), "
               f"Gamma ~ |p - p*|^{bic.exponent:.2f}")
         print(f"    Q one grid step away (+{n1}, -{n1}, +{n2}, -{n2}): "
               + ", ".join(f"{q:.3g}" for q in bic.nearby_q))
         print(f"    why: {bic.explanation}")
-    write_grid_search(search, args.save or args.result)
+    write_grid_search(search, args.save or args.result, parameter_units=tuple(a.units for a in data.axes))
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
     fig, _ = plot_bic_plane(search)
     fig.savefig(f"{prefix}_plane.png", dpi=150)
-    if search.bics:
+    if inside:
         build = stored[1]
-        bic = search.bics[0]
+        bic = inside[0]
         step = float(np.median(np.diff(search.p1)))
         fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)
         fig.savefig(f"{prefix}_fano_collapse.png", dpi=150)

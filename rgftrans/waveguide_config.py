@@ -254,7 +254,9 @@ def _write_h5(path: Path, text: str, pm, spectrum, search=None) -> None:
     if search is not None:
         from .bic2d import write_grid_search
 
-        write_grid_search(search, tmp, group="waveguide/darkstates")
+        write_grid_search(search, tmp, group="waveguide/darkstates", energy_units="1",
+                          energy_name="eigenvalue lambda = (k0 a)^2",
+                          parameter_units=tuple("1" if n.endswith("permittivity") else pm.unit for n in search.names))
     os.replace(tmp, path)
 
 
@@ -307,7 +309,7 @@ def run_waveguide(config_path, *, out_prefix=None, output=None, quiet=False) -> 
         fig.savefig(f"{prefix}_field.png", dpi=150)
     search = None
     if cfg.search is not None:
-        search = _search(cfg, pm, freqs, say)
+        search = _search(cfg, pm, freqs, say, progress=not quiet)
         if search.bics:
             fig, _ = plot_bic_plane(search)
             fig.savefig(f"{prefix}_plane.png", dpi=150)
@@ -325,7 +327,7 @@ def run_waveguide(config_path, *, out_prefix=None, output=None, quiet=False) -> 
     return 0
 
 
-def _search(cfg, pm, freqs, say):
+def _search(cfg, pm, freqs, say, progress=True):
     from .bic2d import plane_seeds, search_grid
 
     (n1, v1), (n2, v2) = cfg.axes()
@@ -337,7 +339,7 @@ def _search(cfg, pm, freqs, say):
     seeds = plane_seeds(centre.model, float(pm.lam(freqs[0])), float(pm.lam(freqs[-1])))
     say(f"  dark-state search over {n1} x {n2} ({len(v1)} x {len(v2)}): {len(seeds)} cavity mode(s) in the band "
         "where each port has one mode")
-    search = search_grid(build, v1, v2, seeds, names=(n1, n2))
+    search = search_grid(build, v1, v2, seeds, names=(n1, n2), progress=progress)
     for k, bic in enumerate(search.bics):
         f_bic = float(pm.frequency_GHz(bic.energy_meV))
         say(f"  BIC {k} ({bic.kind}) at {n1} = {bic.parameter[0]:.8g}, {n2} = {bic.parameter[1]:.8g}: "
