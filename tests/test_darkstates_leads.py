@@ -311,3 +311,19 @@ def test_progress_bar_on_stderr_unless_quiet(shifted_levels, tmp_path, capsys, m
     captured = capsys.readouterr()
     assert ("following the pole" in captured.err) is not quiet
     assert "following the pole" not in captured.out  # the bar never goes to standard output
+
+
+def test_plane_writer_takes_the_units_from_the_caller(tmp_path):
+    """A waveguide's eigenvalue lambda = (k0 a)^2 is dimensionless and its parameters are a permittivity and a length:
+    the writer labels them as the caller says, and meV only by default (electronic devices)."""
+    p = np.linspace(0.2, 0.5, 4)
+    g = search_grid(two_levels, p, p, [E_STAR_2D + 0.05], progress=False)
+    write_grid_search(g, tmp_path / "a.h5")
+    write_grid_search(g, tmp_path / "b.h5", energy_units="1", energy_name="eigenvalue lambda = (k0 a)^2",
+                      parameter_units=("1", "mm"))
+    with h5py.File(tmp_path / "a.h5", "r") as fa, h5py.File(tmp_path / "b.h5", "r") as fb:
+        assert fa["darkstates/energy"].attrs["units"] == "meV" and fa["darkstates/seed_energy"].attrs["units"] == "meV"
+        for key in ("energy", "seed_energy"):
+            assert fb[f"darkstates/{key}"].attrs["units"] == "1"
+            assert "lambda" in fb[f"darkstates/{key}"].attrs["long_name"]
+        assert fb["darkstates/p1"].attrs["units"] == "1" and fb["darkstates/p2"].attrs["units"] == "mm"
