@@ -276,6 +276,8 @@ def _cmd_darkstates(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
+    from dataclasses import replace
+
     import numpy as np
 
     from .darkstates import search_sweep, write_search
@@ -308,9 +310,13 @@ def _cmd_darkstates(args) -> int:
     write_search(search, args.save or args.result)
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
-    fig, ax = plot_width_track(search)
+    # The figures mark only BICs inside the stored energies (flagged ones are in the text and the file).
+    keep = [k for k, loc in enumerate(search.bics) if not loc.outside_stored_energies]
+    shown = replace(search, bics=[search.bics[k] for k in keep], diagnostics=[search.diagnostics[k] for k in keep],
+                    nearby_q=[search.nearby_q[k] for k in keep])
+    fig, ax = plot_width_track(shown)
     fig.savefig(f"{prefix}_width.png", dpi=150)
-    fig, ax = plot_track_on_map(args.result, search)
+    fig, ax = plot_track_on_map(args.result, shown)
     fig.savefig(f"{prefix}_track.png", dpi=150)
     if inside and np.ndim(inside[0].parameter) == 0:
         from .config import parse_config
@@ -329,6 +335,8 @@ def _cmd_darkstates(args) -> int:
 
 def _darkstates_plane(args, data) -> int:
     """The dark-state search over a stored sweep of two parameters (an accidental BIC needs two)."""
+    from dataclasses import replace
+
     import numpy as np
 
     from .bic2d import stored_plane_builder, search_sweep_plane, write_grid_search
@@ -363,7 +371,8 @@ def _darkstates_plane(args, data) -> int:
     write_grid_search(search, args.save or args.result, parameter_units=tuple(a.units for a in data.axes))
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
-    fig, _ = plot_bic_plane(search)
+    keep = [k for k, b in enumerate(search.bics) if not b.outside_stored_energies]  # figures: inside ones only
+    fig, _ = plot_bic_plane(replace(search, bics=inside, seed_of_bic=[search.seed_of_bic[k] for k in keep]))
     fig.savefig(f"{prefix}_plane.png", dpi=150)
     if inside:
         build = stored[1]
@@ -500,8 +509,10 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Along one sweep axis: follow the narrowest resonance, locate where its width "
                                    "vanishes and explain why.  Over two sweep axes: follow every dot state of the "
                                    "energy window over the plane and locate the points where its couplings to both "
-                                   "leads vanish together (accidental BICs).  The search is stored in the file and "
-                                   "drawn.")
+                                   "leads vanish together (accidental BICs); this needs one open channel per lead, "
+                                   "read from the stored channel counts.  Poles are followed only inside the stored "
+                                   "energies; a find outside them is flagged as unconfirmed.  The search is stored "
+                                   "in the file and drawn.")
     p.add_argument("result", help="HDF5 result file of a sweep")
     p.add_argument("--energy", type=float, metavar="MEV", help="start near this resonance energy")
     p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0; one-axis sweeps)")

@@ -12,7 +12,7 @@ import pytest
 from rgftrans.bic2d import search_grid, single_channel_energies, write_grid_search
 from rgftrans.cli import main
 from rgftrans.darkstates import track_resonance
-from rgftrans.errors import RgftransError, SearchFailed
+from rgftrans.errors import SearchFailed
 from rgftrans.store import read_result
 
 from test_bic2d import E_STAR as E_STAR_2D, KAPPA_STAR as KAPPA_STAR_2D, V_AR_STAR, two_levels
