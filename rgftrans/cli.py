@@ -297,7 +297,10 @@ def _cmd_darkstates(args) -> int:
     for p, e in search.left_window:
         print(f"  pole left the stored energies at p = {p:.9g} (Re z = {e:.6g} meV), following stopped")
     inside = [loc for loc in search.bics if not loc.outside_stored_energies]
-    if not inside:
+    if len(inside) < len(search.bics):
+        print("  a width zero below lies OUTSIDE the stored energies and is unconfirmed: rerun the sweep with an "
+              "energy window around it to confirm")
+    elif not inside:
         print("  no width zero found along this axis (two conditions must be met in an asymmetric layout: "
               "try a second parameter, or give --energy near another resonance)")
     for loc, diag, q in zip(search.bics, search.diagnostics, search.nearby_q):
@@ -355,7 +358,10 @@ def _darkstates_plane(args, data) -> int:
           + (f", {outside} more OUTSIDE the stored energies (unconfirmed)" if outside else ""))
     for note in search.notes:
         print(f"  note: {note}")
-    if not inside:
+    if outside:
+        print(f"  {'no BIC' if not inside else 'no other BIC'} inside the stored energies; the unconfirmed "
+              "candidate(s) below lie outside them: rerun the sweep with an energy window around them to confirm")
+    elif not inside:
         print("  no BIC in this plane: no cell where both couplings change sign together; widen the parameter "
               "ranges or give --energy near another state")
     for k, bic in enumerate(search.bics):

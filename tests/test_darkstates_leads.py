@@ -188,6 +188,22 @@ def test_bic_outside_the_stored_energies_is_flagged(tmp_path):
         assert bool(f["darkstates/bic_0"].attrs["outside_stored_energies"])
 
 
+def test_bic_outside_the_stored_energies_is_flagged_by_the_command(tmp_path, capsys):
+    """The plane of test_bic2d holds a BIC near 0.589 meV reached from the dot state near 0.616 meV; stored only from
+    0.60 meV up, the state starts inside the stored energies and its BIC lies outside: reported as unconfirmed,
+    never as an ordinary BIC, and stored with the flag."""
+    path = _run(tmp_path, "upper", PLANE.format(e0=0.60, e1=0.98, n_e=20, n_p=5, path="{path}"))
+    capsys.readouterr()
+    assert main(["darkstates", str(path), "--energy", "0.61617", "--quiet", "--out-prefix", str(tmp_path / "ds")]) == 0
+    out = capsys.readouterr().out
+    assert "0 BIC(s) located, 1 more OUTSIDE the stored energies (unconfirmed)" in out
+    assert "UNCONFIRMED candidate 0, OUTSIDE the stored energies" in out and "BIC 0 (" not in out
+    with h5py.File(path, "r") as f:
+        b = f["darkstates/bic_0"]
+        assert bool(b.attrs["outside_stored_energies"]) and float(b["energy"][()]) < 0.60
+        assert list(f["darkstates"].attrs["stored_energy_window"]) == pytest.approx([0.60, 0.98])
+
+
 def test_track_stops_where_the_pole_leaves_the_window():
     """side_coupled (test_darkstates): the narrow pole moves down in energy as kappa grows; a window whose lower edge
     lies between two of its values stops the track there, the rest not computed."""
