@@ -26,20 +26,21 @@ are those around which the residual vector winds once about the origin.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.linalg as sla
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from .darkstates import DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, follow_pole
+from .darkstates import (DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, _inside, _stored_points, follow_pole,
+                         progress_bar, stored_energy_window)
 from .device import TightBindingModel
-from .errors import RgftransError
+from .errors import RgftransError, SearchFailed
 from .rgf import lead_self_energies
 
 __all__ = ["CouplingResiduals", "coupling_residuals", "Bic2D", "locate_bic_2d", "explain", "GridSearch", "search_grid",
-           "plane_seeds", "search_sweep_plane", "stored_plane_builder", "write_grid_search"]
+           "plane_seeds", "search_sweep_plane", "stored_plane_builder", "single_channel_energies", "write_grid_search"]
 
 #: Self-consistency of E: stop when it moves less than this fraction of the energy scale.
 ENERGY_TOL = 1e-13
@@ -226,6 +227,9 @@ class Bic2D:
         Why the state is dark, in words.
     state : (n_orbitals,) float
         The dark state (real, unit norm).
+    outside_stored_energies : bool
+        The BIC lies outside the stored energies of the sweep it was searched in
+        (not confirmed by anything stored; set by the grid searches).
     """
 
     parameter: np.ndarray
@@ -241,6 +245,7 @@ class Bic2D:
     solves: int
     explanation: str
     state: np.ndarray = field(repr=False)
+    outside_stored_energies: bool = False
 
 
 def _newton(build, x0, step, energy, reference, rtol, max_solves):
@@ -374,14 +379,20 @@ class GridSearch:
         Starting energy of each followed state (at the grid's start point).
     residuals : (n_seeds, n1, n2, 2) float
         Signed couplings (signs consistent along the following path); NaN where
-        the state was not two-channel or could not be followed.
+        the state was not two-channel or could not be followed (not computed).
     energies_meV : (n_seeds, n1, n2) float
+        NaN where not computed.
     channels : tuple of (str, int)
         Channel of each residual.
     bics : list of Bic2D
+        Located BICs; those outside ``energy_window`` carry ``outside_stored_energies``.
     seed_of_bic : list of int
     candidates : int
         Grid cells around which the residual vector winds once (each refined by Newton's method).
+    energy_window : (float, float) or None
+        The stored energies (meV, or the caller's energy unit) the search was asked about.
+    notes : tuple of str
+        What the search left out or could not check, in words (e.g. energies with several open channels).
     """
 
     names: tuple
@@ -394,6 +405,13 @@ class GridSearch:
     bics: list
     seed_of_bic: list
     candidates: int
+    energy_window: tuple | None = None
+    notes: tuple = ()
+
+    @property
+    def valid_points(self) -> np.ndarray:
+        """(n_seeds,) int: grid points where each state's two residuals were computed (NaN points do not count)."""
+        return np.isfinite(self.residuals).all(axis=-1).sum(axis=(1, 2))
 
 
 def _walk(n1: int, n2: int, start: tuple[int, int]):
@@ -426,7 +444,8 @@ def _winding(corners: np.ndarray) -> float:
 
 def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, energy_guesses, *,
                 names=("p1", "p2"), start: tuple[int, int] | None = None, rtol: float = 1e-6,
-                progress: Callable[[str], None] | None = None) -> GridSearch:
+                report: Callable[[str], None] | None = None, progress: bool = True,
+                energy_window: tuple[float, float] | None = None) -> GridSearch:
     """Follow states over a grid of two parameters, find the cells holding a BIC and refine each.
 
     Parameters
@@ -437,6 +456,16 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
         One state is followed per energy (meV), starting at grid point ``start`` (default: the centre).
     rtol : float
         Relative precision of the refined parameters.
+    report : callable (str), optional
+        Receives a one-line summary per followed state and per BIC (the caller prints them).
+    progress : bool
+        A progress bar on standard error for searches longer than PROGRESS_DELAY_S.
+    energy_window : (lo, hi), optional
+        The energies the caller has data for (a stored sweep): a BIC outside
+        them is flagged ``outside_stored_energies``.
+
+    A grid point counts as computed only where the state was followed and has
+    exactly two finite residuals; elsewhere the residuals are NaN.
     """
     p1, p2 = np.asarray(p1, float), np.asarray(p2, float)
     n1, n2 = len(p1), len(p2)
@@ -448,55 +477,69 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
     e_all = np.full((len(seeds), n1, n2), np.nan)
     step = np.array([np.median(np.diff(p1)), np.median(np.diff(p2))])
     bics, seed_of, candidates, channels = [], [], 0, ()
-    for s, seed in enumerate(seeds):
-        states = {}
-        for (i, j), prev in _walk(n1, n2, start):
-            energy, ref = (seed, None) if prev is None else states.get(prev, (seed, None))[:2]
-            try:
-                r = coupling_residuals(build(p1[i], p2[j]), energy, reference=ref)
-            except RgftransError:
-                continue
-            if ref is not None and r.overlap < MIN_OVERLAP:
-                continue  # identity lost: NaN here; points beyond restart from the seed energy (new signs,
-                # so cells that mix the two are refused by the overlap test below)
-            states[i, j] = (r.energy_meV, r.state, r)
-            e_all[s, i, j] = r.energy_meV
-            if len(r.residuals) == 2:
-                res_all[s, i, j] = r.residuals
-                channels = r.channels
-        if progress:
-            progress(f"state from {seed:.5g} meV followed over {len(states)} of {n1 * n2} grid points")
-        for i in range(n1 - 1):
-            for j in range(n2 - 1):
-                cell = [(i, j), (i + 1, j), (i + 1, j + 1), (i, j + 1)]
-                if not all(c in states for c in cell) or np.isnan(res_all[s, i:i + 2, j:j + 2]).any():
-                    continue
-                base = states[i, j][1]
-                dots = np.array([base @ states[c][1] for c in cell])
-                if np.abs(dots).min() < MIN_OVERLAP:
-                    continue
-                corners = np.array([np.sign(d) * res_all[s][c] for d, c in zip(dots, cell)])
-                if abs(_winding(corners)) < 0.5:
-                    continue
-                candidates += 1
-                centre = np.array([(p1[i] + p1[i + 1]) / 2, (p2[j] + p2[j + 1]) / 2])
+    bar = progress_bar(len(seeds) * n1 * n2, "following dot states", "point", progress)
+    try:
+        for s, seed in enumerate(seeds):
+            states = {}
+            for (i, j), prev in _walk(n1, n2, start):
+                bar.update()
+                energy, ref = (seed, None) if prev is None else states.get(prev, (seed, None))[:2]
                 try:
-                    bic = locate_bic_2d(build, centre, step, float(np.mean(e_all[s, i:i + 2, j:j + 2])),
-                                        rtol=rtol, reference=base)
-                except RgftransError:
+                    r = coupling_residuals(build(p1[i], p2[j]), energy, reference=ref)
+                except (RgftransError, np.linalg.LinAlgError, spla.ArpackNoConvergence, spla.ArpackError):
                     continue
-                inside = np.all(np.abs(bic.parameter - centre) <= 1.5 * np.abs(step))
-                same = any(np.all(np.abs(b.parameter - bic.parameter) <= 1e-3 * np.abs(step)) and
-                           abs(b.energy_meV - bic.energy_meV) < 1e-6 * build(*bic.parameter).energy_scale
-                           for b in bics)
-                if inside and not same:
-                    bics.append(bic)
-                    seed_of.append(s)
-                    if progress:
-                        progress(f"BIC at {names[0]} = {bic.parameter[0]:.9g}, {names[1]} = {bic.parameter[1]:.9g},"
-                                 f" E = {bic.energy_meV:.6f} meV")
+                if ref is not None and r.overlap < MIN_OVERLAP:
+                    continue  # identity lost: NaN here; points beyond restart from the seed energy (new signs,
+                    # so cells that mix the two are refused by the overlap test below)
+                if not np.isfinite(r.energy_meV):
+                    continue
+                states[i, j] = (r.energy_meV, r.state, r)
+                e_all[s, i, j] = r.energy_meV
+                if len(r.residuals) == 2 and np.all(np.isfinite(r.residuals)):
+                    res_all[s, i, j] = r.residuals
+                    channels = r.channels
+            if report:
+                valid = int(np.isfinite(res_all[s]).all(axis=-1).sum())
+                report(f"state from {seed:.5g} meV followed over {valid} of {n1 * n2} grid points")
+            bar.set_description("refining BIC candidates")
+            for i in range(n1 - 1):
+                for j in range(n2 - 1):
+                    cell = [(i, j), (i + 1, j), (i + 1, j + 1), (i, j + 1)]
+                    if not all(c in states for c in cell) or np.isnan(res_all[s, i:i + 2, j:j + 2]).any():
+                        continue
+                    base = states[i, j][1]
+                    dots = np.array([base @ states[c][1] for c in cell])
+                    if np.abs(dots).min() < MIN_OVERLAP:
+                        continue
+                    corners = np.array([np.sign(d) * res_all[s][c] for d, c in zip(dots, cell)])
+                    if abs(_winding(corners)) < 0.5:
+                        continue
+                    candidates += 1
+                    centre = np.array([(p1[i] + p1[i + 1]) / 2, (p2[j] + p2[j + 1]) / 2])
+                    try:
+                        bic = locate_bic_2d(build, centre, step, float(np.mean(e_all[s, i:i + 2, j:j + 2])),
+                                            rtol=rtol, reference=base)
+                    except RgftransError:
+                        continue
+                    bic = replace(bic, outside_stored_energies=not _inside(bic.energy_meV, energy_window))
+                    inside = np.all(np.abs(bic.parameter - centre) <= 1.5 * np.abs(step))
+                    same = any(np.all(np.abs(b.parameter - bic.parameter) <= 1e-3 * np.abs(step)) and
+                               abs(b.energy_meV - bic.energy_meV) < 1e-6 * build(*bic.parameter).energy_scale
+                               for b in bics)
+                    if inside and not same:
+                        bics.append(bic)
+                        seed_of.append(s)
+                        if report:
+                            flag = (" -- OUTSIDE the stored energies, unconfirmed"
+                                    if bic.outside_stored_energies else "")
+                            report(f"BIC at {names[0]} = {bic.parameter[0]:.9g}, {names[1]} = "
+                                   f"{bic.parameter[1]:.9g}, E = {bic.energy_meV:.6f} meV{flag}")
+            bar.set_description("following dot states")
+    finally:
+        bar.close()
     return GridSearch(names=tuple(names), p1=p1, p2=p2, seeds_meV=seeds, residuals=res_all, energies_meV=e_all,
-                      channels=channels, bics=bics, seed_of_bic=seed_of, candidates=candidates)
+                      channels=channels, bics=bics, seed_of_bic=seed_of, candidates=candidates,
+                      energy_window=None if energy_window is None else tuple(float(e) for e in energy_window))
 
 
 def stored_plane_builder(path, data=None):
@@ -539,32 +582,153 @@ def plane_seeds(model: TightBindingModel, e_lo: float, e_hi: float) -> np.ndarra
     return np.array(keep)
 
 
+def single_channel_energies(data) -> np.ndarray:
+    """(n_E,) bool: stored energies at which every lead has exactly one open channel at every computed point.
+
+    ``data`` is a :class:`~rgftrans.store.ResultData` with the ``n_open``
+    quantity (open channels per lead, per point and energy, -1 where not written).
+    """
+    n_open = np.asarray(data.quantities["n_open"])
+    per = n_open[_stored_points(data, "n_open")]  # (n_points, n_E, n_leads)
+    if per.shape[0] == 0:
+        return np.zeros(len(data.energies_meV), bool)
+    return (per == 1).all(axis=(0, 2))
+
+
+def _energy_runs(energies: np.ndarray, mask: np.ndarray) -> str:
+    """The energies selected by ``mask`` as contiguous ranges of the stored grid, e.g. '0.4..0.98 meV'."""
+    runs, k = [], 0
+    while k < len(mask):
+        if mask[k]:
+            j = k
+            while j + 1 < len(mask) and mask[j + 1]:
+                j += 1
+            runs.append(f"{energies[k]:.4g}" if j == k else f"{energies[k]:.4g}..{energies[j]:.4g}")
+            k = j + 1
+        else:
+            k += 1
+    return ", ".join(runs) + " meV"
+
+
+def _channel_counts(per: np.ndarray, lead_names) -> str:
+    """Open channels of each lead over the given points and energies, e.g. '4 (lead L) and 3-4 (lead R)'."""
+    parts = []
+    for k, name in enumerate(lead_names):
+        vals = per[..., k][per[..., k] >= 0]
+        lo, hi = (int(vals.min()), int(vals.max())) if vals.size else (-1, -1)
+        parts.append(f"{lo if lo == hi else f'{lo}-{hi}'} (lead {name})")
+    return ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]
+
+
+def _check_channels(path, data, energy_guess):
+    """Refuse a stored window without one open channel per lead (RgftransError); return the energies to search
+    (a (n_E,) bool mask) and notes on what was left out."""
+    e = np.asarray(data.energies_meV, float)
+    lo, hi = stored_energy_window(data)
+    names = tuple(data.lead_names)
+    if len(names) != 2:
+        raise RgftransError(f"{path}: the two-parameter search needs two leads with one open channel each; this "
+                            f"sweep has {len(names)} lead(s) ({', '.join(names)}); use the search along one axis")
+    if "n_open" not in data.quantities:
+        return np.ones(len(e), bool), ("the file stores no open-channel counts: the channel count is checked "
+                                       "only while following",)
+    per = np.asarray(data.quantities["n_open"])[_stored_points(data, "n_open")]
+    one = single_channel_energies(data)
+    which = (f"the stored energies {_energy_runs(e, one)} have one" if one.any() else
+             "no stored energy has one (sweep energies between the first and second channel thresholds of both "
+             "leads)")
+    need = "the two-parameter search needs one open channel per lead"
+    if energy_guess is not None:
+        if not lo <= energy_guess <= hi:
+            return one, (f"the start energy {energy_guess:.6g} meV is outside the stored energies {lo:.6g}..{hi:.6g}"
+                         " meV: its channel count is checked only while following, and BICs outside the stored "
+                         "energies are flagged",)
+        k = int(np.argmin(np.abs(e - energy_guess)))
+        if not one[k]:
+            raise RgftransError(f"{path}: {need}; at {e[k]:.6g} meV (the stored energy nearest --energy "
+                                f"{energy_guess:.6g}) the leads have {_channel_counts(per[:, k], names)}; {which}")
+        return one, ()
+    if not one.any():
+        raise RgftransError(f"{path}: {need}; the window {lo:.6g}..{hi:.6g} meV has {_channel_counts(per, names)}; "
+                            f"{which}")
+    if one.all():
+        return one, ()
+    many = ~one
+    return one, (f"the stored energies {_energy_runs(e, many)} have more than one open channel in some lead "
+                 f"({_channel_counts(per[:, many], names)}) and were left out; {which}",)
+
+
 def search_sweep_plane(path, *, energy_guess: float | None = None, rtol: float = 1e-6,
-                       progress: Callable[[str], None] | None = None, stored=None) -> GridSearch:
+                       report: Callable[[str], None] | None = None, progress: bool = True,
+                       stored=None) -> GridSearch:
     """Search a stored sweep over two parameters for accidental BICs.
 
-    Every closed-dot level inside the stored energy window (where both leads
-    have one open channel) at the centre of the grid is followed over the
-    grid (or only the one nearest ``energy_guess``); cells around which its
-    two coupling residuals wind once are refined with :func:`locate_bic_2d`.
-    ``stored`` is the result of :func:`stored_plane_builder` for ``path``, if the caller has it.
+    Every closed-dot level at the centre of the grid inside the stored
+    energies where both leads have one open channel (the stored ``n_open``,
+    at every computed point) is followed over the grid (or only the one
+    nearest ``energy_guess``); cells around which its two coupling residuals
+    wind once are refined with :func:`locate_bic_2d`.  ``stored`` is the
+    result of :func:`stored_plane_builder` for ``path``, if the caller has it;
+    ``report`` and ``progress`` as in :func:`search_grid`.
+
+    Raises
+    ------
+    RgftransError
+        Not two leads, or the stored window (or the stored energy nearest
+        ``energy_guess``) has more than one open channel in a lead: the message
+        gives the channel counts and the stored energies that have one.
+    SearchFailed
+        Nothing valid: no computed sweep point is stored, or no grid point gave
+        two computed residuals.
     """
     data, build, names, (p1, p2) = stored if stored is not None else stored_plane_builder(path)
+    key = "n_open" if "n_open" in data.quantities else "transmission"
+    if not _stored_points(data, key).any():
+        raise SearchFailed(f"{path}: no sweep point holds computed values (every stored {key} is missing or NaN); "
+                           "nothing to search -- run or resume the sweep first")
+    one, notes = _check_channels(path, data, energy_guess)
+    window = stored_energy_window(data)
     centre = build(p1[len(p1) // 2], p2[len(p2) // 2])
     if energy_guess is not None:
         seeds = np.array([float(energy_guess)])
     else:
-        seeds = plane_seeds(centre, float(data.energies_meV.min()), float(data.energies_meV.max()))
+        e = np.asarray(data.energies_meV, float)
+        seeds, k = [], 0
+        while k < len(one):  # each run of single-channel stored energies
+            if one[k]:
+                j = k
+                while j + 1 < len(one) and one[j + 1]:
+                    j += 1
+                seeds.extend(plane_seeds(centre, float(e[k]), float(e[j])))
+                k = j + 1
+            else:
+                k += 1
+        seeds = np.array(seeds)
         if seeds.size == 0:
             raise RgftransError(f"{path}: no dot level in the stored energy window has one open channel in each of "
                                 "the two leads; widen the window or give --energy")
-    if progress:
-        progress(f"following {len(seeds)} dot state(s) over the {len(p1)} x {len(p2)} grid of {names[0]}, {names[1]}")
-    return search_grid(build, p1, p2, seeds, names=names, rtol=rtol, progress=progress)
+    if report:
+        report(f"following {len(seeds)} dot state(s) over the {len(p1)} x {len(p2)} grid of {names[0]}, {names[1]}")
+    search = search_grid(build, p1, p2, seeds, names=names, rtol=rtol, report=report, progress=progress,
+                         energy_window=window)
+    if not search.valid_points.any():
+        raise SearchFailed(f"{path}: no grid point gave two computed coupling residuals for the {len(seeds)} "
+                           f"followed state(s) (every value NaN: the state was lost or not in a one-channel "
+                           "window); nothing found -- give --energy near another dot state")
+    return replace(search, notes=tuple(notes))
 
 
-def write_grid_search(search: GridSearch, path, *, group: str = "darkstates") -> None:
-    """Store a plane search in its own group of an HDF5 file (appending to a result file is fine)."""
+def write_grid_search(search: GridSearch, path, *, group: str = "darkstates", energy_units: str = "meV",
+                      energy_name: str = "energy", parameter_units: tuple[str, str] = ("", "")) -> None:
+    """Store a plane search in its own group of an HDF5 file (appending to a result file is fine).
+
+    ``energy_units`` and ``energy_name`` label the eigenvalue axis (energies,
+    widths) and ``parameter_units`` the two parameters; they come from the
+    caller: meV for an electronic device, ``"1"`` for the dimensionless
+    ``lambda = (k0 a)^2`` of a waveguide.  Residuals not computed are NaN;
+    ``valid_points`` (per seed) counts the rest.  A BIC outside the stored
+    energies has ``outside_stored_energies = True``.
+    """
     import h5py
 
     with h5py.File(path, "a") as f:
@@ -575,24 +739,36 @@ def write_grid_search(search: GridSearch, path, *, group: str = "darkstates") ->
         g.attrs["axes"] = " ".join(search.names)
         g.attrs["long_name"] = "dark-state (BIC) search over a plane of two sweep parameters"
         g.attrs["channels"] = " ".join(f"{lead}:{c}" for lead, c in search.channels)
+        if search.energy_window is not None:
+            g.attrs["stored_energy_window"] = np.asarray(search.energy_window, float)
+        g.attrs["notes"] = " | ".join(search.notes)
         for key, arr, units, long in (
-                ("p1", search.p1, "", f"sweep parameter {search.names[0]}"),
-                ("p2", search.p2, "", f"sweep parameter {search.names[1]}"),
-                ("seed_energy", search.seeds_meV, "meV", "energy of each followed dot state at the grid centre"),
+                ("p1", search.p1, parameter_units[0], f"sweep parameter {search.names[0]}"),
+                ("p2", search.p2, parameter_units[1], f"sweep parameter {search.names[1]}"),
+                ("seed_energy", search.seeds_meV, energy_units,
+                 f"{energy_name} of each followed dot state at the grid centre"),
                 ("residuals", search.residuals, "1",
-                 "signed unit-normalised coupling of the followed state to each open channel (seed, p1, p2, channel)"),
-                ("energy", search.energies_meV, "meV", "self-consistent energy of the followed state (seed, p1, p2)")):
+                 "signed unit-normalised coupling of the followed state to each open channel (seed, p1, p2, channel);"
+                 " NaN: not computed"),
+                ("valid_points", search.valid_points, "1", "grid points with computed residuals, per seed"),
+                ("energy", search.energies_meV, energy_units,
+                 f"self-consistent {energy_name} of the followed state (seed, p1, p2)")):
             ds = g.create_dataset(key, data=arr)
             ds.attrs["units"], ds.attrs["long_name"] = units, long
+        p_units = parameter_units[0] if parameter_units[0] == parameter_units[1] else ", ".join(parameter_units)
         for i, (bic, seed) in enumerate(zip(search.bics, search.seed_of_bic)):
             b = g.create_group(f"bic_{i}")
-            for key, val, units in (("parameter", bic.parameter, ""), ("energy", bic.energy_meV, "meV"),
-                                    ("width", bic.width_meV, "meV"), ("typical_width", bic.typical_width_meV, "meV"),
-                                    ("orders_of_magnitude", bic.orders_of_magnitude, "1"),
-                                    ("exponent", bic.exponent, "1"), ("nearby_q", bic.nearby_q, "1"),
-                                    ("residual", bic.residual, "1"), ("state", bic.state, "1")):
+            for key, val, units, long in (
+                    ("parameter", bic.parameter, p_units, f"({search.names[0]}, {search.names[1]})"),
+                    ("energy", bic.energy_meV, energy_units, energy_name),
+                    ("width", bic.width_meV, energy_units, f"pole width (in {energy_name})"),
+                    ("typical_width", bic.typical_width_meV, energy_units, "typical width one grid step away"),
+                    ("orders_of_magnitude", bic.orders_of_magnitude, "1", "orders of magnitude"),
+                    ("exponent", bic.exponent, "1", "exponent"), ("nearby_q", bic.nearby_q, "1", "nearby q"),
+                    ("residual", bic.residual, "1", "residual"), ("state", bic.state, "1", "state")):
                 ds = b.create_dataset(key, data=np.asarray(val, float))
-                ds.attrs["units"], ds.attrs["long_name"] = units, key.replace("_", " ")
+                ds.attrs["units"], ds.attrs["long_name"] = units, long
             b.attrs["kind"] = bic.kind
             b.attrs["seed"] = int(seed)
             b.attrs["explanation"] = bic.explanation
+            b.attrs["outside_stored_energies"] = bool(bic.outside_stored_energies)

@@ -340,6 +340,8 @@ def _cmd_darkstates(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
+    from dataclasses import replace
+
     import numpy as np
 
     from .darkstates import search_sweep, write_search
@@ -349,15 +351,25 @@ def _cmd_darkstates(args) -> int:
     data = read_result(args.result)
     if len(data.axes) == 2:
         return _darkstates_plane(args, data)
-    search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis)
+    search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis, progress=not args.quiet)
     t = search.track
-    print(f"{args.result}: resonance followed along {search.axis_name} over {len(t.parameters)} values; width from "
-          f"{t.widths_meV.min():.3g} to {t.widths_meV.max():.3g} meV")
-    if not search.bics:
+    lo, hi = search.energy_window
+    widths = t.widths_meV[t.valid]
+    print(f"{args.result}: resonance followed along {search.axis_name} over {search.valid_points} of "
+          f"{len(t.parameters)} values (stored energies {lo:.6g}..{hi:.6g} meV); width from "
+          f"{widths.min():.3g} to {widths.max():.3g} meV")
+    for p, e in search.left_window:
+        print(f"  pole left the stored energies at p = {p:.9g} (Re z = {e:.6g} meV), following stopped")
+    inside = [loc for loc in search.bics if not loc.outside_stored_energies]
+    if len(inside) < len(search.bics):
+        print("  a width zero below lies OUTSIDE the stored energies and is unconfirmed: rerun the sweep with an "
+              "energy window around it to confirm")
+    elif not inside:
         print("  no width zero found along this axis (two conditions must be met in an asymmetric layout: "
               "try a second parameter, or give --energy near another resonance)")
     for loc, diag, q in zip(search.bics, search.diagnostics, search.nearby_q):
-        print(f"  BIC ({loc.kind}) at {search.axis_name} = {loc.parameter:.9g}, E = {loc.energy_meV:.6f} meV, "
+        label = "BIC" if not loc.outside_stored_energies else "UNCONFIRMED width zero OUTSIDE the stored energies"
+        print(f"  {label} ({loc.kind}) at {search.axis_name} = {loc.parameter:.9g}, E = {loc.energy_meV:.6f} meV, "
               f"width {loc.width_meV:.2e} meV ({loc.orders_of_magnitude:.1f} decades below {loc.typical_width_meV:.2e}),"
               f" Gamma ~ |p - p*|^{loc.exponent:.2f}")
         print(f"    Q nearby: {', '.join(f'{v:.3g}' for v in q)}")
@@ -365,18 +377,22 @@ def _cmd_darkstates(args) -> int:
     write_search(search, args.save or args.result)
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
-    fig, ax = plot_width_track(search)
+    # The figures mark only BICs inside the stored energies (flagged ones are in the text and the file).
+    keep = [k for k, loc in enumerate(search.bics) if not loc.outside_stored_energies]
+    shown = replace(search, bics=[search.bics[k] for k in keep], diagnostics=[search.diagnostics[k] for k in keep],
+                    nearby_q=[search.nearby_q[k] for k in keep])
+    fig, ax = plot_width_track(shown)
     fig.savefig(f"{prefix}_width.png", dpi=150)
-    fig, ax = plot_track_on_map(args.result, search)
+    fig, ax = plot_track_on_map(args.result, shown)
     fig.savefig(f"{prefix}_track.png", dpi=150)
-    if search.bics and np.ndim(search.bics[0].parameter) == 0:
+    if inside and np.ndim(inside[0].parameter) == 0:
         from .config import parse_config
 
-        loc = search.bics[0]
+        loc = inside[0]
         cfg = parse_config(data.config_text)
         model = cfg.build_device({**cfg.base_point(), search.axis_name: float(loc.parameter)}).discretise()
         density = model.per_site(np.abs(loc.resonance.state) ** 2)
-        q_near = search.nearby_q[0][0]
+        q_near = search.nearby_q[search.bics.index(loc)][0]
         fig, ax = plot_map(model, density, label="|ψ|² (per site)",
                            title=f"dark state at E = {loc.energy_meV:.4f} meV; Q = {q_near:.3g} just beside it")
         fig.savefig(f"{prefix}_dark_state.png", dpi=150)
@@ -386,36 +402,51 @@ def _cmd_darkstates(args) -> int:
 
 def _darkstates_plane(args, data) -> int:
     """The dark-state search over a stored sweep of two parameters (an accidental BIC needs two)."""
+    from dataclasses import replace
+
     import numpy as np
 
     from .bic2d import stored_plane_builder, search_sweep_plane, write_grid_search
     from .plots import plot_bic_plane, plot_fano_collapse, plot_map
 
     stored = stored_plane_builder(args.result, data)
-    search = search_sweep_plane(args.result, energy_guess=args.energy, progress=lambda m: print(f"  {m}"),
-                                stored=stored)
+    search = search_sweep_plane(args.result, energy_guess=args.energy, report=lambda m: print(f"  {m}"),
+                                progress=not args.quiet, stored=stored)
     n1, n2 = search.names
+    total = len(search.p1) * len(search.p2)
+    inside = [b for b in search.bics if not b.outside_stored_energies]
+    outside = len(search.bics) - len(inside)
     print(f"{args.result}: {len(search.seeds_meV)} dot state(s) followed over {len(search.p1)} x {len(search.p2)} "
-          f"values of {n1}, {n2}; {search.candidates} candidate cell(s), {len(search.bics)} BIC(s) located")
-    if not search.bics:
+          f"values of {n1}, {n2} (computed at {', '.join(f'{v} of {total}' for v in search.valid_points)} grid "
+          f"points); {search.candidates} candidate cell(s), {len(inside)} BIC(s) located"
+          + (f", {outside} more OUTSIDE the stored energies (unconfirmed)" if outside else ""))
+    for note in search.notes:
+        print(f"  note: {note}")
+    if outside:
+        print(f"  {'no BIC' if not inside else 'no other BIC'} inside the stored energies; the unconfirmed "
+              "candidate(s) below lie outside them: rerun the sweep with an energy window around them to confirm")
+    elif not inside:
         print("  no BIC in this plane: no cell where both couplings change sign together; widen the parameter "
               "ranges or give --energy near another state")
     for k, bic in enumerate(search.bics):
-        print(f"  BIC {k} ({bic.kind}) at {n1} = {bic.parameter[0]:.9g}, {n2} = {bic.parameter[1]:.9g}: "
+        label = f"BIC {k}" if not bic.outside_stored_energies else \
+            f"UNCONFIRMED candidate {k}, OUTSIDE the stored energies"
+        print(f"  {label} ({bic.kind}) at {n1} = {bic.parameter[0]:.9g}, {n2} = {bic.parameter[1]:.9g}: "
               f"E = {bic.energy_meV:.6f} meV, open channels {bic.n_open}, width {abs(bic.width_meV):.1e} meV "
               f"({bic.orders_of_magnitude:.1f} decades below {bic.typical_width_meV:.2e} meV one grid step away), "
               f"Gamma ~ |p - p*|^{bic.exponent:.2f}")
         print(f"    Q one grid step away (+{n1}, -{n1}, +{n2}, -{n2}): "
               + ", ".join(f"{q:.3g}" for q in bic.nearby_q))
         print(f"    why: {bic.explanation}")
-    write_grid_search(search, args.save or args.result)
+    write_grid_search(search, args.save or args.result, parameter_units=tuple(a.units for a in data.axes))
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
-    fig, _ = plot_bic_plane(search)
+    keep = [k for k, b in enumerate(search.bics) if not b.outside_stored_energies]  # figures: inside ones only
+    fig, _ = plot_bic_plane(replace(search, bics=inside, seed_of_bic=[search.seed_of_bic[k] for k in keep]))
     fig.savefig(f"{prefix}_plane.png", dpi=150)
-    if search.bics:
+    if inside:
         build = stored[1]
-        bic = search.bics[0]
+        bic = inside[0]
         step = float(np.median(np.diff(search.p1)))
         fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)
         fig.savefig(f"{prefix}_fano_collapse.png", dpi=150)
@@ -519,7 +550,7 @@ def _cmd_waveguide(args) -> int:
 
     say = (lambda *a: None) if args.quiet else print
     cfg, _ = load_waveguide(args.config)  # validate before any work
-    run = run_waveguide(args.config)
+    run = run_waveguide(args.config, progress=not args.quiet)
     pm, spectrum = run.model, run.spectrum
     freqs = spectrum.frequencies_GHz
     say(f"{args.config}: {pm.model.n_sites} grid nodes, spacing {pm.spacing} {pm.unit}; "
@@ -642,13 +673,16 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Along one sweep axis: follow the narrowest resonance, locate where its width "
                                    "vanishes and explain why.  Over two sweep axes: follow every dot state of the "
                                    "energy window over the plane and locate the points where its couplings to both "
-                                   "leads vanish together (accidental BICs).  The search is stored in the file and "
-                                   "drawn.")
+                                   "leads vanish together (accidental BICs); this needs one open channel per lead, "
+                                   "read from the stored channel counts.  Poles are followed only inside the stored "
+                                   "energies; a find outside them is flagged as unconfirmed.  The search is stored "
+                                   "in the file and drawn.")
     p.add_argument("result", help="HDF5 result file of a sweep")
     p.add_argument("--energy", type=float, metavar="MEV", help="start near this resonance energy")
     p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0; one-axis sweeps)")
     p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
     p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_darkstates)
 
     p = sub.add_parser("compare", help="fit a stored sweep to a measured conductance trace",

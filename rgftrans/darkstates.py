@@ -28,9 +28,10 @@ Fano profiles: ``T(E) = a (q + eps)^2 / (1 + eps^2) + b`` with
 
 from __future__ import annotations
 
+import sys
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.linalg as sla
@@ -39,13 +40,13 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from .device import TightBindingModel
-from .errors import ResolutionWarning, RgftransError
+from .errors import ResolutionWarning, RgftransError, SearchFailed
 from .rgf import gamma_columns, lead_self_energies
 
 __all__ = [
     "Resonance", "effective_hamiltonian", "resonances", "CouplingDiagnostics", "coupling_diagnostics",
     "FanoFit", "fano_profile", "fit_fano", "find_resonances", "Track", "track_resonance", "BicLocation",
-    "locate_bic", "follow_pole",
+    "locate_bic", "follow_pole", "SweepSearch", "search_sweep", "write_search", "stored_energy_window",
 ]
 
 #: Below this many orbitals the poles come from a dense eigen-decomposition.
@@ -61,6 +62,21 @@ PROTECTED_WIDTH = 1e-12
 WIDTH_FLOOR = 1e-14
 #: Fewest grid points across a resonance's full width before a ResolutionWarning.
 MIN_POINTS_PER_WIDTH = 3
+#: A search's progress bar (standard error) appears only once it has run this long (s): short searches stay quiet.
+PROGRESS_DELAY_S = 3.0
+
+
+def progress_bar(total, desc: str, unit: str, enabled: bool):
+    """A tqdm bar on standard error that shows after PROGRESS_DELAY_S and vanishes when done (off if not enabled)."""
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=desc, unit=unit, disable=not enabled, file=sys.stderr, leave=False,
+                delay=PROGRESS_DELAY_S, dynamic_ncols=True)
+
+
+def _inside(energy: float, window) -> bool:
+    """Whether ``energy`` lies in the closed interval ``window`` (None: no window, everything is inside)."""
+    return window is None or (window[0] <= energy <= window[1])
 
 
 @dataclass(frozen=True, eq=False)
@@ -378,7 +394,11 @@ class Track:
     ----------
     parameters : (n,) float
     energies_meV, widths_meV, q_factors : (n,) float
+        NaN where the pole was not computed (following stopped, or the pole solve failed or did not converge).
     in_continuum : (n,) bool
+    stopped_at : tuple of (float, float)
+        ``(parameter, Re z)`` where the pole left the energy window and following stopped (at most one per
+        direction).
     """
 
     parameters: np.ndarray
@@ -386,6 +406,12 @@ class Track:
     widths_meV: np.ndarray
     q_factors: np.ndarray
     in_continuum: np.ndarray
+    stopped_at: tuple = ()
+
+    @property
+    def valid(self) -> np.ndarray:
+        """(n,) bool: where the pole was computed (finite energy and width)."""
+        return np.isfinite(self.widths_meV) & np.isfinite(self.energies_meV)
 
 
 def follow_pole(model: TightBindingModel, energy: float, state=None, count: int = 4) -> Resonance:
@@ -408,23 +434,56 @@ def _follow(build, p, energy, state=None, count=4):
     return follow_pole(build(p), energy, state, count)
 
 
-def track_resonance(build: Callable[[float], TightBindingModel], parameters, energy_guess: float) -> Track:
+#: Failures of one pole solve that leave that parameter value not computed (the track goes on).
+_SOLVE_FAILURES = (np.linalg.LinAlgError, spla.ArpackNoConvergence, spla.ArpackError, RgftransError)
+
+
+def track_resonance(build: Callable[[float], TightBindingModel], parameters, energy_guess: float, *,
+                    energy_window: tuple[float, float] | None = None,
+                    on_step: Callable[[], None] | None = None) -> Track:
     """Follow one resonance through a list of parameter values, keeping its identity across crossings.
 
     ``build(p)`` returns the model at parameter p.  Identity: the pole whose
     eigenvector overlaps most with the previous one (same geometry), else the
     nearest in energy.
+
+    Parameters
+    ----------
+    energy_window : (lo, hi) meV, optional
+        Stop following when ``Re z`` leaves it (e.g. the stored energies of a
+        sweep, outside which nothing is known about the channels or the data);
+        that value and the rest are left NaN, and the value with the pole's
+        ``Re z`` there is in ``stopped_at``.
+    on_step : callable, optional
+        Called once per parameter value (a progress bar).
+
+    A value whose pole solve fails or does not converge is NaN (not computed);
+    following goes on from the last computed pole.
     """
     ps = np.asarray(parameters, float)
-    res = []
+    n = len(ps)
+    energies, widths, qs = np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan)
+    cont = np.zeros(n, bool)
+    stopped = ()
     energy, state = energy_guess, None
-    for p in ps:
-        r = _follow(build, p, energy, state)
-        res.append(r)
+    for k, p in enumerate(ps):
+        try:
+            r = _follow(build, p, energy, state)
+        except _SOLVE_FAILURES:
+            r = None
+        if on_step is not None:
+            on_step()
+        if r is None or not np.isfinite(r.width_meV):
+            continue
+        if not _inside(r.energy_meV, energy_window):
+            stopped = ((float(p), float(r.energy_meV)),)
+            break
         energy, state = r.energy_meV, r.state
-    return Track(parameters=ps, energies_meV=np.array([r.energy_meV for r in res]),
-                 widths_meV=np.array([r.width_meV for r in res]), q_factors=np.array([r.q_factor for r in res]),
-                 in_continuum=np.array([r.in_continuum for r in res]))
+        if not r.converged:
+            continue  # followed on from, but not reported as computed
+        energies[k], widths[k], qs[k], cont[k] = r.energy_meV, r.width_meV, r.q_factor, r.in_continuum
+    return Track(parameters=ps, energies_meV=energies, widths_meV=widths, q_factors=qs, in_continuum=cont,
+                 stopped_at=stopped)
 
 
 @dataclass(frozen=True, eq=False)
@@ -450,6 +509,9 @@ class BicLocation:
         ``"accidental"`` (the width vanishes at an isolated parameter) or
         ``"symmetry-protected"`` (it is zero across the whole interval).
     resonance : Resonance
+    outside_stored_energies : bool
+        The BIC lies outside the stored energies of the sweep it was searched
+        in (nothing stored confirms it; the channel count there is unchecked).
     """
 
     parameter: object
@@ -461,15 +523,17 @@ class BicLocation:
     solves: int
     kind: str
     resonance: Resonance = field(repr=False)
+    outside_stored_energies: bool = False
 
 
 def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: float, energy_guess: float, *,
-               rtol: float = 1e-6, max_solves: int = 120) -> BicLocation:
+               rtol: float = 1e-6, max_solves: int = 120, on_solve: Callable[[], None] | None = None) -> BicLocation:
     """Find the parameter in [p_lo, p_hi] where a resonance's width vanishes, to relative precision ``rtol``.
 
     Minimises ``Gamma(p)`` with bounded Brent steps, each a self-consistent pole
     solve that follows the resonance from the previous step; then checks the
-    quadratic vanishing ``Gamma ~ (p - p*)^2`` on both sides.
+    quadratic vanishing ``Gamma ~ (p - p*)^2`` on both sides.  ``on_solve`` is
+    called after every pole solve (a progress bar).
     """
     state = {"energy": energy_guess, "vec": None, "solves": 0}
     cache = {}
@@ -482,6 +546,8 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
                                 "narrow the interval or raise max_solves")
         r = _follow(build, p, state["energy"], state["vec"])
         state["solves"] += 1
+        if on_solve is not None:
+            on_solve()
         state["energy"], state["vec"] = r.energy_meV, r.state
         cache[p] = r
         return r.width_meV
@@ -515,6 +581,20 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
 # Search over a stored sweep
 # --------------------------------------------------------------------------
 
+def stored_energy_window(data) -> tuple[float, float]:
+    """``(lo, hi)`` meV: the stored energies of a result (a search trusts nothing outside them)."""
+    e = np.asarray(data.energies_meV, float)
+    return float(e.min()), float(e.max())
+
+
+def _stored_points(data, quantity: str) -> np.ndarray:
+    """(*axis sizes) bool: completed points whose ``quantity`` holds any computed (finite, non-negative) value."""
+    q = np.asarray(data.quantities[quantity])
+    per_point = q.reshape(*data.completed.shape, -1)
+    ok = np.isfinite(per_point) if q.dtype.kind in "fc" else per_point >= 0
+    return np.asarray(data.completed, bool) & ok.any(axis=-1)
+
+
 @dataclass(frozen=True, eq=False)
 class SweepSearch:
     """Dark-state search over one axis of a stored sweep.
@@ -524,13 +604,21 @@ class SweepSearch:
     axis_name : str
         Sweep parameter (dotted config path).
     track : Track
-        The followed resonance at the stored parameter values.
+        The followed resonance at the stored parameter values (NaN where not computed).
     bics : list of BicLocation
-        Located width zeros (refined between stored points).
+        Located width zeros (refined between stored points); those outside the
+        stored energies carry ``outside_stored_energies``.
     diagnostics : list of CouplingDiagnostics
         One per BIC, at its parameter and energy.
     nearby_q : list of (3,) float
         Q factors at p* - d, p* + d and p* + 2d (d = stored step / 20): how Q falls away from the BIC.
+    energy_window : (float, float)
+        The stored energies (meV) the pole was followed in.
+    left_window : list of (float, float)
+        ``(parameter, Re z)`` where the pole left the stored energies and following stopped
+        (the same as ``track.stopped_at``).
+    axis_units : str
+        Units of the sweep parameter.
     """
 
     axis_name: str
@@ -538,10 +626,18 @@ class SweepSearch:
     bics: list
     diagnostics: list
     nearby_q: list
+    energy_window: tuple = (-np.inf, np.inf)
+    left_window: list = field(default_factory=list)
+    axis_units: str = ""
+
+    @property
+    def valid_points(self) -> int:
+        """Parameter values where the pole was computed (NaN values do not count)."""
+        return int(np.count_nonzero(self.track.valid))
 
 
 def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_drop_orders: float = 2.0,
-                 rtol: float = 1e-6) -> SweepSearch:
+                 rtol: float = 1e-6, progress: bool = True) -> SweepSearch:
     """Find bound states in the continuum along one axis of a stored sweep.
 
     The narrowest resonance seen in the stored T(E) (Fano fits) seeds a pole
@@ -549,6 +645,20 @@ def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_
     width at least ``min_drop_orders`` decades below the median width is
     refined with :func:`locate_bic` and explained with
     :func:`coupling_diagnostics`.
+
+    The pole is followed only inside the stored energies: where it leaves
+    them following stops (``left_window``), and a BIC located outside them
+    is flagged (``outside_stored_energies``), never reported as an ordinary
+    find.  ``progress`` shows a progress bar on standard error for searches
+    longer than PROGRESS_DELAY_S.
+
+    Raises
+    ------
+    RgftransError
+        No sweep axis, or ``energy_guess`` outside the stored energies.
+    SearchFailed
+        Nothing valid: no stored point holds a computed transmission, or the
+        pole could not be computed at any parameter value.
     """
     from .config import parse_config
     from .store import read_result
@@ -556,11 +666,18 @@ def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_
     data = read_result(path)
     if not data.axes:
         raise RgftransError(f"{path}: the result has no sweep axis; a dark-state search follows a resonance along one")
+    if not _stored_points(data, "transmission").any():
+        raise SearchFailed(f"{path}: no sweep point holds a computed transmission (every stored value is NaN or "
+                           "not written); nothing to search -- run or resume the sweep first")
     cfg = parse_config(data.config_text, source=str(path))
     cfg_axes = cfg.axes()
+    if isinstance(axis, bool) or not isinstance(axis, (int, np.integer)) or not 0 <= axis < len(cfg_axes):
+        raise RgftransError(f"{path}: axis {axis!r} does not exist; the sweep has {len(cfg_axes)} axis(es), "
+                            f"0..{len(cfg_axes) - 1} ({', '.join(a.name for a in cfg_axes)})")
     name = cfg_axes[axis].name
     values = np.asarray(cfg_axes[axis].values, float)
     base = cfg.base_point()
+    window = stored_energy_window(data)
 
     def build(p):
         return cfg.build_device({**base, name: float(p)}).discretise()
@@ -582,32 +699,56 @@ def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_
             raise RgftransError(f"{path}: no resonance found in the stored T(E); give --energy to start the search")
         k0, energy_guess = best[0], best[1].energy_meV
     else:
+        if not _inside(energy_guess, window):
+            raise RgftransError(f"{path}: the start energy {energy_guess:.6g} meV is outside the stored energies "
+                                f"{window[0]:.6g}..{window[1]:.6g} meV; give --energy inside them or sweep a wider "
+                                "energy window")
         k0 = 0
     # Track from the seed outwards in both directions, so the identity is kept from a well-defined start.
-    fwd = track_resonance(build, values[k0:], energy_guess)
-    bwd = track_resonance(build, values[:k0 + 1][::-1], energy_guess)
+    with progress_bar(len(values) + 1, "following the pole", "value", progress) as bar:
+        fwd = track_resonance(build, values[k0:], energy_guess, energy_window=window, on_step=bar.update)
+        bwd = track_resonance(build, values[:k0 + 1][::-1], energy_guess, energy_window=window, on_step=bar.update)
     order = np.concatenate([np.arange(k0 + 1)[::-1], np.arange(k0 + 1, len(values))])
     joined = {f: np.concatenate([getattr(bwd, f), getattr(fwd, f)[1:]]) for f in
               ("parameters", "energies_meV", "widths_meV", "q_factors", "in_continuum")}
     sort = np.argsort(order)
-    track = Track(**{f: v[sort] for f, v in joined.items()})
+    stopped = sorted(set(bwd.stopped_at + fwd.stopped_at))
+    track = Track(**{f: v[sort] for f, v in joined.items()}, stopped_at=tuple(stopped))
+    if not track.valid.any():
+        where = (f"; the pole left the stored energies {window[0]:.6g}..{window[1]:.6g} meV at once"
+                 if stopped else "")
+        raise SearchFailed(f"{path}: the resonance near {energy_guess:.6g} meV could not be computed at any of the "
+                           f"{len(values)} values of {name}{where}; give --energy near another resonance")
+    left = list(stopped)
     widths = track.widths_meV
-    floor = np.median(widths[widths > 0]) if np.any(widths > 0) else 0.0
+    valid = track.valid
+    floor = np.median(widths[valid & (widths > 0)]) if np.any(valid & (widths > 0)) else 0.0
     bics, diags, nearby = [], [], []
-    for k in range(1, len(values) - 1):
-        if widths[k] <= widths[k - 1] and widths[k] <= widths[k + 1] and track.in_continuum[k] and \
-                widths[k] < floor * 10 ** (-min_drop_orders):
-            loc = locate_bic(build, values[k - 1], values[k + 1], track.energies_meV[k], rtol=rtol)
+    candidates = [k for k in range(1, len(values) - 1)
+                  if valid[k - 1:k + 2].all() and widths[k] <= widths[k - 1] and widths[k] <= widths[k + 1]
+                  and track.in_continuum[k] and widths[k] < floor * 10 ** (-min_drop_orders)]
+    with progress_bar(None, "refining width zeros", "solve", progress and bool(candidates)) as bar:
+        for k in candidates:
+            loc = locate_bic(build, values[k - 1], values[k + 1], track.energies_meV[k], rtol=rtol,
+                             on_solve=bar.update)
+            loc = replace(loc, outside_stored_energies=not _inside(loc.energy_meV, window))
             p_star = loc.parameter if np.ndim(loc.parameter) == 0 else values[k]
             bics.append(loc)
             diags.append(coupling_diagnostics(build(p_star), loc.energy_meV))
             d = (values[k + 1] - values[k]) / 20
             nearby.append(np.array([_follow(build, p_star + s * d, loc.energy_meV).q_factor for s in (-1, 1, 2)]))
-    return SweepSearch(axis_name=name, track=track, bics=bics, diagnostics=diags, nearby_q=nearby)
+    return SweepSearch(axis_name=name, track=track, bics=bics, diagnostics=diags, nearby_q=nearby,
+                       energy_window=window, left_window=left, axis_units=str(data.axes[axis].units or ""))
 
 
 def write_search(search: SweepSearch, path, *, group: str = "darkstates") -> None:
-    """Store a search in its own group of an HDF5 file (appending to a result file is fine)."""
+    """Store a search in its own group of an HDF5 file (appending to a result file is fine).
+
+    Track values that were not computed are NaN; the group's attributes say
+    over how many values the pole was computed, the stored energy window and
+    where following stopped.  A BIC outside the stored energies has
+    ``outside_stored_energies = True``.
+    """
     import h5py
 
     with h5py.File(path, "a") as f:
@@ -616,16 +757,21 @@ def write_search(search: SweepSearch, path, *, group: str = "darkstates") -> Non
         g = f.create_group(group)
         g.attrs["axis"] = search.axis_name
         g.attrs["long_name"] = "dark-state (BIC) search along one sweep axis"
+        g.attrs["valid_points"] = search.valid_points
+        g.attrs["total_points"] = len(search.track.parameters)
+        g.attrs["stored_energy_window_meV"] = np.asarray(search.energy_window, float)
+        g.attrs["stopped_at"] = np.asarray([p for p, _ in search.left_window], float)
         t = search.track
-        for key, arr, units, long in (("parameter", t.parameters, "", f"sweep parameter {search.axis_name}"),
-                                      ("energy", t.energies_meV, "meV", "resonance energy Re z"),
-                                      ("width", t.widths_meV, "meV", "resonance width -2 Im z"),
+        for key, arr, units, long in (("parameter", t.parameters, search.axis_units,
+                                       f"sweep parameter {search.axis_name}"),
+                                      ("energy", t.energies_meV, "meV", "resonance energy Re z (NaN: not computed)"),
+                                      ("width", t.widths_meV, "meV", "resonance width -2 Im z (NaN: not computed)"),
                                       ("q_factor", t.q_factors, "1", "quality factor Re z / width")):
             ds = g.create_dataset(f"track/{key}", data=arr)
             ds.attrs["units"], ds.attrs["long_name"] = units, long
         for i, (loc, diag, q) in enumerate(zip(search.bics, search.diagnostics, search.nearby_q)):
             b = g.create_group(f"bic_{i}")
-            for key, val, units in (("parameter", loc.parameter, ""), ("energy", loc.energy_meV, "meV"),
+            for key, val, units in (("parameter", loc.parameter, search.axis_units), ("energy", loc.energy_meV, "meV"),
                                     ("width", loc.width_meV, "meV"), ("typical_width", loc.typical_width_meV, "meV"),
                                     ("orders_of_magnitude", loc.orders_of_magnitude, "1"),
                                     ("exponent", loc.exponent, "1"), ("nearby_q", q, "1"),
@@ -635,3 +781,4 @@ def write_search(search: SweepSearch, path, *, group: str = "darkstates") -> Non
                 ds.attrs["units"], ds.attrs["long_name"] = units, key.replace("_", " ")
             b.attrs["kind"] = loc.kind
             b.attrs["verdict"] = diag.verdict
+            b.attrs["outside_stored_energies"] = bool(loc.outside_stored_energies)

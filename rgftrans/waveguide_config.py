@@ -263,7 +263,7 @@ class WaveguideRun:
     dark_modes: list = dc_field(default_factory=list)
 
 
-def run_waveguide(config_path) -> WaveguideRun:
+def run_waveguide(config_path, *, progress: bool = True) -> WaveguideRun:
     """Compute what ``rgftrans waveguide CONFIG`` reports: spectrum, field at the sharpest line, dark modes.
 
     Nothing is printed, drawn or written here (the command line does that);
@@ -297,13 +297,13 @@ def run_waveguide(config_path) -> WaveguideRun:
         field_map = pm.field_map(sharpest.frequency_GHz, 0, 0)
     search, seeds, dark = None, 0, []
     if cfg.search is not None:
-        search, seeds = _search(cfg, pm, freqs)
+        search, seeds = _search(cfg, pm, freqs, progress=progress)
         dark = [_dark_mode(cfg, pm, search, bic) for bic in search.bics]
     return WaveguideRun(config_text=text, model=pm, spectrum=spectrum, lines=lines, sharpest=sharpest,
                         field_map=field_map, search=search, seeds=seeds, dark_modes=dark)
 
 
-def _search(cfg, pm, freqs):
+def _search(cfg, pm, freqs, progress=True):
     from .bic2d import plane_seeds, search_grid
 
     (n1, v1), (n2, v2) = cfg.axes()
@@ -313,7 +313,7 @@ def _search(cfg, pm, freqs):
 
     centre = cfg.build({n1: v1[len(v1) // 2], n2: v2[len(v2) // 2]}).discretise()
     seeds = plane_seeds(centre.model, float(pm.lam(freqs[0])), float(pm.lam(freqs[-1])))
-    return search_grid(build, v1, v2, seeds, names=(n1, n2)), len(seeds)
+    return search_grid(build, v1, v2, seeds, names=(n1, n2), progress=progress), len(seeds)
 
 
 def _dark_mode(cfg, pm, search, bic) -> DarkMode:
