@@ -284,3 +284,18 @@ def test_export_does_not_overwrite_without_asking(swept_result, tmp_path, capsys
     assert out.read_text() == "precious\n"
     assert main(["export", str(swept_result), "--out", str(out), "--overwrite"]) == EXIT_OK
     assert out.read_text().startswith("potential__constant_meV [meV],")
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["darkstates", "{res}", "--axis", "5"], "axis 5 does not exist"),
+    (["darkstates", "{res}", "--axis", "-1"], "axis -1 does not exist"),
+    (["plot", "{res}", "--energy", "inf"], "outside the stored energies"),
+    (["plot", "{res}", "--energy", "1e9"], "outside the stored energies"),
+], ids=["darkstates-axis-5", "darkstates-axis-negative", "plot-energy-inf", "plot-energy-far"])
+def test_result_commands_give_one_line(swept_result, tmp_path, capsys, args, fragment):
+    status = main([a.format(res=swept_result) for a in args] + (["--out", str(tmp_path / "x.png")]
+                                                                 if args[0] == "plot" else []))
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == EXIT_BAD_INPUT
+    assert len(err) == 1 and err[0].startswith("rgftrans: error:") and fragment in err[0], err
+    assert not (tmp_path / "x.png").exists()
