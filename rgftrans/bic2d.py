@@ -33,7 +33,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from .darkstates import (DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, _inside, _stored_points, follow_pole,
+from .darkstates import (DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, _inside, _stored_points, follow_pole, report_beside,
                          progress_bar, stored_energy_window)
 from .device import TightBindingModel
 from .errors import RgftransError, SearchFailed
@@ -500,7 +500,7 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
                     channels = r.channels
             if report:
                 valid = int(np.isfinite(res_all[s]).all(axis=-1).sum())
-                report(f"state from {seed:.5g} meV followed over {valid} of {n1 * n2} grid points")
+                report_beside(bar, report, f"state from {seed:.5g} meV followed over {valid} of {n1 * n2} grid points")
             bar.set_description("refining BIC candidates")
             for i in range(n1 - 1):
                 for j in range(n2 - 1):
@@ -532,8 +532,8 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
                         if report:
                             flag = (" -- OUTSIDE the stored energies, unconfirmed"
                                     if bic.outside_stored_energies else "")
-                            report(f"BIC at {names[0]} = {bic.parameter[0]:.9g}, {names[1]} = "
-                                   f"{bic.parameter[1]:.9g}, E = {bic.energy_meV:.6f} meV{flag}")
+                            report_beside(bar, report, f"BIC at {names[0]} = {bic.parameter[0]:.9g}, {names[1]} = "
+                                                       f"{bic.parameter[1]:.9g}, E = {bic.energy_meV:.6f} meV{flag}")
             bar.set_description("following dot states")
     finally:
         bar.close()

@@ -66,12 +66,35 @@ MIN_POINTS_PER_WIDTH = 3
 PROGRESS_DELAY_S = 3.0
 
 
+def stderr_is_terminal() -> bool:
+    """Whether standard error is a terminal (a bar drawn into a log file is a wall of carriage returns)."""
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
 def progress_bar(total, desc: str, unit: str, enabled: bool):
-    """A tqdm bar on standard error that shows after PROGRESS_DELAY_S and vanishes when done (off if not enabled)."""
+    """A tqdm bar on standard error that shows after PROGRESS_DELAY_S and vanishes when done.
+
+    Off when not enabled, and when standard error is not a terminal (a log file gets no bar).
+    """
     from tqdm import tqdm
 
-    return tqdm(total=total, desc=desc, unit=unit, disable=not enabled, file=sys.stderr, leave=False,
+    return tqdm(total=total, desc=desc, unit=unit, disable=not (enabled and stderr_is_terminal()), file=sys.stderr,
+                leave=False,
                 delay=PROGRESS_DELAY_S, dynamic_ncols=True)
+
+
+def report_beside(bar, report, message: str) -> None:
+    """Pass ``message`` to ``report`` with the progress bar cleared first and redrawn after (no torn lines)."""
+    if report is None:
+        return
+    if bar is None or bar.disable:
+        report(message)
+        return
+    with bar.external_write_mode(file=sys.stderr):
+        report(message)
 
 
 def _inside(energy: float, window) -> bool:

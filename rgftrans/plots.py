@@ -148,6 +148,7 @@ def plot_device(model, *, device=None, gates=None, ax=None, length_unit: str = "
 
     from ._figure_style import position_labels, unit_text
 
+    own_figure = ax is None
     fig, ax = _axes(ax)
     xy = np.asarray(model.positions, dtype=float)
     a = _site_spacing(xy)
@@ -181,14 +182,17 @@ def plot_device(model, *, device=None, gates=None, ax=None, length_unit: str = "
         size = max(0.3, min(10.0, 3000.0 / max(model.n_sites, 1)))
         ax.scatter(xy[:, 0], xy[:, 1], s=size, c="0.3", linewidths=0, zorder=4)
         handles.append(Line2D([], [], ls="none", marker="o", ms=3, color="0.3", label="lattice site"))
-    else:
-        _site_inset(ax, model, xy, a)
     pts = np.vstack(corners_all)
     pad = 0.05 * np.ptp(pts, axis=0).max()
     ax.set_xlim(pts[:, 0].min() - pad, pts[:, 0].max() + pad)
     ax.set_ylim(pts[:, 1].min() - pad, pts[:, 1].max() + pad)
     ax.set_aspect("equal")
+    if own_figure:  # a figure shaped like the drawing: no band of white above and below a wide device
+        span = np.ptp(pts, axis=0) + 2 * pad
+        fig.set_size_inches(6.5, float(np.clip(5.2 * span[1] / span[0] + 1.6, 2.8, 8.0)))
     _make_room_for(ax, labels, pad)
+    if model.n_sites > max_sites:  # after the limits are final: the inset picks a free corner
+        _site_inset(ax, model, xy, a, unit)
     xlabel, ylabel = position_labels(length_unit)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
@@ -214,12 +218,18 @@ def _make_room_for(ax, texts, pad: float) -> None:
         to_data = ax.transData.inverted()
 
 
-def _site_inset(ax, model, xy: np.ndarray, spacing: float, half_cells: int = 6) -> None:
+def _site_inset(ax, model, xy: np.ndarray, spacing: float, unit: str = "nm", half_cells: int = 6) -> None:
     """A zoomed inset at the first lead's mouth with the lattice sites (for devices too large to dot)."""
     lead = model.leads[0] if model.leads else None
     centre = xy[lead.interface].mean(axis=0) if lead is not None and len(lead.interface) else xy.mean(axis=0)
     half = half_cells * spacing
-    inset = ax.inset_axes([0.02, 0.64, 0.34, 0.34])
+    # The corner of the axes farthest from every lead's mouth, so the inset hides no lead band or label.
+    to_axes = (ax.transData + ax.transAxes.inverted()).transform
+    mouths = np.array([to_axes(xy[ld.interface].mean(axis=0)) for ld in model.leads if len(ld.interface)])
+    corners = {(0.02, 0.64): (0.19, 0.81), (0.64, 0.64): (0.81, 0.81), (0.02, 0.02): (0.19, 0.19),
+               (0.64, 0.02): (0.81, 0.19)}
+    where = max(corners, key=lambda c: np.min(np.linalg.norm(mouths - corners[c], axis=1)) if len(mouths) else 0)
+    inset = ax.inset_axes([where[0], where[1], 0.34, 0.34])
     near = np.all(np.abs(xy - centre) <= half, axis=1)
     inset.scatter(xy[near, 0], xy[near, 1], s=10, c="0.2", linewidths=0)
     if lead is not None:
@@ -230,7 +240,7 @@ def _site_inset(ax, model, xy: np.ndarray, spacing: float, half_cells: int = 6) 
     inset.set_aspect("equal")
     inset.set_xticks([])
     inset.set_yticks([])
-    inset.set_title(f"sites ({spacing:.3g} apart)", fontsize="x-small")
+    inset.set_title(f"lattice sites, {spacing:.3g} {unit} apart", fontsize="x-small")
     ax.indicate_inset_zoom(inset, edgecolor="0.3")
 
 
@@ -343,7 +353,7 @@ def _triangulation(xy: np.ndarray):
 
 
 def plot_map(model, values, *, ax=None, cmap: str = "magma", label: str = "LDOS (1/meV)",
-             log: bool = False, title: str | None = None, length_unit: str = "nm"):
+             log: bool = False, title: str | None = None, length_unit: str = "nm", lead_word: str = "lead"):
     """Colour map of a per-site quantity over the device (equal aspect, colour bar).
 
     Parameters
@@ -374,7 +384,7 @@ def plot_map(model, values, *, ax=None, cmap: str = "magma", label: str = "LDOS 
     fig.colorbar(art, ax=ax, label=label, shrink=0.85)
     for k, lead in enumerate(model.leads):
         cell = lead.cell_positions
-        ax.plot(cell[:, 0], cell[:, 1], lw=3, color=_LEAD_COLOURS[k % len(_LEAD_COLOURS)], label=f"lead '{lead.name}'",
+        ax.plot(cell[:, 0], cell[:, 1], lw=3, color=_LEAD_COLOURS[k % len(_LEAD_COLOURS)], label=f"{lead_word} '{lead.name}'",
                 solid_capstyle="butt")
     ax.set_aspect("equal")
     xlabel, ylabel = position_labels(length_unit)
@@ -452,7 +462,8 @@ def plot_currents(model, currents, *, ax=None, background=None, max_arrows: int 
                        width=0.003)
     if top > 0:
         ref = _round_down(top)
-        ax.quiverkey(arrows, 0.03, 1.03, ref, f"{ref:.2g} {current_unit}/{unit_text(length_unit)}",
+        # Below the axes at the right, clear of the title, the x label and the legend.
+        ax.quiverkey(arrows, 0.78, -0.13, ref, f"{ref:.2g} {current_unit}/{unit_text(length_unit)}",
                      labelpos="E", coordinates="axes", fontproperties={"size": "small"})
     return fig, ax
 
@@ -770,9 +781,12 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     """
     import matplotlib.pyplot as plt
 
+    from ._figure_style import parameter_name, parameter_unit, unit_text
     from .darkstates import follow_pole
     from .rgf import transmission
 
+    shown = unit_text(parameter_unit(name))
+    long_name = parameter_name(name)
     if axes is None:
         fig, axes = plt.subplots(1, 2, figsize=(10, 4), layout="constrained")
     else:
@@ -785,10 +799,11 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     for f, r in zip(list(fractions) + [0.0], poles + [None]):
         centre = r.energy_meV if r is not None else bic.energy_meV  # each line in its own window: it moves with p
         t = transmission(build(p1 + f * step, p2), centre + offsets).transmission
-        label = (f"p* + {f * step:.3g}: Γ = {r.width_meV:.2e} meV" if r is not None else "p* (BIC): no line")
+        label = (f"p* + {f * step:.3g}{' ' + shown if shown else ''}: Γ = {r.width_meV:.2e} meV" if r is not None
+                 else "p* (BIC): no line")
         axes[0].plot(offsets * 1e3, t, lw=1.2, label=label)
     axes[0].set_xlabel("E − Re z (µeV), z the pole at each parameter")
-    axes[0].set_title(f"T(E) as {name} approaches the BIC", fontsize="medium")
+    axes[0].set_title(f"T(E) as the {long_name} p approaches its value p* at the BIC", fontsize="medium")
     axes[0].set_ylabel("transmission T")
     axes[0].set_ylim(-0.02, 1.02)
     axes[0].legend(fontsize="small", frameon=False)
@@ -796,10 +811,7 @@ def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, 
     widths = np.array([follow_pole(build(p1 + x, p2), bic.energy_meV, seed).width_meV for x in d])
     axes[1].loglog(d, np.maximum(widths, 1e-300), "o", color="k", ms=4, label="pole width")
     axes[1].loglog(d, widths[-1] * (d / d[-1]) ** 2, color="tab:red", lw=0.8, ls="--", label="∝ |p − p*|²")
-    from ._figure_style import parameter_name, parameter_unit, unit_text
-
-    shown = unit_text(parameter_unit(name))
-    axes[1].set_xlabel(f"distance from the BIC |p − p*|, p = {parameter_name(name)}" + (f" ({shown})" if shown else ""))
+    axes[1].set_xlabel(f"distance from the BIC |p − p*|, p = {long_name}" + (f" ({shown})" if shown else ""))
     axes[1].set_ylabel("resonance width Γ (meV)")
     axes[1].legend(fontsize="small", frameon=False)
     return fig, axes
@@ -849,4 +861,5 @@ def plot_waveguide_field(model, magnitude, *, label: str, title: str | None = No
     label : str
         Colour-bar label with its unit, e.g. ``"|E_z| / incident peak (1)"``.
     """
-    return plot_map(model.model, magnitude, label=label, cmap="inferno", title=title, length_unit=model.unit, ax=ax)
+    return plot_map(model.model, magnitude, label=label, cmap="inferno", title=title, length_unit=model.unit, ax=ax,
+                    lead_word="port")

@@ -492,7 +492,7 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
             n_resumed = len(points) - len(todo)
             from tqdm import tqdm
 
-            bar = tqdm(total=len(points), initial=n_resumed, disable=quiet, unit="point", dynamic_ncols=True,
+            bar = tqdm(total=len(points), initial=n_resumed, disable=True if quiet else None, unit="point", dynamic_ncols=True,
                        desc=path.name)
             iterator = (_iterate_dask(todo, workers, address) if executor == "dask"
                         else _iterate_local(todo, workers))

@@ -99,10 +99,10 @@ def asymmetric_dot(out: Path) -> None:
               "energy_meV, transmission, conductance_2e2_over_h, conductance_S, open_channels_source, "
               "open_channels_drain")
     table = np.column_stack([result.energies, result.transmission, result.conductance_g0,
-                             result.transmission * CONDUCTANCE_QUANTUM_S, result.n_open])
+                             result.conductance_siemens, result.n_open])
     np.savetxt(f"{stem}_transmission.csv", table, delimiter=",", header=header,
                fmt=["%.6f", "%.10f", "%.10f", "%.6e", "%d", "%d"])
-    fig, ax = plot_device(model)
+    fig, ax = plot_device(model, device=device)
     ax.set_title("Invented asymmetric GaAs dot, a = %.0f nm" % device.lattice.spacing)
     fig.savefig(f"{stem}_device.png", dpi=150)
 
@@ -140,15 +140,18 @@ def multi_terminal(out: Path, name: str, title: str) -> None:
     print(f"[{name}] invented example: {model.n_sites} sites, {n} leads, {len(energies)} energies in "
           f"{elapsed:.2f} s; max |sum_p T_pq - N_q| = {col_err:.1e}")
     fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
-    for q in range(n):
-        for p in range(q + 1, n):
-            ax.plot(res.energies, res.transmission[:, p, q], lw=1.1, label=f"T {names[q]} → {names[p]}")
+    # Pairs related by the device's symmetry coincide: wide solid lines under narrow dashed ones keep both visible.
+    styles = [("-", 3.0), ("--", 2.2), (":", 2.2), ("-.", 1.6), ((0, (6, 2)), 1.2), ((0, (1, 1)), 1.0)]
+    pairs = [(p, q) for q in range(n) for p in range(q + 1, n)]
+    for k, (p, q) in enumerate(pairs):
+        ls, lw = styles[k % len(styles)]
+        ax.plot(res.energies, res.transmission[:, p, q], ls=ls, lw=lw, label=f"T {names[q]} → {names[p]}")
     ax.set_xlabel("energy E (meV)")
     ax.set_ylabel("transmission T")
     ax.set_title(title)
     ax.legend(fontsize="small", frameon=False, ncol=2)
     fig.savefig(out / f"{name}_transmission.png", dpi=150)
-    fig, ax = plot_device(model)
+    fig, ax = plot_device(model, device=device)
     ax.set_title(title)
     fig.savefig(out / f"{name}_device.png", dpi=150)
     if n == 4:

@@ -319,6 +319,7 @@ def test_progress_bar_on_stderr_unless_quiet(shifted_levels, tmp_path, capsys, m
     import rgftrans.darkstates as ds
 
     monkeypatch.setattr(ds, "PROGRESS_DELAY_S", 0.0)  # show at once (the bar normally waits a few seconds)
+    monkeypatch.setattr(ds, "stderr_is_terminal", lambda: True)  # as on a terminal: pytest captures stderr
     work = tmp_path / "shift.h5"
     shutil.copy(shifted_levels, work)
     argv = ["darkstates", str(work), "--energy", f"{_narrow_resonance(work).energy_meV:.9f}",
@@ -327,6 +328,19 @@ def test_progress_bar_on_stderr_unless_quiet(shifted_levels, tmp_path, capsys, m
     captured = capsys.readouterr()
     assert ("following the pole" in captured.err) is not quiet
     assert "following the pole" not in captured.out  # the bar never goes to standard output
+
+
+def test_no_progress_bar_into_a_log_file(shifted_levels, tmp_path, capsys, monkeypatch):
+    import rgftrans.darkstates as ds
+
+    monkeypatch.setattr(ds, "PROGRESS_DELAY_S", 0.0)
+    monkeypatch.setattr(ds, "stderr_is_terminal", lambda: False)
+    work = tmp_path / "shift.h5"
+    shutil.copy(shifted_levels, work)
+    argv = ["darkstates", str(work), "--energy", f"{_narrow_resonance(work).energy_meV:.9f}",
+            "--out-prefix", str(tmp_path / "ds")]
+    assert main(argv) == 0
+    assert "following the pole" not in capsys.readouterr().err
 
 
 def test_plane_writer_takes_the_units_from_the_caller(tmp_path):
