@@ -25,7 +25,7 @@ from contextlib import contextmanager
 import warnings
 from pathlib import Path
 
-from . import __version__
+from rgftrans import __version__
 
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -80,8 +80,8 @@ def one_line_warnings():
 
 
 def _refuse_waveguide(path) -> None:
-    from .config import ConfigError
-    from .waveguide_config import is_waveguide_config
+    from rgftrans.errors import ConfigError
+    from rgftrans.io.waveguide_config import is_waveguide_config
 
     if is_waveguide_config(path):
         raise ConfigError(f"{path}: this is a waveguide config ([waveguide] table); run it with "
@@ -90,7 +90,7 @@ def _refuse_waveguide(path) -> None:
 
 def _window_poles(cfg, model):
     """The model's resonance poles in the config's energy window (None for a single energy)."""
-    from .resolution import window_poles
+    from rgftrans.analysis.resolution import window_poles
 
     energies = cfg.energies()
     return window_poles(model, (energies[0], energies[-1])) if energies.size > 1 else None
@@ -98,8 +98,8 @@ def _window_poles(cfg, model):
 
 def _check_grid(cfg, model, poles) -> None:
     """Warnings about an energy grid too coarse for the configured temperatures or the model's resonances."""
-    from .resolution import warn_energies_outside_leads, warn_unresolved_resonances
-    from .thermal import warn_grid_for_temperatures
+    from rgftrans.analysis.resolution import warn_energies_outside_leads, warn_unresolved_resonances
+    from rgftrans.analysis.thermal import warn_grid_for_temperatures
 
     energies = cfg.energies()
     warn_energies_outside_leads(model, energies)
@@ -110,7 +110,7 @@ def _check_grid(cfg, model, poles) -> None:
 
 def _print_regime(cfg, device, model, poles) -> None:
     """The dot's regime (coherent or Coulomb blockade) in words, for continuum models with a material."""
-    from .regime import regime_estimate
+    from rgftrans.analysis.regime import regime_estimate
 
     if model.spacing_nm is None:  # lattice models in their own units: no charging-energy estimate
         return
@@ -128,7 +128,7 @@ def _print_regime(cfg, device, model, poles) -> None:
 
 def _check_figure_suffix(path: str) -> None:
     """One-line error for a figure file name whose suffix matplotlib cannot write, before any computing."""
-    from .errors import RgftransError
+    from rgftrans.errors import RgftransError
 
     suffix = Path(path).suffix.lower().lstrip(".")
     if suffix not in _FIGURE_SUFFIXES:
@@ -162,7 +162,7 @@ def _positive_int(text: str) -> int:
 
 def _scheduler_address(text: str) -> str:
     """argparse type: a Dask scheduler address protocol://host:port."""
-    from .config import is_scheduler_address
+    from rgftrans.io.config import is_scheduler_address
 
     if not is_scheduler_address(text):
         raise argparse.ArgumentTypeError(f"not a scheduler address, got {text!r}; write protocol://host:port, "
@@ -173,9 +173,10 @@ def _scheduler_address(text: str) -> str:
 def _cmd_check(args) -> int:
     import numpy as np
 
-    from .config import load_config
-    from .device import check_resolution
-    from .rgf import layer_blocks, lead_self_energies
+    from rgftrans.io.config import load_config
+    from rgftrans.system.device import check_resolution
+    from rgftrans.transport.rgf import layer_blocks
+    from rgftrans.leads.embedding import lead_self_energies
 
     _refuse_waveguide(args.config)
     if args.draw:
@@ -218,7 +219,7 @@ def _cmd_check(args) -> int:
         import matplotlib
 
         matplotlib.use("Agg")
-        from .plots import plot_device
+        from rgftrans.plots.figures import plot_device
 
         fig, ax = plot_device(model, device=device)
         ax.set_title(Path(args.config).name)
@@ -229,14 +230,14 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from .config import load_config
-    from .sweeps import run_sweep
+    from rgftrans.io.config import load_config
+    from rgftrans.io.sweeps import run_sweep
 
     _refuse_waveguide(args.config)
     cfg = load_config(args.config)
     output = args.output or cfg.output.path
     if Path(output).suffix.lower() not in (".h5", ".hdf5"):
-        from .store import StoreError
+        from rgftrans.errors import StoreError
 
         raise StoreError(f"{output}: the result file is HDF5; end its name in .h5")
     cfg.estimate(args.workers).refuse_if_too_big(output)
@@ -256,7 +257,7 @@ def _cmd_run(args) -> int:
 
 
 def _cmd_info(args) -> int:
-    from .store import summary
+    from rgftrans.io.store import summary
 
     print(summary(args.result))
     return EXIT_OK
@@ -266,7 +267,7 @@ def _cmd_plot(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
-    from .plots import plot_result
+    from rgftrans.plots.figures import plot_result
 
     fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy,
                          temperature=args.temperature, over_energy=args.over_energy)
@@ -282,9 +283,10 @@ def _cmd_export(args) -> int:
     import math
     import os
 
-    from .store import read_result
-    from .sweeps import axis_dataset_name
-    from .tables import ExportError, quantity_table
+    from rgftrans.io.store import read_result
+    from rgftrans.io.sweeps import axis_dataset_name
+    from rgftrans.io.tables import quantity_table
+    from rgftrans.errors import ExportError
 
     data = read_result(args.result)
     select = {}
@@ -344,9 +346,9 @@ def _cmd_darkstates(args) -> int:
 
     import numpy as np
 
-    from .darkstates import search_sweep, write_search
-    from .plots import plot_map, plot_track_on_map, plot_width_track
-    from .store import read_result
+    from rgftrans.io.searches import search_sweep, write_search
+    from rgftrans.plots.figures import plot_map, plot_track_on_map, plot_width_track
+    from rgftrans.io.store import read_result
 
     data = read_result(args.result)
     if len(data.axes) == 2:
@@ -386,7 +388,7 @@ def _cmd_darkstates(args) -> int:
     fig, ax = plot_track_on_map(args.result, shown)
     fig.savefig(f"{prefix}_track.png", dpi=150)
     if inside and np.ndim(inside[0].parameter) == 0:
-        from .config import parse_config
+        from rgftrans.io.config import parse_config
 
         loc = inside[0]
         cfg = parse_config(data.config_text)
@@ -406,8 +408,8 @@ def _darkstates_plane(args, data) -> int:
 
     import numpy as np
 
-    from .bic2d import stored_plane_builder, search_sweep_plane, write_grid_search
-    from .plots import plot_bic_plane, plot_fano_collapse, plot_map
+    from rgftrans.io.searches import stored_plane_builder, search_sweep_plane, write_grid_search
+    from rgftrans.plots.figures import plot_bic_plane, plot_fano_collapse, plot_map
 
     stored = stored_plane_builder(args.result, data)
     search = search_sweep_plane(args.result, energy_guess=args.energy, report=lambda m: print(f"  {m}"),
@@ -468,9 +470,11 @@ def _cmd_compare(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
-    from .compare import CompareError, argument_names, fit_trace, plot_fit, read_trace
+    from rgftrans.io.compare import argument_names, fit_trace, read_trace
+    from rgftrans.errors import CompareError
+    from rgftrans.plots.fits import plot_fit
 
-    # How compare's messages name its arguments on the command line (rgftrans.compare.argument_names).
+    # How compare's messages name its arguments on the command line (rgftrans.io.compare.argument_names).
     flags = {
         "gate_column": "--gate-column", "value_column": "--value-column", "kind": "--kind", "units": "--units",
         "bias_V": "--bias", "lever_arm": "--lever-arm", "offset": "--offset", "r_series_ohm": "--r-series",
@@ -544,9 +548,9 @@ def _cmd_waveguide(args) -> int:
     import numpy as np
 
     matplotlib.use("Agg")
-    from ._figure_style import format_value, parameter_name
-    from .plots import plot_bic_plane, plot_spectrum, plot_waveguide_field
-    from .waveguide_config import load_waveguide, parameter_units, run_waveguide, write_waveguide
+    from rgftrans.plots.style import format_value, parameter_name
+    from rgftrans.plots.figures import plot_bic_plane, plot_spectrum, plot_waveguide_field
+    from rgftrans.io.waveguide_config import load_waveguide, parameter_units, run_waveguide, write_waveguide
 
     say = (lambda *a: None) if args.quiet else print
     cfg, _ = load_waveguide(args.config)  # validate before any work
@@ -758,7 +762,7 @@ def main(argv=None) -> int:
 
 def _run(args) -> int:
     """Run a parsed command; every expected failure becomes one line and an exit status."""
-    from .errors import ComputationFailed, RgftransError
+    from rgftrans.errors import ComputationFailed, RgftransError
 
     try:
         return args.func(args)

@@ -68,3 +68,72 @@ class ResolutionWarning(RgftransWarning):
 class ValidityWarning(RgftransWarning):
     """The model is legal but the result may not describe the device (e.g. a closed dot where charging
     dominates, or a potential step at a lead interface that reflects spuriously)."""
+
+
+def _one_line(text: str) -> str:
+    """``text`` with its line breaks made spaces: every message of the package is one line."""
+    return text.replace("\r\n", " ").replace("\n", " ").replace("\r", " ")
+
+
+# --- errors of particular parts (each module imports its own from here) --------------------------
+
+class ResourceError(RgftransError):
+    """A device or sweep needs more memory or disk than the machine has."""
+
+
+class ConfigError(RgftransError):
+    """A run configuration that cannot be used; the message is one line.
+
+    Attributes
+    ----------
+    problems : tuple of str
+        Every problem found (the message shows the first and counts the rest).
+    """
+
+    def __init__(self, message: str, *, problems: tuple[str, ...] = ()) -> None:
+        message = _one_line(message)
+        super().__init__(message)
+        self.problems = tuple(_one_line(p) for p in problems) or (message,)
+
+
+class StoreError(RgftransError):
+    """A result file is missing, foreign, of another schema version, damaged or misused."""
+
+
+class ExportError(RgftransError):
+    """A selection names a dimension or value the result file does not have."""
+
+
+class CompareError(RgftransError):
+    """A measured trace, a stored sweep or a fit request that cannot be compared."""
+
+
+class SweepFailed(ComputationFailed):
+    """The computation broke down (a worker died); finished points are kept and a rerun resumes."""
+
+
+class TraceFitFailed(FitFailed):
+    """A trace fit that ran but is not worth reporting (one-line message; command-line exit status 1).
+
+    Attributes
+    ----------
+    problems : tuple of FitProblem
+        Every reason, in the order of the message.
+    attempt : TraceFit
+        The failed attempt (``success`` False), for a figure clearly titled
+        as failed; :meth:`TraceFit.to_hdf5` refuses to store it.
+    """
+
+    def __init__(self, message: str, problems=(), attempt=None):
+        super().__init__(message)
+        self.problems = tuple(problems)
+        self.attempt = attempt
+
+    @property
+    def kinds(self) -> tuple:
+        """The kinds of the problems, e.g. ("at_bound",)."""
+        return tuple(p.kind for p in self.problems)
+
+
+class FitWarning(RgftransWarning):
+    """A fit that ended but whose uncertainties are doubtful (singular covariance: a parameter not determined)."""

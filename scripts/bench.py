@@ -3,14 +3,14 @@
 Prints tables, asserts nothing.  Every figure is a median over repeats, all in
 one process, so the ratios compare like with like on this machine:
 
-* ours    -- rgftrans.rgf.transmission, seconds per energy (energies batched);
+* ours    -- rgftrans.transport.rgf.transmission, seconds per energy (energies batched);
 * sparse  -- scipy.sparse.linalg.splu of (E - H - Sigma_L - Sigma_R), solved for
              the columns of the first interface, then Caroli's formula: the
              route a user would write by hand (same lead self-energies);
 * floor   -- L back-to-back inversions of a dense W x W complex matrix, the
              faster of numpy.linalg.inv on a stack and a compiled loop of
              LAPACK inverses: the irreducible work of one RGF sweep;
-* LDOS    -- the full diagonal of G per energy (rgftrans.local.ldos), as a ratio to ours.
+* LDOS    -- the full diagonal of G per energy (rgftrans.transport.local.ldos), as a ratio to ours.
 
 System: a square-lattice strip, W x L sites, onsite disorder uniform in
 [-t/2, t/2] (seeded), clean leads, t = 1, energies in the lower quarter of the
@@ -34,13 +34,14 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numba import njit
 
-from rgftrans.device import Device, Lead
-from rgftrans.fields import Disorder
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.leads import clear_lead_cache
-from rgftrans.local import ldos
-from rgftrans.rgf import lead_self_energies, transmission
+from rgftrans.system.device import Device, Lead
+from rgftrans.system.fields import Disorder
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.leads.modes import clear_lead_cache
+from rgftrans.transport.local import ldos
+from rgftrans.transport.rgf import transmission
+from rgftrans.leads.embedding import lead_self_energies
 
 ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
 
@@ -165,7 +166,7 @@ def peak_memory(width, lengths):
         "import sys, tracemalloc\n"
         f"sys.path.insert(0, {here!r})\n"
         "from bench import strip, ENERGIES\n"
-        "from rgftrans.rgf import transmission, layer_blocks\n"
+        "from rgftrans.transport.rgf import transmission, layer_blocks\n"
         "model = strip(int(sys.argv[1]), int(sys.argv[2]))\n"
         "layer_blocks(model)\n"
         "transmission(model, ENERGIES[:1])\n"

@@ -19,8 +19,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from rgftrans.config import parse_config
-from rgftrans.sweeps import compute_point, grid_points, run_sweep
+from rgftrans.io.config import parse_config
+from rgftrans.io.sweeps import compute_point, grid_points, run_sweep
 
 CONFIG = """
 [lattice]

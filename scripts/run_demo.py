@@ -37,18 +37,18 @@ matplotlib.use("Agg")
 
 import numpy as np  # noqa: E402
 
-from rgftrans.device import Device, Lead  # noqa: E402
+from rgftrans.system.device import Device, Lead  # noqa: E402
 from rgftrans.errors import RgftransError  # noqa: E402
-from rgftrans.config import load_config  # noqa: E402
-from rgftrans.geometry import disk, rectangle  # noqa: E402
-from rgftrans.lattices import square  # noqa: E402
-from rgftrans.local import bond_currents, local_quantities, scattering_states  # noqa: E402
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S  # noqa: E402
-from rgftrans.plots import plot_currents, plot_device, plot_gate_potential, plot_map, plot_transmission  # noqa: E402
-from rgftrans.rgf import four_terminal_resistance, transmission, transmission_matrix  # noqa: E402
-from rgftrans.slicing import slice_layers  # noqa: E402
-from rgftrans.store import read_result  # noqa: E402
-from rgftrans.sweeps import run_sweep  # noqa: E402
+from rgftrans.io.config import load_config  # noqa: E402
+from rgftrans.system.geometry import disk, rectangle  # noqa: E402
+from rgftrans.system.lattices import square  # noqa: E402
+from rgftrans.transport.local import bond_currents, local_quantities, scattering_states  # noqa: E402
+from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S  # noqa: E402
+from rgftrans.plots.figures import plot_currents, plot_device, plot_gate_potential, plot_map, plot_transmission  # noqa: E402
+from rgftrans.transport.rgf import four_terminal_resistance, transmission, transmission_matrix  # noqa: E402
+from rgftrans.transport.slicing import slice_layers  # noqa: E402
+from rgftrans.io.store import read_result  # noqa: E402
+from rgftrans.io.sweeps import run_sweep  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -214,7 +214,7 @@ def synthetic_trace(out: Path) -> None:
     Invented truth: 1 K, gate offset +0.8 mV, series resistance 3 kOhm, Gaussian noise 0.3 % of 2e²/h (seeded).
     """
     from rgftrans.cli import main as rgftrans_main
-    from rgftrans.compare import model_conductance
+    from rgftrans.io.compare import model_conductance
 
     cfg = load_config(ROOT / "configs" / "gated_dot.toml")
     result = out / "gated_dot.h5"

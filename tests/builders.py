@@ -20,11 +20,11 @@ from dataclasses import dataclass
 import numpy as np
 from hypothesis import strategies as st
 
-from rgftrans.device import Device, Lead, TightBindingModel
+from rgftrans.system.device import Device, Lead, TightBindingModel
 from rgftrans.errors import GeometryError, LeadError
-from rgftrans.geometry import disk, rectangle
-from rgftrans.lattices import square
-from rgftrans.slicing import Slicing, slice_layers
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.slicing import Slicing, slice_layers
 
 #: Hopping of the tight-binding-unit devices (meV); the 2D band is [0, 8 T_HOP].
 T_HOP = 1.0

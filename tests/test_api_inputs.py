@@ -13,15 +13,15 @@ import numpy as np
 import pytest
 
 from builders import strip_device
-from rgftrans.device import Device, Lead
-from rgftrans.direct import transmission_direct
+from rgftrans.system.device import Device, Lead
+from rgftrans.transport.direct import transmission_direct
 from rgftrans.errors import RgftransError
-from rgftrans.fields import MagneticField
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.local import ldos, local_quantities, scattering_states
-from rgftrans.materials import Material, material
-from rgftrans.rgf import transmission, transmission_matrix
+from rgftrans.system.fields import MagneticField
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.local import ldos, local_quantities, scattering_states
+from rgftrans.system.materials import Material, material
+from rgftrans.transport.rgf import transmission, transmission_matrix
 
 
 def _model():

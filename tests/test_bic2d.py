@@ -6,14 +6,14 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from rgftrans.bic2d import coupling_residuals, locate_bic_2d, search_grid
-from rgftrans.darkstates import resonances
-from rgftrans.device import Device, Lead, LeadModel, TightBindingModel
+from rgftrans.analysis.bic2d import coupling_residuals, locate_bic_2d, search_grid
+from rgftrans.analysis.darkstates import resonances
+from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
 from rgftrans.errors import RgftransError
-from rgftrans.fields import MagneticField
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.rgf import transmission
+from rgftrans.system.fields import MagneticField
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.rgf import transmission
 
 # --- Closed form: two levels a, b (coupled by kappa) attached to two different one-dimensional chains ------------
 # Chain L couples to the levels with (V_AL, V_BL), chain R with (v_aR, V_BR); each chain has one channel in (-2, 2).
@@ -194,7 +194,7 @@ def test_command_line_plane_search(tmp_path, capsys):
     import h5py
 
     from rgftrans.cli import main
-    from rgftrans.config import load_config
+    from rgftrans.io.config import load_config
 
     cfg_path = tmp_path / "plane.toml"
     cfg_path.write_text(GATED_PLANE.format(path=tmp_path / "plane.h5"))
@@ -219,7 +219,7 @@ def test_command_line_plane_search(tmp_path, capsys):
 
 
 def test_plane_search_refuses_a_one_axis_sweep(tmp_path):
-    from rgftrans.bic2d import search_sweep_plane
+    from rgftrans.io.searches import search_sweep_plane
     from rgftrans.cli import main
 
     text = GATED_PLANE.format(path=tmp_path / "line.h5")

@@ -1,4 +1,4 @@
-"""Size estimates made before anything is built (rgftrans.budget): checked against the discretised device.
+"""Size estimates made before anything is built (rgftrans.system.budget): checked against the discretised device.
 
 The estimate uses only the region's area and extent; the device it is held
 against is the real discretisation.  Tolerances: a rectangle of n_x x n_y
@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import pytest
 
-from rgftrans.budget import ResourceError, device_size, human_bytes, human_seconds, refuse_oversized_device
-from rgftrans.device import Device, Lead, estimate_size
-from rgftrans.geometry import disk, rectangle
-from rgftrans.lattices import honeycomb, square
-from rgftrans.materials import material
-from rgftrans.rgf import layer_blocks
+from rgftrans.system.budget import device_size, human_bytes, human_seconds, refuse_oversized_device
+from rgftrans.errors import ResourceError
+from rgftrans.system.device import Device, Lead, estimate_size
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.system.lattices import honeycomb, square
+from rgftrans.system.materials import material
+from rgftrans.transport.rgf import layer_blocks
 
 
 def _strip(lattice, spin=False, region=None, leads=None):

@@ -237,7 +237,7 @@ def test_export_writes_a_selection_as_csv(swept_result, tmp_path, capsys):
 
     import numpy as np
 
-    from rgftrans.store import read_result
+    from rgftrans.io.store import read_result
 
     out = tmp_path / "g.csv"
     assert main(["export", str(swept_result), "--temperature", "1", "--leads", "source,drain",

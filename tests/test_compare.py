@@ -1,4 +1,4 @@
-"""Tests of rgftrans.compare: reading traces, series resistance, the gate-voltage model, fits, HDF5, plots.
+"""Tests of rgftrans.io.compare: reading traces, series resistance, the gate-voltage model, fits, HDF5, plots.
 
 Every measurement here is synthetic: a stored sweep is written directly (no
 RGF run) with an analytic transmission, two Breit-Wigner peaks of known
@@ -20,22 +20,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rgftrans.compare import (
-    CompareError,
-    MeasuredTrace,
-    _thermal_g0,
-    add_series_resistance,
-    fit_trace,
-    model_conductance,
-    plot_fit,
-    read_fit,
-    read_trace,
-    remove_series_resistance,
-)
+from rgftrans.io.compare import MeasuredTrace, _thermal_g0, add_series_resistance, fit_trace, model_conductance, read_fit, read_trace, remove_series_resistance
+from rgftrans.errors import CompareError
+from rgftrans.plots.fits import plot_fit
 from rgftrans.errors import ResolutionWarning, RgftransError
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S as G0
-from rgftrans.store import Axis, QuantitySpec, ResultFile, read_result, validate
-from rgftrans.thermal import BOLTZMANN_MEV_PER_K, thermal_conductance
+from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S as G0
+from rgftrans.io.store import Axis, QuantitySpec, ResultFile, read_result, validate
+from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K, thermal_conductance
 
 DATA = Path(__file__).parent / "data"
 

@@ -1,10 +1,10 @@
-"""Tests of how rgftrans.compare fails: fits that must not be reported, the stored Fermi energy as mu_ref,
+"""Tests of how rgftrans.io.compare fails: fits that must not be reported, the stored Fermi energy as mu_ref,
 command-line messages that name flags, and the figure's fitted values.
 
 The stored sweep is the analytic two-peak Breit-Wigner transmission of
 tests/test_compare.py (Breit & Wigner, Phys. Rev. 49, 519 (1936)), written
 directly (no RGF run), here with a stored Fermi energy.  Synthetic traces are
-made from the stored sweep itself (rgftrans.compare.model_conductance) at a
+made from the stored sweep itself (rgftrans.io.compare.model_conductance) at a
 known lever arm, offset, series resistance and temperature, plus Gaussian noise
 from a fixed seed.  The failure thresholds are the module's named constants
 (MAX_REDUCED_CHI_SQUARE = 10, MAX_RESIDUAL_SPREAD = 0.5).
@@ -17,19 +17,11 @@ import warnings
 import numpy as np
 import pytest
 
-from rgftrans.compare import (
-    MAX_REDUCED_CHI_SQUARE,
-    MAX_RESIDUAL_SPREAD,
-    CompareError,
-    MeasuredTrace,
-    TraceFitFailed,
-    _residual_problem,
-    fit_trace,
-    model_conductance,
-    plot_fit,
-)
+from rgftrans.io.compare import MAX_REDUCED_CHI_SQUARE, MAX_RESIDUAL_SPREAD, MeasuredTrace, _residual_problem, fit_trace, model_conductance
+from rgftrans.errors import CompareError, TraceFitFailed
+from rgftrans.plots.fits import plot_fit
 from rgftrans.errors import FitFailed
-from rgftrans.store import ResultFile
+from rgftrans.io.store import ResultFile
 from test_compare import LEADS, PEAKS, SPEC, breit_wigner, two_lead_matrix
 
 #: Stored Fermi energy of the synthetic sweep (meV), as a sweep writes it when its config gives a density.

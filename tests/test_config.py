@@ -1,4 +1,4 @@
-"""Tests of rgftrans.config: the demo configs load, malformed configs fail with one-line
+"""Tests of rgftrans.io.config: the demo configs load, malformed configs fail with one-line
 messages that name the key and the value, and the builders give the right devices."""
 
 from __future__ import annotations
@@ -15,9 +15,10 @@ import tomllib
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rgftrans.config import ConfigError, RunConfig, load_config, parse_config, validate_config
-from rgftrans.device import Device
-from rgftrans.gates import GateLayout
+from rgftrans.io.config import RunConfig, load_config, parse_config, validate_config
+from rgftrans.errors import ConfigError
+from rgftrans.system.device import Device
+from rgftrans.electrostatics.gates import GateLayout
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"
 
@@ -82,7 +83,7 @@ def test_demo_config_loads_and_discretises(path):
 @pytest.mark.parametrize("path", sorted(p for p in CONFIGS.glob("*.toml") if "[waveguide]" in p.read_text()),
                          ids=lambda p: p.name)
 def test_demo_waveguide_config_loads_and_discretises(path):
-    from rgftrans.waveguide_config import load_waveguide
+    from rgftrans.io.waveguide_config import load_waveguide
 
     config, _ = load_waveguide(path)
     assert config.output.path == f"out/{path.stem}.h5"

@@ -6,13 +6,12 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from rgftrans.darkstates import (coupling_diagnostics, find_resonances, fit_fano, locate_bic, resonances,
-                                 track_resonance)
-from rgftrans.device import Device, Lead, LeadModel, TightBindingModel
+from rgftrans.analysis.darkstates import coupling_diagnostics, find_resonances, fit_fano, locate_bic, resonances, track_resonance
+from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
 from rgftrans.errors import RgftransError
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.rgf import transmission
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.rgf import transmission
 
 # Two dot levels a, b side-coupled (v_a, v_b) to site c of an infinite chain (hopping -1), coupled to each other
 # by kappa.  Through the single site c the dot sees ONE continuum.  Friedrich & Wintgen, Phys. Rev. A 32, 3231

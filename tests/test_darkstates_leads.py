@@ -9,11 +9,13 @@ import h5py
 import numpy as np
 import pytest
 
-from rgftrans.bic2d import search_grid, single_channel_energies, write_grid_search
+from rgftrans.analysis.bic2d import search_grid
+
+from rgftrans.io.searches import single_channel_energies, write_grid_search
 from rgftrans.cli import main
-from rgftrans.darkstates import track_resonance
+from rgftrans.analysis.darkstates import track_resonance
 from rgftrans.errors import SearchFailed
-from rgftrans.store import read_result
+from rgftrans.io.store import read_result
 
 from test_bic2d import E_STAR as E_STAR_2D, KAPPA_STAR as KAPPA_STAR_2D, V_AR_STAR, two_levels
 from test_darkstates import E_STAR, side_coupled
@@ -255,8 +257,8 @@ def shifted_levels(tmp_path_factory):
 
 def _narrow_resonance(path):
     """The narrow (not protected) resonance of the unshifted dot near 0.61 meV."""
-    from rgftrans.config import parse_config
-    from rgftrans.darkstates import resonances
+    from rgftrans.io.config import parse_config
+    from rgftrans.analysis.darkstates import resonances
 
     cfg = parse_config(read_result(path).config_text)
     model = cfg.build_device({**cfg.base_point(), "potential.constant_meV": 0.0}).discretise()
@@ -302,7 +304,7 @@ def test_all_nan_line_exits_1_and_writes_no_group(shifted_levels, tmp_path, caps
 
 
 def test_search_api_fails_when_nothing_is_computed(shifted_levels, tmp_path):
-    from rgftrans.darkstates import search_sweep
+    from rgftrans.io.searches import search_sweep
 
     work = tmp_path / "nan.h5"
     shutil.copy(shifted_levels, work)
@@ -316,7 +318,7 @@ def test_search_api_fails_when_nothing_is_computed(shifted_levels, tmp_path):
 
 @pytest.mark.parametrize("quiet", [False, True])
 def test_progress_bar_on_stderr_unless_quiet(shifted_levels, tmp_path, capsys, monkeypatch, quiet):
-    import rgftrans.darkstates as ds
+    import rgftrans.analysis.darkstates as ds
 
     monkeypatch.setattr(ds, "PROGRESS_DELAY_S", 0.0)  # show at once (the bar normally waits a few seconds)
     monkeypatch.setattr(ds, "stderr_is_terminal", lambda: True)  # as on a terminal: pytest captures stderr
@@ -331,7 +333,7 @@ def test_progress_bar_on_stderr_unless_quiet(shifted_levels, tmp_path, capsys, m
 
 
 def test_no_progress_bar_into_a_log_file(shifted_levels, tmp_path, capsys, monkeypatch):
-    import rgftrans.darkstates as ds
+    import rgftrans.analysis.darkstates as ds
 
     monkeypatch.setattr(ds, "PROGRESS_DELAY_S", 0.0)
     monkeypatch.setattr(ds, "stderr_is_terminal", lambda: False)

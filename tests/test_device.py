@@ -1,4 +1,4 @@
-"""Tests of rgftrans.device: discretisation facts and the bad-input catalogue.
+"""Tests of rgftrans.system.device: discretisation facts and the bad-input catalogue.
 
 Outside sources:
 
@@ -27,11 +27,11 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from rgftrans.device import Device, Lead
-from rgftrans.fields import MagneticField
+from rgftrans.system.device import Device, Lead
+from rgftrans.system.fields import MagneticField
 from rgftrans.errors import GeometryError, LatticeError, LeadError, PotentialError
-from rgftrans.geometry import disk, rectangle
-from rgftrans.lattices import square
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.system.lattices import square
 
 #: The table's values have six decimals (meV): half a unit in the last place.
 ABS_TABLE = 0.5e-6
@@ -267,7 +267,7 @@ def test_adjacent_leads_may_share_a_corner_site():
 
 def test_potential_step_at_a_lead_interface_is_warned():
     """A gate potential that has not decayed at the device's edge meets the lead as a step (ValidityWarning)."""
-    from rgftrans.device import LEAD_STEP_WARN_MEV
+    from rgftrans.system.device import LEAD_STEP_WARN_MEV
     from rgftrans.errors import ValidityWarning
 
     leads = [Lead("source", "left", (0.0, 30.0)), Lead("drain", "right", (0.0, 30.0))]

@@ -3,13 +3,13 @@
 import numpy as np
 import pytest
 
-from rgftrans.device import Device, Lead
-from rgftrans.direct import transmission_direct
+from rgftrans.system.device import Device, Lead
+from rgftrans.transport.direct import transmission_direct
 from rgftrans.errors import PotentialError
-from rgftrans.fields import BOHR_MAGNETON_MEV_PER_T, Disorder, MagneticField
-from rgftrans.geometry import disk, rectangle
-from rgftrans.lattices import square, triangular
-from rgftrans.rgf import transmission, transmission_matrix
+from rgftrans.system.fields import BOHR_MAGNETON_MEV_PER_T, Disorder, MagneticField
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.system.lattices import square, triangular
+from rgftrans.transport.rgf import transmission, transmission_matrix
 
 A = 4.0  # nm
 ENERGIES = [2.5, 4.0, 6.5]  # meV, GaAs at a = 4 nm
@@ -136,7 +136,7 @@ def test_triangular_effective_mass():
 
     E(k) = 2t [3 - cos(k.a1) - cos(k.a2) - cos(k.(a2 - a1))] ~ (3/2) t a^2 k^2 (our derivation).
     """
-    from rgftrans.materials import hopping_meV
+    from rgftrans.system.materials import hopping_meV
 
     dev = Device(rectangle(0, 0, 10, 10), [Lead("l", "left", (0, 10)), Lead("r", "right", (0, 10))],
                  lattice=triangular(2.0))

@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 import shapely
 
-import rgftrans.gates as gates_module
-from rgftrans.device import Device, Lead
+import rgftrans.electrostatics.gates as gates_module
+from rgftrans.system.device import Device, Lead
 from rgftrans.errors import GeometryError, PotentialError
-from rgftrans.gates import (
+from rgftrans.electrostatics.gates import (
     POLYGON_METHODS,
     Gate,
     GateLayout,
@@ -26,8 +26,8 @@ from rgftrans.gates import (
     gates_from_gds,
     solid_angle_polygon,
 )
-from rgftrans.geometry import disk, polygon, rectangle
-from rgftrans.lattices import square
+from rgftrans.system.geometry import disk, polygon, rectangle
+from rgftrans.system.lattices import square
 
 import gdstk  # a core dependency: a missing install must fail, not skip
 

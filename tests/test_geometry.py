@@ -1,4 +1,4 @@
-"""Tests of rgftrans.geometry: areas against closed forms, boundary handling, errors.
+"""Tests of rgftrans.system.geometry: areas against closed forms, boundary handling, errors.
 
 Outside sources: elementary plane geometry.  Rectangle area |dx| |dy|; the
 area of a regular N-gon inscribed in a circle of radius r is
@@ -16,7 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rgftrans.errors import GeometryError
-from rgftrans.geometry import (
+from rgftrans.system.geometry import (
     BOUNDARY_TOLERANCE_NM,
     DEFAULT_DISK_SEGMENTS,
     Region,

@@ -1,4 +1,4 @@
-"""Tests of rgftrans.leads: surface Green's functions, open channels, velocities.
+"""Tests of rgftrans.leads.modes: surface Green's functions, open channels, velocities.
 
 Outside sources (all from memory):
 
@@ -30,7 +30,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rgftrans.errors import EnergyError, ThresholdWarning
-from rgftrans.leads import lead_modes, surface_green_decimation, surface_green_modes
+from rgftrans.leads.modes import lead_modes, surface_green_decimation, surface_green_modes
 
 #: Mode method vs decimation at the same complex energy E + i ETA_DECIMATION.
 #: The mode method is exact up to round-off (it matches the closed forms to
@@ -301,7 +301,7 @@ def test_non_finite_energy_raises(energy):
 @pytest.mark.parametrize("energy", [-3.3, -1.0, 0.37, 1.9, 2.5, 0.4 + 0.2j])
 def test_separable_closed_form_matches_the_generalised_eigenproblem(energy):
     """Leads with h_hop = tau * 1 take a closed-form path; the general 2m x 2m solver must agree with it."""
-    from rgftrans.leads import _modes_generalised, _modes_separable, hopping_scale
+    from rgftrans.leads.modes import _modes_generalised, _modes_separable, hopping_scale
 
     h_cell, h_hop = strip_lead(6)
     h_cell = h_cell + np.diag(np.linspace(-0.3, 0.4, 6))  # lift the mirror symmetry

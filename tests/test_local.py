@@ -1,4 +1,4 @@
-"""LDOS, lead-resolved densities, scattering states and bond currents (rgftrans.local).
+"""LDOS, lead-resolved densities, scattering states and bond currents (rgftrans.transport.local).
 
 References are scipy dense linear algebra (an outside library) and the
 invariants of Landauer-Büttiker scattering theory.
@@ -9,13 +9,14 @@ import pytest
 import scipy.linalg as sla
 import scipy.sparse as sp
 
-from rgftrans.device import Device, Lead, LeadModel, TightBindingModel
-from rgftrans.direct import scattering_matrix
+from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
+from rgftrans.transport.direct import scattering_matrix
 from rgftrans.errors import LeadError
-from rgftrans.geometry import disk, rectangle
-from rgftrans.lattices import square
-from rgftrans.local import bond_currents, ldos, local_quantities, scattering_states
-from rgftrans.rgf import four_terminal_resistance, lead_self_energies, transmission, transmission_matrix
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.local import bond_currents, ldos, local_quantities, scattering_states
+from rgftrans.transport.rgf import four_terminal_resistance, transmission, transmission_matrix
+from rgftrans.leads.embedding import lead_self_energies
 
 SIDES = ("left", "right", "bottom", "top")
 
@@ -166,7 +167,7 @@ def test_four_terminal_reciprocity_and_two_terminal_limit():
     two, e2 = random_device(3, 2)
     g2 = transmission_matrix(two, [e2]).conductance_matrix()[0]
     t = transmission(two, [e2]).transmission[0]
-    from rgftrans.materials import CONDUCTANCE_QUANTUM_S
+    from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
     assert four_terminal_resistance(g2, (0, 1), (0, 1)) == pytest.approx(1 / (t * CONDUCTANCE_QUANTUM_S), rel=1e-9)
 
 
@@ -191,8 +192,8 @@ def test_unknown_lead_name_for_scattering_states():
 def test_ldos_on_narrow_layers_with_non_diagonal_couplings():
     """A narrow triangular-lattice strip: layers of a few sites joined by non-diagonal couplings, the loop
     kernel's general Schur path.  Reference: the diagonal of a dense scipy inverse, to 1e-10 relative."""
-    from rgftrans.lattices import triangular
-    from rgftrans.rgf import layer_blocks
+    from rgftrans.system.lattices import triangular
+    from rgftrans.transport.rgf import layer_blocks
 
     model = Device(rectangle(0, 0, 14, 4), [Lead("l", "left", (0, 4)), Lead("r", "right", (0, 4))],
                    lattice=triangular(1.0), hopping=1.0, potential=lambda x, y: 0.5 * np.sin(x)).discretise()

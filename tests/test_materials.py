@@ -1,4 +1,4 @@
-"""Tests of rgftrans.materials against handbook constants.
+"""Tests of rgftrans.system.materials against handbook constants.
 
 Outside source for every pinned number: /work/shared/reference-checks.md,
 section 10 ("Effective-mass discretisation and handbook constants"), whose
@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 from rgftrans.errors import LatticeError, MaterialError
-from rgftrans.materials import (
+from rgftrans.system.materials import (
     CONDUCTANCE_QUANTUM_S,
     MATERIALS,
     Material,

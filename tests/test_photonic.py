@@ -8,10 +8,11 @@ import numpy as np
 import pytest
 import scipy.constants as const
 
-from rgftrans.direct import transmission_direct
+from rgftrans.transport.direct import transmission_direct
 from rgftrans.errors import LeadError, PotentialError, ResolutionWarning
-from rgftrans.geometry import disk, rectangle
-from rgftrans.photonic import Dielectric, Port, Waveguide
+from rgftrans.system.geometry import disk, rectangle
+from rgftrans.analysis.light import waveguide_field, waveguide_resonances, waveguide_spectrum
+from rgftrans.system.photonic import Dielectric, Port, Waveguide
 
 H = 10.0  # mm, plate separation of the straight guides
 
@@ -51,7 +52,7 @@ def test_transmission_staircase_steps_at_the_grid_cutoffs():
     pm = straight(0.5)
     fc = pm.cutoffs_GHz(0, 3)
     f = np.sort(np.concatenate([fc * (1 - 1e-6), fc * (1 + 1e-6), [5.0, 40.0]]))
-    s = quiet(pm.spectrum, f)
+    s = quiet(waveguide_spectrum, pm, f)
     expected = np.searchsorted(fc, f)
     assert np.array_equal(s.n_open[:, 0], expected)
     assert np.allclose(s.transmission[:, 1, 0], expected, atol=1e-9)
@@ -67,7 +68,7 @@ def cavity(loss_tangent=0.0, spacing=0.5):
 
 def test_flux_conservation_without_losses():
     """T + R = N for every input port (current conservation; common practice, no source), to 1e-10."""
-    s = quiet(cavity().spectrum, np.linspace(21.5, 50, 25))
+    s = quiet(waveguide_spectrum, cavity(), np.linspace(21.5, 50, 25))
     total = s.transmission.sum(axis=1)
     assert np.allclose(total, s.n_open, atol=1e-10) and np.abs(s.absorption).max() < 1e-10
     assert s.n_open.max() >= 2  # the band reaches the two-mode range of the inlet
@@ -77,7 +78,7 @@ def test_rgf_matches_sparse_direct_solve_with_losses():
     pm = cavity(loss_tangent=0.02)
     for f in (22.0, 28.0):
         lam = pm.lam(f)
-        s = quiet(pm.spectrum, [f])
+        s = quiet(waveguide_spectrum, pm, [f])
         direct = transmission_direct(pm.model_at(lam), [lam])[0, 1, 0]
         assert s.transmission[0, 1, 0] == pytest.approx(direct, rel=1e-9)
 
@@ -87,9 +88,9 @@ def test_absorbed_power_equals_one_minus_t_minus_r():
     flux (Poynting's theorem on the grid, our derivation), equals 1 - T - R from the scattering matrix, to 1e-10."""
     pm = cavity(loss_tangent=0.02)
     freqs = np.array([22.0, 25.0, 28.0])
-    s = quiet(pm.spectrum, freqs)
+    s = quiet(waveguide_spectrum, pm, freqs)
     for k, f in enumerate(freqs):
-        fm = quiet(pm.field_map, f)
+        fm = quiet(waveguide_field, pm, f)
         assert s.n_open[k, 0] == 1
         assert fm.absorbed == pytest.approx(1 - s.transmission[k, 1, 0] - s.transmission[k, 0, 0], abs=1e-10)
         assert fm.absorbed > 1e-3
@@ -109,7 +110,7 @@ def test_single_mode_slab_converges_to_fabry_perot():
     errs = []
     for a in (0.25, 0.125):
         slab = Dielectric(rectangle(7.5, -1, 7.5 + length, H + 1), eps, name="slab")
-        s = quiet(straight(a, dielectrics=[slab]).spectrum, f)
+        s = quiet(waveguide_spectrum, straight(a, dielectrics=[slab]), f)
         assert np.all(s.n_open[:, 0] == 1)
         errs.append(np.abs(s.transmission[:, 1, 0] - exact))
     assert np.all(np.abs(np.log2(errs[0] / errs[1]) - 2) < 0.1)
@@ -119,13 +120,13 @@ def test_single_mode_slab_converges_to_fabry_perot():
 def test_coarse_grid_warns_in_words():
     pm = cavity(spacing=1.0)
     with pytest.warns(ResolutionWarning, match="points per wavelength"):
-        pm.spectrum([30.0])
+        waveguide_spectrum(pm, [30.0])
 
 
 def test_field_map_is_normalised_to_the_incident_wave():
     """In an empty straight guide the scattering state is the incident mode itself: peak |E_z| = 1, no enhancement."""
     pm = straight(0.5)
-    fm = quiet(pm.field_map, 20.0)
+    fm = quiet(waveguide_field, pm, 20.0)
     assert fm.enhancement == pytest.approx(1.0, rel=1e-9) and fm.absorbed == 0.0
 
 
@@ -133,13 +134,13 @@ def test_resonance_q_in_frequency_matches_the_fano_fit():
     """The pole gives f = f' - i f'' and Q = f' / (2 f''); an isolated line of T(f) fitted with a Fano profile
     (U. Fano, Phys. Rev. 124, 1866 (1961), from memory) gives Q = f0 / width independently: agreement to 3 %
     (measured 1.9 %; the fit assumes a flat background)."""
-    from rgftrans.darkstates import fit_fano
+    from rgftrans.analysis.darkstates import fit_fano
 
     pm = cavity()
-    (r,) = [r for r in pm.resonances(30.0, count=3) if 100 < r.q_factor < 1000]  # the isolated line near 29.95 GHz
+    (r,) = [r for r in waveguide_resonances(pm, 30.0, count=3) if 100 < r.q_factor < 1000]  # the isolated line near 29.95 GHz
     f = r.frequency_GHz + np.linspace(-1.5, 1.5, 241) * r.width_GHz  # wider windows take in the tails of the
     # neighbouring lines 6 widths away, which bend the background the profile assumes flat
-    fit = fit_fano(f, quiet(pm.spectrum, f).transmission[:, 1, 0], energy_guess=r.frequency_GHz,
+    fit = fit_fano(f, quiet(waveguide_spectrum, pm, f).transmission[:, 1, 0], energy_guess=r.frequency_GHz,
                    width_guess=r.width_GHz)
     assert fit.energy_meV / fit.width_meV == pytest.approx(r.q_factor, rel=0.03)  # (fit_fano is unit-agnostic)
 
@@ -165,8 +166,8 @@ def test_command_line_cavity_spectrum_field_and_bic(tmp_path, capsys):
     import h5py
 
     from rgftrans.cli import main
-    from rgftrans.darkstates import resonances
-    from rgftrans.waveguide_config import parse_waveguide
+    from rgftrans.analysis.darkstates import resonances
+    from rgftrans.io.waveguide_config import parse_waveguide
 
     text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()
     text = text.replace("start = 5.0\nstop = 7.0\npoints = 7", "start = 5.7\nstop = 6.1\npoints = 3")
@@ -227,8 +228,8 @@ def test_band_given_in_wavelengths():
     """[frequency] start_um/stop_um are vacuum wavelengths: f = c / lambda (scipy.constants.c)."""
     from pathlib import Path
 
-    from rgftrans.config import ConfigError
-    from rgftrans.waveguide_config import parse_waveguide
+    from rgftrans.errors import ConfigError
+    from rgftrans.io.waveguide_config import parse_waveguide
 
     text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()
     cfg = parse_waveguide(text.replace("start_GHz = 21.2\nstop_GHz = 25.6", "start_um = 12000.0\nstop_um = 14000.0"))

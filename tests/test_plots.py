@@ -13,13 +13,14 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402
 
-from rgftrans._figure_style import axis_display, parameter_name, signed_colour_scale  # noqa: E402
+from rgftrans.plots.style import axis_display, parameter_name, signed_colour_scale  # noqa: E402
 from rgftrans.cli import EXIT_BAD_INPUT, EXIT_OK, main  # noqa: E402
-from rgftrans.config import parse_config  # noqa: E402
+from rgftrans.io.config import parse_config  # noqa: E402
 from rgftrans.errors import EnergyError, GeometryError  # noqa: E402
-from rgftrans.gates import Gate, GateLayout  # noqa: E402
-from rgftrans.geometry import rectangle  # noqa: E402
-from rgftrans.plots import (  # noqa: E402
+from rgftrans.analysis.light import waveguide_field, waveguide_spectrum  # noqa: E402
+from rgftrans.electrostatics.gates import Gate, GateLayout  # noqa: E402
+from rgftrans.system.geometry import rectangle  # noqa: E402
+from rgftrans.plots.figures import (  # noqa: E402
     plot_currents,
     plot_device,
     plot_gate_potential,
@@ -27,8 +28,8 @@ from rgftrans.plots import (  # noqa: E402
     plot_result,
     plot_transmission,
 )
-from rgftrans.store import StoreError  # noqa: E402
-from rgftrans.sweeps import run_sweep  # noqa: E402
+from rgftrans.errors import StoreError  # noqa: E402
+from rgftrans.io.sweeps import run_sweep  # noqa: E402
 
 #: A label carries its unit in parentheses at the end: "upper gate voltage (mV)".
 UNIT_IN_PARENTHESES = re.compile(r"\([^()]+\)$")
@@ -240,7 +241,7 @@ def test_gate_map_refuses_a_reversed_window():
 
 
 def test_maps_and_currents_label_positions_and_give_an_arrow_key(model_and_device, figure_dir):
-    from rgftrans.local import bond_currents, local_quantities, scattering_states
+    from rgftrans.transport.local import bond_currents, local_quantities, scattering_states
 
     model, _ = model_and_device
     local = local_quantities(model, 6.5)
@@ -256,7 +257,7 @@ def test_maps_and_currents_label_positions_and_give_an_arrow_key(model_and_devic
 
 
 def test_transmission_figure_labels(model_and_device):
-    from rgftrans.rgf import transmission
+    from rgftrans.transport.rgf import transmission
 
     model, _ = model_and_device
     fig, ax = plot_transmission(transmission(model, np.linspace(5.0, 8.0, 7)))
@@ -280,7 +281,7 @@ def test_two_gate_sweep_draws_the_map_first_gate_on_x(files, figure_dir):
 
 
 def test_map_shows_the_chosen_temperature(files):
-    from rgftrans.store import read_result
+    from rgftrans.io.store import read_result
 
     data = read_result(files["two"])
     k = int(np.argmin(np.abs(data.energies_meV - 6.5)))
@@ -338,7 +339,7 @@ def test_command_line_plot_energy_inf_is_one_line(files, capsys):
 
 
 def test_command_line_plot_of_a_file_without_points(tmp_path, capsys):
-    from rgftrans.sweeps import _open_result, _Journal  # the sweep's own layout, with nothing computed
+    from rgftrans.io.sweeps import _open_result, _Journal  # the sweep's own layout, with nothing computed
 
     path = tmp_path / "empty.h5"
     cfg = parse_config(CONFIG.format(sweep=ONE_GATE, out=path))
@@ -353,18 +354,18 @@ def test_command_line_plot_of_a_file_without_points(tmp_path, capsys):
 # --- the waveguide: its own units ----------------------------------------------------------------------------
 @pytest.fixture(scope="module")
 def waveguide():
-    from rgftrans.photonic import Dielectric, Port, Waveguide
-    from rgftrans.geometry import disk
+    from rgftrans.system.photonic import Dielectric, Port, Waveguide
+    from rgftrans.system.geometry import disk
 
     # Invented 20 mm x 8 mm guide with a dielectric puck; cutoff of the first mode c / (2 * 8 mm) = 18.7 GHz.
     guide = Waveguide(rectangle(0, 0, 20, 8), [Port("inlet", "left", (0, 8)), Port("outlet", "right", (0, 8))],
                       spacing=0.5, unit="mm", dielectrics=[Dielectric(disk((10, 4), 2), 4.0, name="puck")])
     pm = guide.discretise()
-    return pm, pm.spectrum(np.linspace(19.0, 24.0, 11))
+    return pm, waveguide_spectrum(pm, np.linspace(19.0, 24.0, 11))
 
 
 def test_waveguide_spectrum_and_field_say_GHz_and_mm(waveguide, figure_dir):
-    from rgftrans.plots import plot_spectrum, plot_waveguide_field
+    from rgftrans.plots.figures import plot_spectrum, plot_waveguide_field
 
     pm, spectrum = waveguide
     fig, ax = plot_spectrum(spectrum, cutoffs_GHz=pm.cutoffs_GHz(0, 2))
@@ -372,7 +373,7 @@ def test_waveguide_spectrum_and_field_say_GHz_and_mm(waveguide, figure_dir):
     _assert_physical_labels(fig)
     assert ax.get_xlabel() == "frequency (GHz)"
     assert not any("meV" in label for label in _labels(fig))
-    fm = pm.field_map(21.0, 0, 0)
+    fm = waveguide_field(pm, 21.0, 0, 0)
     fig, ax = plot_waveguide_field(pm, np.abs(fm.field), label="|E_z| / incident peak (1)")
     _assert_physical_labels(fig)
     assert (ax.get_xlabel(), ax.get_ylabel()) == ("x position (mm)", "y position (mm)")
@@ -382,8 +383,8 @@ def test_waveguide_spectrum_and_field_say_GHz_and_mm(waveguide, figure_dir):
 def test_waveguide_result_types_carry_frequency_fields():
     import dataclasses
 
-    from rgftrans.photonic import DarkMode, SpectralLine, Spectrum
-    from rgftrans.waveguide_config import WaveguideRun
+    from rgftrans.analysis.light import DarkMode, SpectralLine, Spectrum
+    from rgftrans.io.waveguide_config import WaveguideRun
 
     for cls in (Spectrum, SpectralLine, DarkMode, WaveguideRun):
         names = [f.name for f in dataclasses.fields(cls)]

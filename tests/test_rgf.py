@@ -1,10 +1,10 @@
-"""Tests of rgftrans.rgf: RGF transmission against a direct solve, invariants, energy handling.
+"""Tests of rgftrans.transport.rgf: RGF transmission against a direct solve, invariants, energy handling.
 
 Outside sources (all from memory):
 
 * Caroli / Fisher-Lee: T = Tr[Gamma_R G_RL Gamma_L G_RL^dag] (C. Caroli et al.,
   J. Phys. C 4, 916 (1971); D. S. Fisher & P. A. Lee, Phys. Rev. B 23, 6851
-  (1981)).  The reference path ``rgftrans.direct.transmission_direct``
+  (1981)).  The reference path ``rgftrans.transport.direct.transmission_direct``
   evaluates it from the interface block of G = (E - H - Sigma)^-1 obtained by
   scipy.sparse.linalg.splu (SuperLU), sharing none of the recursion.
 * Landauer-Buettiker unitarity: the flux-normalised S matrix is unitary, so
@@ -44,9 +44,9 @@ from builders import (
     strip_device,
     swapped_leads,
 )
-from rgftrans.direct import scattering_matrix, transmission_direct
+from rgftrans.transport.direct import scattering_matrix, transmission_direct
 from rgftrans.errors import EnergyError, LeadError, ThresholdWarning
-from rgftrans.rgf import layer_blocks, transmission
+from rgftrans.transport.rgf import layer_blocks, transmission
 
 #: RGF vs direct LU.  Both are exact up to round-off: RGF inverts ~L dense
 #: layer blocks in sequence, SuperLU factorises the whole matrix once.  For
@@ -200,7 +200,7 @@ def test_slicing_independence_on_larger_devices(seed):
 
 def test_layer_blocks_rejects_a_slicing_that_skips_a_layer():
     # A bond between layers 0 and 2 breaks block-tridiagonality; refuse, do not compute.
-    from rgftrans.slicing import Slicing
+    from rgftrans.transport.slicing import Slicing
 
     model = strip_device(2, 3).discretise()
     columns = default_slicing(model).layers
@@ -226,7 +226,7 @@ def test_bad_energies_raise_one_line_energy_error(solver, energies, match):
 
 
 def test_transmission_needs_two_leads():
-    from rgftrans.device import TightBindingModel
+    from rgftrans.system.device import TightBindingModel
 
     model = strip_device(2, 3).discretise()
     one_lead = TightBindingModel(model.hamiltonian, model.positions, model.leads[:1], model.energy_scale)
@@ -275,10 +275,10 @@ def test_singular_partial_system_falls_back_to_a_direct_solve():
     """A 3x2 patch with one-row leads at E = onsite: the left-connected block of the first two columns is exactly
     singular (a bound state of that partial system), while the whole open system is regular.  The recursion must
     not crash and must give the sparse-LU value (scipy), here and just beside it."""
-    from rgftrans.device import Device, Lead
-    from rgftrans.geometry import rectangle
-    from rgftrans.lattices import square
-    from rgftrans.rgf import transmission_matrix
+    from rgftrans.system.device import Device, Lead
+    from rgftrans.system.geometry import rectangle
+    from rgftrans.system.lattices import square
+    from rgftrans.transport.rgf import transmission_matrix
 
     model = Device(rectangle(0, 0, 2, 1), [Lead("s", "left", (0, 0)), Lead("d", "right", (0, 0))],
                    lattice=square(1.0), hopping=1.0).discretise()
@@ -294,10 +294,10 @@ def test_energy_exactly_on_a_bound_state_in_the_continuum():
     E - H - Sigma is exactly singular there (scipy's splu refuses it).  T is continuous across it, so the value
     at E (computed just above the axis, with a warning) must match the average of its neighbours E +- 1e-6 to
     1e-5 (T varies by O(1e-6) over that step away from a resonance of finite width)."""
-    from rgftrans.device import Device, Lead
+    from rgftrans.system.device import Device, Lead
     from rgftrans.errors import ThresholdWarning
-    from rgftrans.geometry import rectangle
-    from rgftrans.lattices import square
+    from rgftrans.system.geometry import rectangle
+    from rgftrans.system.lattices import square
 
     model = Device(rectangle(0, 0, 2, 2), [Lead("s", "left", (0, 0)), Lead("d", "right", (1, 1))],
                    lattice=square(1.0), hopping=1.0).discretise()

@@ -1,4 +1,4 @@
-"""Tests of rgftrans.slicing: the block-tridiagonal partition RGF relies on.
+"""Tests of rgftrans.transport.slicing: the block-tridiagonal partition RGF relies on.
 
 What a valid two-terminal slicing is (the RGF recursion's preconditions; see
 e.g. Wimmer & Richter, J. Comput. Phys. 228, 8548 (2009), from memory):
@@ -19,8 +19,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 
 from builders import random_device, small_devices, strip_device
-from rgftrans.rgf import layer_blocks
-from rgftrans.slicing import Slicing, slice_layers
+from rgftrans.transport.rgf import layer_blocks
+from rgftrans.transport.slicing import Slicing, slice_layers
 
 
 def _slicing(model) -> Slicing:
@@ -145,11 +145,11 @@ def _valid(model, slicing):
 @pytest.mark.parametrize("sides", [("left", "left"), ("top", "top"), ("left", "top"), ("bottom", "right")])
 def test_two_leads_on_the_same_or_adjacent_sides_slice_validly_and_compactly(sides):
     """Leads on one side or on adjacent sides: a valid slicing whose widest layer stays well below the site count."""
-    from rgftrans.device import Device, Lead
-    from rgftrans.geometry import rectangle
-    from rgftrans.lattices import square
-    from rgftrans.rgf import transmission
-    from rgftrans.direct import transmission_direct
+    from rgftrans.system.device import Device, Lead
+    from rgftrans.system.geometry import rectangle
+    from rgftrans.system.lattices import square
+    from rgftrans.transport.rgf import transmission
+    from rgftrans.transport.direct import transmission_direct
 
     spans = {"left": [(2, 10), (22, 30)], "top": [(3, 12), (30, 40)], "bottom": [(3, 12)], "right": [(20, 30)]}
     leads = [Lead("a", sides[0], spans[sides[0]][0]),

@@ -1,4 +1,4 @@
-"""The HDF5 result file (rgftrans.store): layout, round trips, resume, and refusal of bad files.
+"""The HDF5 result file (rgftrans.io.store): layout, round trips, resume, and refusal of bad files.
 
 Expectations come from the file layout documented in rgftrans/store.py and
 from the conventions other readers rely on: HDF5 dimension scales (h5py
@@ -15,19 +15,8 @@ import pytest
 
 from rgftrans import __version__
 from rgftrans.errors import RgftransError
-from rgftrans.store import (
-    FORMAT_NAME,
-    SCHEMA_VERSION,
-    Axis,
-    QuantitySpec,
-    ResultFile,
-    StoreError,
-    OutputLock,
-    lock_owner,
-    read_result,
-    summary,
-    validate,
-)
+from rgftrans.io.store import FORMAT_NAME, SCHEMA_VERSION, Axis, QuantitySpec, ResultFile, OutputLock, lock_owner, read_result, summary, validate
+from rgftrans.errors import StoreError
 
 LEADS = ["source", "drain"]
 ENERGIES = np.linspace(0.5, 2.5, 7)  # meV
@@ -507,7 +496,7 @@ def test_readers_work_while_a_writer_holds_the_file_and_a_second_writer_is_refus
     path = make_file(tmp_path / "running.h5", 1, points=[(0,)])
     # Another process holds the write lock and the file open for writing, as a running sweep does.
     holder = subprocess.Popen(
-        [sys.executable, "-c", "import h5py, sys; from rgftrans.store import OutputLock; "
+        [sys.executable, "-c", "import h5py, sys; from rgftrans.io.store import OutputLock; "
          "lock = OutputLock(sys.argv[1]).__enter__(); f = h5py.File(sys.argv[1], 'r+'); print('open', flush=True); "
          "sys.stdin.read()", str(path)],
         stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,

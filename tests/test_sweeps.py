@@ -14,11 +14,12 @@ import h5py
 import numpy as np
 import pytest
 
-from rgftrans.config import parse_config
+from rgftrans.io.config import parse_config
 from rgftrans.errors import RgftransError
-from rgftrans.rgf import transmission
-from rgftrans.store import StoreError, read_result
-from rgftrans.sweeps import axis_dataset_name, compute_point, grid_points, run_sweep
+from rgftrans.transport.rgf import transmission
+from rgftrans.io.store import read_result
+from rgftrans.errors import StoreError
+from rgftrans.io.sweeps import axis_dataset_name, compute_point, grid_points, run_sweep
 
 CONFIG = """
 [lattice]
@@ -92,8 +93,8 @@ def test_stored_conductance_per_temperature_and_spin(tmp_path):
     Landauer-Büttiker (common practice, no source): G = (2e^2/h) T for a spinless model, (e^2/h) T when T
     counts both spins; without Zeeman the two models describe the same wire.
     """
-    from rgftrans.materials import CONDUCTANCE_QUANTUM_S
-    from rgftrans.thermal import thermal_conductance
+    from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
+    from rgftrans.analysis.thermal import thermal_conductance
 
     temps = "[temperature]\nkelvin = [0.0, 0.5]\n"
     plain = read_result(run_sweep(config(tmp_path, "plain.h5", n_e=40, extra=temps), quiet=True, workers=1).path)
@@ -121,7 +122,7 @@ def test_stored_conductance_per_temperature_and_spin(tmp_path):
 def test_refined_sweep_conductance_matches_a_dense_grid(tmp_path):
     """[energy] refine_tolerance: the stored G(mu, T) on a coarse grid equals that of a 40x denser grid.
 
-    Reference: the same thermal integral (rgftrans.thermal, checked against closed forms in its own tests) on
+    Reference: the same thermal integral (rgftrans.analysis.thermal, checked against closed forms in its own tests) on
     a dense grid, whose interpolation error h^2 max|T''| / 8 is far below the tolerance; the refined result
     must agree to about the refinement tolerance (2e-3 here), the unrefined coarse grid must not.
     """
@@ -334,7 +335,7 @@ def test_a_second_writer_is_refused_while_the_first_runs(tmp_path):
     cfg = config(tmp_path)
     path = tmp_path / "sweep.h5"
     holder = subprocess.Popen(
-        [sys.executable, "-c", "import sys; from rgftrans.store import OutputLock; "
+        [sys.executable, "-c", "import sys; from rgftrans.io.store import OutputLock; "
          "lock = OutputLock(sys.argv[1]).__enter__(); print('locked', flush=True); sys.stdin.read()", str(path)],
         stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
     try:

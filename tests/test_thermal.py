@@ -1,4 +1,4 @@
-"""Unit tests of rgftrans.thermal: Fermi functions, thermal conductance, Landauer current, warnings, errors.
+"""Unit tests of rgftrans.analysis.thermal: Fermi functions, thermal conductance, Landauer current, warnings, errors.
 
 Sources named beside the assertions: "Landauer" is the finite-bias Landauer
 formula I = (2e/h) ∫ T (f_L - f_R) dE (Datta 1995 ch. 2, from memory; common
@@ -14,8 +14,8 @@ import pytest
 from scipy.integrate import quad
 
 from rgftrans.errors import EnergyError, ResolutionWarning, RgftransError
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S
-from rgftrans.thermal import (
+from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
+from rgftrans.analysis.thermal import (
     BOLTZMANN_MEV_PER_K,
     fermi,
     fermi_window,

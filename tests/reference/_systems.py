@@ -4,7 +4,7 @@ Energy conventions
 ------------------
 /work/shared/reference-checks.md states its checks with onsite energy 0 (1D
 band [-2t, 2t], square-lattice band [-4t, 4t]) unless it says "effective-mass
-convention".  A model discretised by :class:`rgftrans.device.Device` always has
+convention".  A model discretised by :class:`rgftrans.system.device.Device` always has
 the effective-mass onsite ``4t + U(x, y)`` (coordination 4 on the square
 lattice), also for a one-row chain.  Hence, for a model built by ``Device``:
 
@@ -19,9 +19,9 @@ need no shift.
 import numpy as np
 import scipy.sparse as sp
 
-from rgftrans.device import Device, Lead, LeadModel, TightBindingModel
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
+from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
 
 #: Device onsite 4t (t = 1) against the reference's onsite 0.
 ONSITE_SHIFT = 4.0

@@ -16,8 +16,8 @@ import pytest
 from scipy.optimize import brentq
 
 from _systems import ONSITE_SHIFT, chain_device, chain_lead, hand_model
-from rgftrans.direct import scattering_matrix, transmission_direct
-from rgftrans.rgf import transmission
+from rgftrans.transport.direct import scattering_matrix, transmission_direct
+from rgftrans.transport.rgf import transmission
 
 #: reference-checks §2 "Tolerance": 1e-12 on T against the closed form.
 TOL_T = 1e-12

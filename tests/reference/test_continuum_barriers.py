@@ -22,8 +22,8 @@ import numpy as np
 import pytest
 
 from _systems import CHAIN_EFFECTIVE_MASS_SHIFT, chain_device
-from rgftrans.direct import transmission_direct
-from rgftrans.rgf import transmission
+from rgftrans.transport.direct import transmission_direct
+from rgftrans.transport.rgf import transmission
 
 # --- Eckart barrier -------------------------------------------------------------------------------
 

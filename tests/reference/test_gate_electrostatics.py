@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 from scipy.integrate import dblquad
 
-from rgftrans.gates import POLYGON_METHODS, Gate, gate_potential, solid_angle_polygon
-from rgftrans.geometry import polygon, rectangle
+from rgftrans.electrostatics.gates import POLYGON_METHODS, Gate, gate_potential, solid_angle_polygon
+from rgftrans.system.geometry import polygon, rectangle
 
 D = 50.0  # nm, the 2DEG depth used throughout §11
 

@@ -12,11 +12,11 @@
 import numpy as np
 import pytest
 
-from rgftrans.device import Device, Lead
-from rgftrans.direct import transmission_direct
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import honeycomb
-from rgftrans.rgf import transmission
+from rgftrans.system.device import Device, Lead
+from rgftrans.transport.direct import transmission_direct
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import honeycomb
+from rgftrans.transport.rgf import transmission
 
 
 @pytest.mark.parametrize("chains", [3, 5, 8])

@@ -17,11 +17,11 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from rgftrans.device import Device, Lead
-from rgftrans.fields import FLUX_PHASE_PER_T_NM2
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.rgf import four_terminal_resistance, transmission_matrix
+from rgftrans.system.device import Device, Lead
+from rgftrans.system.fields import FLUX_PHASE_PER_T_NM2
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.rgf import four_terminal_resistance, transmission_matrix
 
 PHI = 0.05
 B_TESLA = PHI * constants.h / constants.e / 1e-18  # B a^2 = phi h/e with a = 1 nm

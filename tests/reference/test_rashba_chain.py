@@ -13,11 +13,11 @@ k = +-arccos((4t - E)/(2t')) +- theta.
 import numpy as np
 import pytest
 
-from rgftrans.device import Device, Lead
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.leads import lead_modes
-from rgftrans.rgf import transmission
+from rgftrans.system.device import Device, Lead
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.leads.modes import lead_modes
+from rgftrans.transport.rgf import transmission
 
 
 def wire(alpha, potential=0.0):
@@ -42,7 +42,7 @@ def test_bloch_phases_of_the_rashba_wire(alpha, energy):
 
 def test_rashba_wire_with_a_barrier_conserves_flux_and_needs_spin():
     """A barrier in a Rashba wire: T stays within [0, 2] and equals the sparse-LU value (scipy)."""
-    from rgftrans.direct import scattering_matrix, transmission_direct
+    from rgftrans.transport.direct import scattering_matrix, transmission_direct
 
     model = wire(0.8, potential=lambda x, y: np.where((x > 3) & (x < 6), 0.7, 0.0))
     e = [3.2, 4.4]

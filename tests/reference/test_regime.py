@@ -18,11 +18,11 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from rgftrans.device import Device, Lead
+from rgftrans.system.device import Device, Lead
 from rgftrans.errors import ValidityWarning
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.regime import disk_charging_energy_meV, dot_area_nm2, level_spacing_meV, regime_estimate
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.analysis.regime import disk_charging_energy_meV, dot_area_nm2, level_spacing_meV, regime_estimate
 
 MEV = 1e-3 * constants.e
 NM = 1e-9

@@ -17,9 +17,9 @@ import pytest
 
 from _systems import chain_lead, hand_model
 from rgftrans.errors import ResolutionWarning
-from rgftrans.resolution import refine, refined_transmission, sharp_features, warn_unresolved_resonances
-from rgftrans.rgf import transmission
-from rgftrans.thermal import conductance_on_grid
+from rgftrans.analysis.resolution import refine, refined_transmission, sharp_features, warn_unresolved_resonances
+from rgftrans.transport.rgf import transmission
+from rgftrans.analysis.thermal import conductance_on_grid
 
 EPS_D, T_LINK = 0.33, 0.1
 E_RES = EPS_D / (1 - T_LINK**2)

@@ -19,13 +19,13 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from rgftrans.device import Device, Lead
-from rgftrans.fields import Disorder, MagneticField
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.materials import CONDUCTANCE_QUANTUM_S, Material
-from rgftrans.rgf import four_terminal_resistance, transmission, transmission_matrix
-from rgftrans.thermal import conductance_on_grid, landauer_current, thermal_conductance
+from rgftrans.system.device import Device, Lead
+from rgftrans.system.fields import Disorder, MagneticField
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S, Material
+from rgftrans.transport.rgf import four_terminal_resistance, transmission, transmission_matrix
+from rgftrans.analysis.thermal import conductance_on_grid, landauer_current, thermal_conductance
 
 #: Device onsite 4t against the onsite-0 reference spectrum.
 ONSITE_SHIFT = 4.0
@@ -150,7 +150,7 @@ def test_temperature_and_bias_agree():
 
 def test_wrong_spin_degeneracy_is_refused():
     from rgftrans.errors import RgftransError
-    from rgftrans.materials import conductance_g0
+    from rgftrans.system.materials import conductance_g0
 
     with pytest.raises(RgftransError, match="spin_degeneracy must be 1"):
         conductance_g0(1.0, 4)

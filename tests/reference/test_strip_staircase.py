@@ -18,10 +18,10 @@ import numpy as np
 import pytest
 
 from _systems import ONSITE_SHIFT, strip_device
-from rgftrans.direct import transmission_direct
+from rgftrans.transport.direct import transmission_direct
 from rgftrans.errors import ThresholdWarning
-from rgftrans.leads import lead_modes
-from rgftrans.rgf import transmission
+from rgftrans.leads.modes import lead_modes
+from rgftrans.transport.rgf import transmission
 
 #: reference-checks §3 "Tolerance": |T - N| < 1e-8 at least 1e-6 away from the thresholds.
 TOL_T = 1e-8

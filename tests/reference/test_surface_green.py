@@ -23,8 +23,8 @@ import pytest
 
 from _systems import ONSITE_SHIFT, strip_device
 from rgftrans.errors import EnergyError, ThresholdWarning
-from rgftrans.leads import lead_modes, surface_green_decimation, surface_green_modes
-from rgftrans.rgf import transmission
+from rgftrans.leads.modes import lead_modes, surface_green_decimation, surface_green_modes
+from rgftrans.transport.rgf import transmission
 
 #: Closed form against package at the same (complex) energy: reference-checks §1 "Tolerance".
 TOL_CLOSED = 1e-12

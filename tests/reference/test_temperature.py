@@ -8,7 +8,7 @@ file's own evaluation) and section 10 (k_B T from scipy.constants, CODATA).
 Tabulated values are copied from there; closed forms are evaluated here.
 
 How the package integrates: T(E) is taken as the piecewise-linear interpolant
-of its samples and integrated exactly against -df/dE (rgftrans.thermal), so
+of its samples and integrated exactly against -df/dE (rgftrans.analysis.thermal), so
 its only quadrature error is the interpolation error, whose leading term on a
 cell [a, b] of width h is (h²/12) ∫ T'' (-f') dE.  The Breit-Wigner tests
 evaluate that term for their grid and set the tolerance from it.
@@ -20,7 +20,7 @@ from scipy.integrate import quad
 from scipy.optimize import brentq
 from scipy.special import expit, polygamma, psi, zeta
 
-from rgftrans.thermal import BOLTZMANN_MEV_PER_K, fermi, fermi_window, thermal_conductance, thermal_energy_meV
+from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K, fermi, fermi_window, thermal_conductance, thermal_energy_meV
 
 #: Values quoted to 12 decimals: half a unit of the last digit.
 HALF_ULP_12 = 5e-13

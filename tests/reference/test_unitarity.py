@@ -32,12 +32,12 @@ from _systems import (
     site_table_potential,
     strip_device,
 )
-from rgftrans.device import Device, Lead
-from rgftrans.direct import interface_green, scattering_matrix, transmission_direct
+from rgftrans.system.device import Device, Lead
+from rgftrans.transport.direct import interface_green, scattering_matrix, transmission_direct
 from rgftrans.errors import RgftransError, ThresholdWarning
-from rgftrans.geometry import rectangle
-from rgftrans.lattices import square
-from rgftrans.rgf import transmission
+from rgftrans.system.geometry import rectangle
+from rgftrans.system.lattices import square
+from rgftrans.transport.rgf import transmission
 
 #: reference-checks §4 "Tolerance" for dense/direct solves and short RGF.
 TOL = 1e-10

@@ -1,0 +1,78 @@
+"""What the computed transport means: temperature, regime, resolution, resonances and dark states.
+
+Thermal averages and bias currents, the regime estimate (coherent or Coulomb
+blockade), energy-grid resolution checks and refinement, resonance poles,
+Fano fits, and the search for bound states in the continuum along one
+parameter or over a plane.  Everything takes models or builders of models
+and returns results; nothing here opens a file (reading and writing stored
+sweeps is ``io``).  Builds on ``transport``.
+"""
+
+from rgftrans._lazy import lazy_exports
+
+#: Public name -> module of this subpackage that defines it.
+_EXPORTS = {
+    "CouplingResiduals": "bic2d",
+    "coupling_residuals": "bic2d",
+    "Bic2D": "bic2d",
+    "locate_bic_2d": "bic2d",
+    "explain": "bic2d",
+    "GridSearch": "bic2d",
+    "search_grid": "bic2d",
+    "plane_seeds": "bic2d",
+    "Resonance": "darkstates",
+    "effective_hamiltonian": "darkstates",
+    "resonances": "darkstates",
+    "CouplingDiagnostics": "darkstates",
+    "coupling_diagnostics": "darkstates",
+    "FanoFit": "darkstates",
+    "fano_profile": "darkstates",
+    "fit_fano": "darkstates",
+    "find_resonances": "darkstates",
+    "Track": "darkstates",
+    "track_resonance": "darkstates",
+    "BicLocation": "darkstates",
+    "locate_bic": "darkstates",
+    "follow_pole": "darkstates",
+    "inside_window": "darkstates",
+    "follow_at": "darkstates",
+    "progress_bar": "darkstates",
+    "report_beside": "darkstates",
+    "Spectrum": "light",
+    "FieldMap": "light",
+    "PhotonicResonance": "light",
+    "SpectralLine": "light",
+    "DarkMode": "light",
+    "waveguide_spectrum": "light",
+    "waveguide_field": "light",
+    "waveguide_resonances": "light",
+    "RegimeEstimate": "regime",
+    "level_spacing_meV": "regime",
+    "disk_charging_energy_meV": "regime",
+    "dot_area_nm2": "regime",
+    "typical_level_width_meV": "regime",
+    "mean_conductance_g0": "regime",
+    "regime_estimate": "regime",
+    "MIN_POINTS_PER_WIDTH": "resolution",
+    "SPIKE_JUMP": "resolution",
+    "RefinedSampling": "resolution",
+    "refine": "resolution",
+    "refined_transmission": "resolution",
+    "sharp_features": "resolution",
+    "warn_energies_outside_leads": "resolution",
+    "warn_sharp_features": "resolution",
+    "warn_unresolved_resonances": "resolution",
+    "window_poles": "resolution",
+    "BOLTZMANN_MEV_PER_K": "thermal",
+    "CurrentResult": "thermal",
+    "ThermalConductanceResult": "thermal",
+    "conductance_on_grid": "thermal",
+    "warn_grid_for_temperatures": "thermal",
+    "fermi": "thermal",
+    "fermi_window": "thermal",
+    "landauer_current": "thermal",
+    "thermal_conductance": "thermal",
+    "thermal_energy_meV": "thermal",
+}
+__all__ = list(_EXPORTS)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -1,0 +1,71 @@
+"""Embedding leads into a device: self-energies on the interface, broadenings, the device energy.
+
+Both transport solvers (RGF and the sparse direct reference) and the local
+quantities need the same few steps: the self-energy ``Sigma_p = V g_surface V^dag``
+of each lead on its interface sites, its broadening ``Gamma_p = i (Sigma_p - Sigma_p^dag)``
+and a factor ``W_p`` with ``Gamma_p = W_p W_p^dag`` (one column per open channel),
+and the complex energy at which the device is evaluated (shifted into the upper
+half plane when a lead sits on a channel threshold).  Energies in meV.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from rgftrans.errors import ThresholdWarning
+from rgftrans.leads.modes import lead_modes
+from rgftrans.system.device import TightBindingModel
+
+__all__ = ["lead_self_energies", "device_energy", "broadening", "gamma_columns", "warn_thresholds"]
+
+
+def lead_self_energies(model: TightBindingModel, energy: float, *, warn: bool = True):
+    """Self-energies ``Sigma_p = V g_surface V^dag`` on each lead's interface sites.
+
+    Returns
+    -------
+    sigmas : list of (k_p, k_p) complex ndarray, meV
+    modes : list of LeadModes
+    """
+    sigmas, modes = [], []
+    for lead in model.leads:
+        m = lead_modes(lead.h_cell, lead.h_hop, energy, warn=warn)
+        v = lead.coupling
+        sigmas.append(v @ m.g_surface @ v.conj().T)
+        modes.append(m)
+    return sigmas, modes
+
+
+def warn_thresholds(energies: np.ndarray, flagged: np.ndarray) -> None:
+    """One ThresholdWarning for all energies of a call that sat on a lead channel threshold."""
+    if np.any(flagged):
+        warnings.warn(
+            f"{np.count_nonzero(flagged)} energy point(s) sit on a lead channel threshold (e.g. E = "
+            f"{energies[flagged][0]:.10g} meV); they were computed slightly above the real axis -- shift the "
+            "energy grid to avoid band edges",
+            ThresholdWarning,
+            stacklevel=3,
+        )
+
+
+def device_energy(energy: float, modes, eta: float = 0.0) -> complex:
+    """Complex energy for the device: ``E + i eta``, or the shifted energy of a lead on a threshold."""
+    shifted = [m.energy for m in modes if m.at_threshold]
+    return (complex(shifted[0]) if shifted else complex(energy)) + 1j * eta
+
+
+def broadening(sigma: np.ndarray) -> np.ndarray:
+    """The broadening ``Gamma = i (Sigma - Sigma^dag)`` of a lead (Hermitian, positive semidefinite), meV."""
+    return 1j * (sigma - sigma.conj().T)
+
+
+_GAMMA_RANK_TOL = 1e-12
+
+
+def gamma_columns(gamma: np.ndarray) -> np.ndarray:
+    """``W`` with ``Gamma = W W^dag``, one column per nonzero eigenvalue (open channel)."""
+    w, u = np.linalg.eigh(gamma)
+    keep = w > _GAMMA_RANK_TOL * max(w.max(initial=0.0), 1e-300)
+    return u[:, keep] * np.sqrt(w[keep])

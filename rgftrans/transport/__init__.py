@@ -1,0 +1,36 @@
+"""Transport solvers: slicing into layers, recursive Green's functions, the sparse direct reference.
+
+:func:`transmission` and :func:`transmission_matrix` (RGF over the layers of
+:func:`slice_layers`, numba kernels), :func:`transmission_direct` and
+:func:`scattering_matrix` (sparse LU, the independent reference), and local
+quantities (LDOS, lead-resolved densities, scattering states, bond currents).
+Builds on ``leads`` and ``system``.
+"""
+
+from rgftrans._lazy import lazy_exports
+
+#: Public name -> module of this subpackage that defines it.
+_EXPORTS = {
+    "interface_green": "direct",
+    "transmission_direct": "direct",
+    "ScatteringMatrix": "direct",
+    "scattering_matrix": "direct",
+    "LocalResult": "local",
+    "local_quantities": "local",
+    "ldos": "local",
+    "ScatteringStates": "local",
+    "scattering_states": "local",
+    "bond_currents": "local",
+    "TransmissionResult": "rgf",
+    "transmission": "rgf",
+    "layer_blocks": "rgf",
+    "GreenBlocks": "rgf",
+    "green_blocks": "rgf",
+    "TransmissionMatrixResult": "rgf",
+    "transmission_matrix": "rgf",
+    "four_terminal_resistance": "rgf",
+    "Slicing": "slicing",
+    "slice_layers": "slicing",
+}
+__all__ = list(_EXPORTS)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)
