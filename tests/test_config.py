@@ -22,8 +22,12 @@ from rgftrans.electrostatics.gates import GateLayout
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"
 
-#: E_F of a GaAs 2DEG (m* = 0.067) at n = 2e11 cm^-2: /work/shared/reference-checks.md §10.
+#: E_F = pi hbar^2 n / m* of a spin-degenerate GaAs 2DEG at n = 2e11 cm^-2 (J. H. Davies, The Physics of
+#: Low-Dimensional Semiconductors, CUP 1998, from memory), with m* = 0.067 m_e (I. Vurgaftman, J. R. Meyer,
+#: L. R. Ram-Mohan, J. Appl. Phys. 89, 5815 (2001), from memory) and CODATA constants from scipy.constants:
+#: 7.145917 meV is our own evaluation (same value as in tests/test_materials.py).
 E_F_GAAS_2E11_MEV = 7.145917
+#: The value is quoted to 7 significant digits (rounding <= 7e-8 relative); 1e-6 relative is that plus margin.
 E_F_RTOL = 1e-6
 
 #: configs/gated_dot.toml in the schema's sweep form: its old [sweep] table (gate, start_V, stop_V,
@@ -535,4 +539,5 @@ def test_custom_material_sets_the_hopping():
     config = parse_config(toml(material='[material]\nname = "heavy"\nm_eff = 0.134\ng_factor = -0.44\n'
                                         'eps_r = 12.9\n'))
     gaas = parse_config(toml())
+    # t = hbar^2/(2 m* a^2) (Datta 1995 ch. 3, from memory): doubling m* halves t; 1e-12 relative = rounding.
     assert config.build_device().t == pytest.approx(gaas.build_device().t / 2.0, rel=1e-12)

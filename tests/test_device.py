@@ -6,9 +6,9 @@ Outside sources:
   t = hbar^2 / (2 m* a^2), onsite 4t + U so the band bottom sits at zero.
   GaAs m* = 0.067 m_e (Vurgaftman, Meyer & Ram-Mohan, J. Appl. Phys. 89,
   5815 (2001), from memory) gives t = 22.746162 meV at a = 5 nm and
-  5.686540 meV at a = 10 nm (shared reference-checks.md, section 10, from
-  scipy.constants, CODATA 2022).  The table quotes six decimals, so it is
-  matched to its own rounding, ABS_TABLE; the formula itself is recomputed
+  5.686540 meV at a = 10 nm (our own evaluation with scipy.constants,
+  CODATA 2022).  These values quote six decimals, so they are
+  matched to their own rounding, ABS_TABLE; the formula itself is recomputed
   from scipy.constants and matched to REL_ROUNDOFF.
 * Counting lattice points: a closed interval [x0, x1] holds
   floor(x1/a) - ceil(x0/a) + 1 points of the lattice a Z (boundary included).

@@ -1,4 +1,14 @@
-"""Field, spin and disorder terms: gauge invariance, Onsager reciprocity, Zeeman, spin degeneracy, disorder."""
+"""Field, spin and disorder terms: gauge invariance, Onsager reciprocity, Zeeman, spin degeneracy, disorder.
+
+Sources (from memory where recalled): Peierls phase, R. Peierls, Z. Phys. 80, 763 (1933); reciprocity
+T_pq(B) = T_qp(-B), M. Buttiker, PRL 57, 1761 (1986); gauge invariance of observables and independent spin
+copies without spin-dependent terms are common practice, no source; mu_B is CODATA via scipy.constants; GaAs
+g = -0.44 is the preset's handbook value (see rgftrans.system.materials).
+
+Tolerances: two independent solves (RGF against sparse LU, or two gauges/orientations of the same device)
+agree to round-off (double precision; a few-hundred-site device accumulates far less than 1e-10); 1e-10 (1e-9 for the larger
+multi-terminal and disordered cases, where several leads' eigen-solves add up) is that with margin.
+"""
 
 import numpy as np
 import pytest
@@ -37,8 +47,9 @@ def test_gauge_choice_does_not_change_transmission(tesla):
     """A rotation moves each lead to the other kind of gauge region; T must not notice (gauge invariance)."""
     t_a = transmission(dot(tesla).discretise(), ENERGIES).transmission
     t_b = transmission(rotated_dot(tesla).discretise(), ENERGIES).transmission
-    assert np.allclose(t_a, t_b, atol=1e-10)
-    # and the field does something: the check is not comparing zero-field copies
+    assert np.allclose(t_a, t_b, atol=1e-10)  # round-off of two independent solves (module docstring)
+    # and the field does something: the check is not comparing zero-field copies (1e-3: our choice, far above
+    # round-off)
     assert np.abs(t_a - transmission(dot(0.0).discretise(), ENERGIES).transmission).max() > 1e-3
 
 
@@ -46,7 +57,7 @@ def test_two_terminal_onsager():
     """G(B) = G(-B) for two terminals (Onsager; Büttiker, PRL 57, 1761 (1986), from memory)."""
     t_p = transmission(dot(1.3).discretise(), ENERGIES).transmission
     t_m = transmission(dot(-1.3).discretise(), ENERGIES).transmission
-    assert np.allclose(t_p, t_m, atol=1e-10)
+    assert np.allclose(t_p, t_m, atol=1e-10)  # round-off (module docstring)
 
 
 def test_multiterminal_reciprocity_and_its_breaking():
@@ -59,12 +70,15 @@ def test_multiterminal_reciprocity_and_its_breaking():
         return transmission_matrix(dev.discretise(), [3.0, 5.5]).transmission
 
     t_p, t_m = tm(1.1), tm(-1.1)
-    assert np.allclose(t_p, np.swapaxes(t_m, 1, 2), atol=1e-9)
+    assert np.allclose(t_p, np.swapaxes(t_m, 1, 2), atol=1e-9)  # round-off, three leads (module docstring)
     off = ~np.eye(3, dtype=bool)
+    # Reciprocity can be broken for three terminals (Buttiker 1986): 1e-3 shows the check above is not empty.
     assert np.abs(t_p[:, off] - t_m[:, off]).max() > 1e-3
 
 
 def test_rgf_matches_sparse_lu_with_field_spin_rashba_and_disorder():
+    # Two independent solvers of the same Caroli formula (Caroli et al., J. Phys. C 4, 916 (1971), from
+    # memory); round-off, 1e-9 (module docstring).
     model = dot(0.6, spin=True, rashba=15.0, disorder=Disorder(3.0, seed=5)).discretise()
     assert np.allclose(transmission(model, ENERGIES).transmission, transmission_direct(model, ENERGIES)[:, 1, 0],
                        atol=1e-9)
@@ -74,7 +88,7 @@ def test_spin_degenerate_transmission_doubles():
     """No Zeeman, no Rashba: the two spins are independent copies (common practice, no source)."""
     t1 = transmission(dot(MagneticField(0.8, zeeman=False)).discretise(), ENERGIES).transmission
     t2 = transmission(dot(MagneticField(0.8, zeeman=False), spin=True).discretise(), ENERGIES).transmission
-    assert np.allclose(t2, 2 * t1, atol=1e-10)
+    assert np.allclose(t2, 2 * t1, atol=1e-10)  # round-off (module docstring)
 
 
 def test_zeeman_splits_the_spins_rigidly():
@@ -86,7 +100,7 @@ def test_zeeman_splits_the_spins_rigidly():
     orbital = dot(tesla).discretise()
     e = np.array(ENERGIES)
     expected = transmission(orbital, e - e_z).transmission + transmission(orbital, e + e_z).transmission
-    assert np.allclose(spinful, expected, atol=1e-10)
+    assert np.allclose(spinful, expected, atol=1e-10)  # exact decoupling, round-off only
 
 
 def test_disorder_is_reproducible_per_site_and_box_distributed():
@@ -128,6 +142,7 @@ def test_triangular_lattice_device_matches_sparse_lu():
                  lattice=triangular(1.0), hopping=1.0, potential=lambda x, y: 0.5 * np.sin(x), field=50.0)
     model = dev.discretise()
     e = [1.5, 4.2, 7.7]
+    # RGF against sparse LU (independent solvers of the Caroli formula); round-off, 1e-9 (module docstring).
     assert np.allclose(transmission(model, e).transmission, transmission_direct(model, e)[:, 1, 0], atol=1e-9)
 
 
@@ -140,4 +155,4 @@ def test_triangular_effective_mass():
 
     dev = Device(rectangle(0, 0, 10, 10), [Lead("l", "left", (0, 10)), Lead("r", "right", (0, 10))],
                  lattice=triangular(2.0))
-    assert dev.t == pytest.approx(2 / 3 * hopping_meV(0.067, 2.0), rel=1e-12)
+    assert dev.t == pytest.approx(2 / 3 * hopping_meV(0.067, 2.0), rel=1e-12)  # same formula, rounding only

@@ -1,10 +1,11 @@
 """Gates: superposition, sign, layouts and sweeps, GDSII input, errors and the plot.
 
 Reference values of the electrostatics live in tests/reference/test_gate_electrostatics.py
-(reference-checks §11); here the checks are invariants of the model (linearity
+(sources named there); here the checks are invariants of the model (linearity
 in V and superposition over gates, which follow from phi = V Omega / 2 pi,
-Davies, Larkin & Sukhorukov 1995), the sign convention U = -e phi (design.md,
-"Semiconductor devices"), and the behaviour of the API.  GDSII fixtures are
+J. H. Davies, I. A. Larkin, E. V. Sukhorukov, J. Appl. Phys. 77, 4504 (1995),
+from memory), the sign convention U = -e phi for the electron's potential
+energy (common practice, no source), and the behaviour of the API.  GDSII fixtures are
 invented layouts written with gdstk into pytest's tmp_path.
 """
 
@@ -49,7 +50,7 @@ YS = np.array([0.0, -20.0, 60.0, 140.0, -300.0, 95.0])
 
 
 def one_line(error: pytest.ExceptionInfo) -> str:
-    """The error's message, asserted to be one line (style.md item 7; errors.py)."""
+    """The error's message, asserted to be one line (the project's error convention, see errors.py)."""
     message = str(error.value)
     assert "\n" not in message and message.strip() == message and message
     return message
@@ -99,7 +100,7 @@ def test_linear_in_voltage(voltage):
 
 @pytest.mark.parametrize("voltage, sign", [(0.3, -1.0), (-0.3, 1.0)])
 def test_sign_of_energy(voltage, sign):
-    # design.md: U = -e phi, in meV U = -1000 phi_V.  A positive gate lowers the
+    # U = -e phi (electron potential energy, common practice), in meV U = -1000 phi_V.  A positive gate lowers the
     # electron energy everywhere (Omega > 0), a negative one raises it.  Exact (one product).
     layout = GateLayout((Gate("g", rectangle(-100, -100, 100, 100), voltage),), depth_nm=D)
     energy = layout.potential_energy_meV(XS, YS)
@@ -195,7 +196,8 @@ def test_with_voltages_mapping_for_any_name():
 
 
 def test_layout_as_device_potential():
-    # A layout is a Device potential: onsite = 4t + U(x, y) on the square lattice (design.md).
+    # A layout is a Device potential: onsite = 4t + U(x, y) on the square lattice (effective-mass
+    # discretisation, Datta 1995 ch. 3, from memory).
     layout = split_gate_with_plunger()
     leads = [Lead("source", "left", (-40.0, 40.0)), Lead("drain", "right", (-40.0, 40.0))]
     device = Device(rectangle(-100.0, -40.0, 100.0, 40.0), leads, lattice=square(20.0), hopping=1.0,

@@ -120,7 +120,7 @@ def chain_lead(name, site):
 
 
 def test_closed_chain_ldos_against_exact_diagonalisation():
-    """Reference-checks §13a: open chain N = 5, site n = 1, E = 0.3, eta = 0.1 gives 0.128627837464.
+    """Open chain N = 5, site n = 1, E = 0.3, eta = 0.1 gives 0.128627837464 (our own evaluation, both ways).
 
     Closed form: rho_n = sum_j |psi_j(n)|^2 (eta/pi) / ((E - E_j)^2 + eta^2) with
     E_j = -2 cos(j pi/(N+1)) (Economou, Green's Functions in Quantum Physics, from memory).
@@ -132,17 +132,19 @@ def test_closed_chain_ldos_against_exact_diagonalisation():
     levels = -2 * np.cos(j * np.pi / (n_sites + 1))
     psi1 = np.sqrt(2 / (n_sites + 1)) * np.sin(j * np.pi / (n_sites + 1))
     closed = np.sum(psi1**2 * (eta / np.pi) / ((e - levels) ** 2 + eta**2))
-    assert closed == pytest.approx(0.128627837464, abs=1e-12)  # the tabulated value
+    assert closed == pytest.approx(0.128627837464, abs=1e-12)  # our 12-decimal value (transcription check)
     assert rho[0] == pytest.approx(closed, abs=1e-12)  # 1e-12: exact up to round-off
 
 
 @pytest.mark.parametrize("energy,expected", [(0.0, (1 / np.pi, 0.0, 1 / np.pi)),
                                              (0.7, (0.298176690313, 0.146106578253, 0.077555757150))])
 def test_friedel_oscillation_near_the_end_of_a_lead(energy, expected):
-    """Reference-checks §13b: rho_n = sin^2(k n) / (pi t sin k) at site n from the end of a semi-infinite chain.
+    """rho_n = sin^2(k n) / (pi t sin k) at site n from the end of a semi-infinite chain.
 
-    The first sites of the chain are the device; the rest is one lead (common practice, no source;
-    our own evaluation in reference-checks.md).
+    Friedel-type oscillation near the end of a chain: standing wave sin(kn) of the semi-infinite chain
+    (Economou, Green's Functions in Quantum Physics, 3rd ed. 2006, from memory; common practice); the
+    tabulated numbers are our own evaluation.  The first sites of the chain are the device; the rest
+    is one lead.
     """
     model = chain_model(6, leads=[chain_lead("rest", 5)])
     rho = ldos(model, energy)

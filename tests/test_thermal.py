@@ -74,7 +74,7 @@ def test_fermi_window_is_cosh_form_and_derivative(x):
     kT = thermal_energy_meV(1.0)
     e = x * kT
     w = fermi_window(e, 0.0, 1.0)
-    # §12 formula 1/(4 kT cosh²(x/2)): rounding of the two forms (cosh is finite for these x).
+    # -f' = 1/(4 kT cosh²(x/2)) (Datta 1995 ch. 2, from memory): rounding of the two forms (cosh is finite for these x).
     assert w == pytest.approx(1.0 / (4 * kT * np.cosh(x / 2) ** 2), rel=1e-14, abs=0)
     # -df/dE by a central difference (step 1e-4 kT: truncation (1e-4)²/6 * |f'''|/|f'| <~ 1e-8 relative,
     # rounding 1e-16/1e-4 = 1e-12 absolute in units of 1/kT).
@@ -117,7 +117,7 @@ def test_conductance_constant_and_linear_transmission_exact(temperature_K, no_wa
 
 @pytest.mark.parametrize("h_over_kT", [0.4, 0.1, 0.02])
 def test_conductance_error_is_interpolation_error(h_over_kT):
-    # T = (E - mu)²: exact G = π² kT²/3 (§12 second moment).  T_lin - T = (E - a)(b - E) on each cell, whose
+    # T = (E - mu)²: exact G = π² kT²/3 (second moment of -f', Sommerfeld expansion, Ashcroft & Mermin 1976 ch. 2, from memory).  T_lin - T = (E - a)(b - E) on each cell, whose
     # window-weighted integral is h²/6 up to O(h⁴/kT²) (quadrature), so G = π²kT²/3 + h²/6 + O(h⁴/kT²).
     kT = KT
     h = h_over_kT * kT
@@ -270,7 +270,7 @@ def test_spacing_warning_only_counts_the_window(no_warnings):
 def test_warns_when_window_cut_off():
     e = np.linspace(-0.5, 0.5, 1001)  # ±0.5 meV = ±11.6 kT at 0.5 K
     mu = 0.2
-    missing = 1 - fermi(e[0], mu, T_K) + fermi(e[-1], mu, T_K)  # §12 window weight beyond the grid
+    missing = 1 - fermi(e[0], mu, T_K) + fermi(e[-1], mu, T_K)  # window weight beyond the grid (∫ -f' = f difference)
     with pytest.warns(ResolutionWarning, match=r"does not cover mu ± 20 kT") as record:
         result = thermal_conductance(e, np.ones(e.size), mu, T_K)
     assert f"up to {missing:.3g} of the Fermi window's weight" in str(record[0].message)

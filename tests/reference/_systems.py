@@ -2,14 +2,18 @@
 
 Energy conventions
 ------------------
-/work/shared/reference-checks.md states its checks with onsite energy 0 (1D
-band [-2t, 2t], square-lattice band [-4t, 4t]) unless it says "effective-mass
-convention".  A model discretised by :class:`rgftrans.system.device.Device` always has
+The reference tests state their closed forms with onsite energy 0 (1D band
+[-2t, 2t], square-lattice band [-4t, 4t]), as in E. N. Economou, *Green's
+Functions in Quantum Physics* (Springer, 3rd ed. 2006) and S. Datta,
+*Electronic Transport in Mesoscopic Systems* (CUP 1995) (both from memory),
+unless they say "effective-mass convention" (onsite +4t in 2D, +2t in 1D,
+band bottom at 0; common practice).  A model discretised by :class:`rgftrans.system.device.Device` always has
 the effective-mass onsite ``4t + U(x, y)`` (coordination 4 on the square
 lattice), also for a one-row chain.  Hence, for a model built by ``Device``:
 
-* onsite-0 checks (sections 1-4, 13c): ``E_package = E_reference + ONSITE_SHIFT``;
-* 1D effective-mass checks (onsite ``2t``, section 13d):
+* onsite-0 checks (surface Green's function, chain scattering, strip staircase,
+  unitarity, potential step): ``E_package = E_reference + ONSITE_SHIFT``;
+* 1D effective-mass checks (onsite ``2t``, continuum-limit barriers):
   ``E_package = E_reference + CHAIN_EFFECTIVE_MASS_SHIFT``.
 
 Hand-built models (``TightBindingModel`` directly) use onsite 0 as given and
@@ -95,7 +99,7 @@ def hand_model(h_dense, positions, leads):
 
 
 def peierls_grid_hamiltonian(onsite, phi):
-    """Square-grid Hamiltonian with the Peierls phase of reference-checks 'Conventions'.
+    """Square-grid Hamiltonian with the Peierls phase (R. Peierls, Z. Phys. 80, 763 (1933), from memory).
 
     ``onsite`` is an (ny, nx) array indexed [y, x]; site index s = nx*y + x.
     Landau gauge A = (-B y, 0): <x+1, y|H|x, y> = -t exp(-2 pi i phi y), t = 1;

@@ -6,7 +6,8 @@ Hall resistance is h/(2 e^2 nu) exactly and the two-terminal resistance equals
 it (K. von Klitzing, G. Dorda, M. Pepper, PRL 45, 494 (1980), from memory;
 M. Büttiker, PRB 38, 9375 (1988), edge-channel picture, from memory).  Landau
 levels of the lattice sit near (n + 1/2) hbar omega_c with
-hbar omega_c = 4 pi t phi (reference-checks §10), phi the flux per plaquette.
+hbar omega_c = 4 pi t phi (hbar omega_c = hbar e B/m* with t = hbar^2/(2 m* a^2) and
+phi = B a^2/(h/e); our own algebra, common practice), phi the flux per plaquette.
 
 Tight-binding units: a = 1 nm, t = 1 meV; phi = 0.05, so the magnetic length
 l_B = a / sqrt(2 pi phi) = 1.8 a is small against the 16-site arms and
@@ -40,8 +41,9 @@ def hall_cross(field):
 
 
 def test_flux_per_plaquette_from_tesla():
-    """GaAs, a = 5 nm, B = 1 T: phi = 6.044973105e-3 (reference-checks §10, CODATA via scipy.constants)."""
+    """GaAs, a = 5 nm, B = 1 T: phi = B a^2/(h/e) = 6.044973105e-3 (our evaluation; h, e exact in the 2019 SI)."""
     phi = FLUX_PHASE_PER_T_NM2 * 1.0 * 25.0 / (2 * np.pi)
+    # Quoted to 10 significant digits (rounding 1e-10 relative); 1e-9 relative.
     assert phi == pytest.approx(6.044973105e-3, rel=1e-9)
 
 

@@ -40,6 +40,8 @@ def dot():
 
 def test_model_is_the_closed_form(dot):
     e = np.linspace(-1.5, 1.5, 301)
+    # Exact lattice Breit-Wigner (module docstring; our own derivation of the closed form); one-site solve,
+    # round-off only, 1e-12.
     assert np.allclose(transmission(dot, e).transmission, exact(e), atol=1e-12)
 
 
@@ -92,7 +94,9 @@ def test_pole_based_warning(dot):
     # The pole sits on the line, to first order: the self-energy is taken at a sub-window centre up to 1/3
     # away, and Re Sigma = t'^2 E of the two chains shifts the pole by at most t'^2 / 3 = 3.3e-3 for that.
     assert e_pole == pytest.approx(E_RES, abs=T_LINK**2 / 3 * 1.01)
-    assert width == pytest.approx(WIDTH, rel=0.05)  # pole width vs the closed form's FWHM estimate
+    # pole width vs the closed form's FWHM estimate, which is approximate (the lattice self-energy varies
+    # across the line; 0.1-0.3 % in our chain-scattering checks) and the pole uses a sub-window's Sigma: 5 %.
+    assert width == pytest.approx(WIDTH, rel=0.05)
     assert spacing == pytest.approx(0.1)
     with warnings.catch_warnings():
         warnings.simplefilter("error", ResolutionWarning)

@@ -105,7 +105,7 @@ def test_zeeman_split_wire_steps_by_half_a_quantum():
     assert np.count_nonzero(half) > 20
     # ... and neighbouring plateaus differ by exactly 1/2 in units of 2e^2/h.
     steps = np.diff(np.unique(np.round(res.conductance_g0, 6)))
-    assert np.allclose(steps, 0.5, atol=1e-6)
+    assert np.allclose(steps, 0.5, atol=1e-6)  # conductances rounded to 6 decimals above: 1e-6
 
 
 def cross(*, spin):

