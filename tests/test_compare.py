@@ -20,7 +20,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rgftrans.io.compare import MeasuredTrace, _thermal_g0, add_series_resistance, fit_trace, model_conductance, read_fit, read_trace, remove_series_resistance
+from rgftrans.analysis.thermal import thermal_average
+from rgftrans.io.compare import MeasuredTrace, add_series_resistance, fit_trace, model_conductance, read_fit, read_trace, remove_series_resistance
 from rgftrans.errors import CompareError
 from rgftrans.plots.fits import plot_fit
 from rgftrans.errors import ResolutionWarning, RgftransError
@@ -119,7 +120,7 @@ def test_vectorised_thermal_integral_matches_thermal_conductance(temperature_K):
     e = np.sort(np.random.default_rng(1).uniform(-1.0, 3.0, 500))
     t = breit_wigner(e)
     mu = np.linspace(-1.5, 3.5, 211)
-    fast = _thermal_g0(e, t, mu, BOLTZMANN_MEV_PER_K * temperature_K)
+    fast = thermal_average(e, t, mu, BOLTZMANN_MEV_PER_K * temperature_K)
     reference = thermal_conductance(e, t, mu, temperature_K, check=False).conductance_g0
     np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-12)
 

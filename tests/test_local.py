@@ -199,8 +199,8 @@ def test_ldos_on_narrow_layers_with_non_diagonal_couplings():
 
     model = Device(rectangle(0, 0, 14, 4), [Lead("l", "left", (0, 4)), Lead("r", "right", (0, 4))],
                    lattice=triangular(1.0), hopping=1.0, potential=lambda x, y: 0.5 * np.sin(x)).discretise()
-    flat = layer_blocks(model).flat()
-    assert not flat[5].all() and flat[2].max() <= 24  # the path under test is really taken
+    layers = layer_blocks(model).buffers
+    assert not layers.v_diag.all() and layers.sizes.max() <= 24  # the path under test is really taken
     for energy in (2.3, 4.1):
         g, _ = dense_green(model, energy)
         ref = -np.diag(g).imag / np.pi

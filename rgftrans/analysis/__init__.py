@@ -63,6 +63,7 @@ _EXPORTS = {
     "warn_sharp_features": "resolution",
     "warn_unresolved_resonances": "resolution",
     "window_poles": "resolution",
+    "thermal_average": "thermal",
     "BOLTZMANN_MEV_PER_K": "thermal",
     "CurrentResult": "thermal",
     "ThermalConductanceResult": "thermal",

@@ -75,13 +75,11 @@ import h5py
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 from scipy.optimize import least_squares
-from scipy.special import expit
 
-from rgftrans.constants import THERMAL_CUTOFF_KT
 from rgftrans.errors import FitWarning, ResolutionWarning, TraceFitFailed
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
 from rgftrans.io.store import ResultData, read_result
-from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K
+from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K, thermal_average
 from rgftrans.io.traces import _GATE_UNITS, MeasuredTrace, _arg, _unit_key, argument_names, read_trace
 from rgftrans.errors import CompareError
 
@@ -111,8 +109,6 @@ MAX_ENERGY_SPACING_KT = 0.5
 #: Half-width, in k_B T, around the mapped chemical potentials that the energy grid must cover:
 #: the weight of -df/dE beyond it is 2/(1 + e^20) = 4e-9.
 COVERAGE_KT = 20.0
-#: Chemical potentials evaluated together in one vectorised block (memory: block x window nodes).
-_MU_BLOCK = 64
 #: Points of the dense model curve per measured point, and its bounds.
 _CURVE_DENSITY, _CURVE_MIN, _CURVE_MAX = 4, 200, 2000
 #: Lowest temperature a fitted temperature may reach (K); it must stay positive.
@@ -271,44 +267,6 @@ def add_series_resistance(g_dev_S, r_series_ohm):
 # --- the stored sweep and its model ---------------------------------------------------------------
 
 
-def _thermal_g0(energies, transmission, mu, kT):
-    """G(mu) = ∫ T_lin(E) (-df/dE)(E - mu) dE in 2e²/h for many mu, vectorised.
-
-    The same integral as :func:`rgftrans.analysis.thermal.thermal_conductance` (T_lin
-    the piecewise-linear interpolant of the samples, zero off the grid),
-    evaluated here by parts so that a whole block of chemical potentials costs
-    one array operation:
-
-        G = T_0 f(E_0 - mu) - T_N f(E_N - mu) + sum_i s_i [F(E_i+1 - mu) - F(E_i - mu)],
-
-    with s_i the slope of T_lin on cell i and F(x) = -k_B T ln(1 + e^{-x/k_B T})
-    the antiderivative of f.  Cells more than 40 k_B T below every mu of a block
-    contribute their whole rise s_i h_i (to 1e-17) and are summed by
-    telescoping; cells as far above contribute nothing.  The fitting loop calls
-    this many times; the test suite checks it against thermal_conductance.
-    """
-    e, t = energies, transmission
-    mu = np.asarray(mu, dtype=float)
-    if kT == 0.0:
-        return np.interp(mu, e, t, left=0.0, right=0.0)
-    flat = mu.ravel()
-    out = np.empty(flat.size)
-    slope = np.diff(t) / np.diff(e)
-    order = np.argsort(flat)
-    for start in range(0, flat.size, _MU_BLOCK):
-        idx = order[start:start + _MU_BLOCK]
-        m = flat[idx]
-        lo = max(int(np.searchsorted(e, m[0] - THERMAL_CUTOFF_KT * kT, side="right")) - 1, 0)
-        hi = min(int(np.searchsorted(e, m[-1] + THERMAL_CUTOFF_KT * kT, side="left")), e.size - 1)
-        edge = t[0] * expit((m - e[0]) / kT) - t[-1] * expit((m - e[-1]) / kT) + (t[lo] - t[0])
-        if hi > lo:
-            x = (e[lo:hi + 1][None, :] - m[:, None]) / kT
-            anti = -np.logaddexp(0.0, -x)  # F / kT
-            edge = edge + kT * (np.diff(anti, axis=1) @ slope[lo:hi])
-        out[idx] = edge
-    return out.reshape(mu.shape)
-
-
 class _Sweep:
     """The slice of a stored sweep a trace is compared with: T(E) in energy mode, or T_j(E) on a gate axis."""
 
@@ -448,10 +406,10 @@ class _Sweep:
         """Model device conductance in 2e²/h at the gate voltages, for parameters p."""
         kT = BOLTZMANN_MEV_PER_K * p["temperature"]
         if self.mode == "energy":
-            return _thermal_g0(self.energies, self.transmission, self.mu(gate_V, p, mu_ref), kT)
+            return thermal_average(self.energies, self.transmission, self.mu(gate_V, p, mu_ref), kT)
         key = (kT, mu_ref)
         if key not in self._cache:
-            g = np.array([_thermal_g0(self.energies, row, np.array([mu_ref]), kT)[0] for row in self.transmission])
+            g = np.array([thermal_average(self.energies, row, np.array([mu_ref]), kT)[0] for row in self.transmission])
             self._cache = {key: PchipInterpolator(self.gate_values, g, extrapolate=False)}
         shifted = np.clip(np.asarray(gate_V, dtype=float) - p["offset"], self.gate_values[0], self.gate_values[-1])
         return self._cache[key](shifted)

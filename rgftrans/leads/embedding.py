@@ -61,6 +61,7 @@ def broadening(sigma: np.ndarray) -> np.ndarray:
     return 1j * (sigma - sigma.conj().T)
 
 
+#: Eigenvalues of Gamma below this fraction of the largest are dropped from W (closed channels).
 _GAMMA_RANK_TOL = 1e-12
 
 

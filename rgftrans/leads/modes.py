@@ -214,18 +214,20 @@ def _lead_modes_uncached(h_cell, h_hop, energy) -> LeadModes:
         n_open = _count_open(h_cell, h_hop, energy.real, scale)
         modes = _modes_at(h_cell, h_hop, energy, scale)
         return LeadModes(**{**modes.__dict__, "n_open": n_open})
-    modes = _modes_at(h_cell, h_hop, energy, scale)
-    if isinstance(modes, int):  # on a threshold: step off it into the upper half plane
-        n_open = modes
+    try:
+        return _modes_at(h_cell, h_hop, energy, scale)
+    except _OnThreshold as edge:  # on a threshold: step off it into the upper half plane
         shifted = energy + 1j * THRESHOLD_ETA * scale
         modes = _modes_at(h_cell, h_hop, shifted, scale)
-        modes = LeadModes(**{**modes.__dict__, "n_open": n_open, "at_threshold": True})
-    return modes
+        return LeadModes(**{**modes.__dict__, "n_open": edge.n_open, "at_threshold": True})
 
 
 def _count_open(h_cell, h_hop, energy: float, scale: float) -> int:
-    modes = _modes_at(h_cell, h_hop, complex(energy), scale)
-    return modes if isinstance(modes, int) else modes.n_open
+    """Open channels at a real energy (on a threshold: those with a nonzero velocity)."""
+    try:
+        return _modes_at(h_cell, h_hop, complex(energy), scale).n_open
+    except _OnThreshold as edge:
+        return edge.n_open
 
 
 def surface_green_modes(h_cell, h_hop, energy) -> np.ndarray:
@@ -245,12 +247,22 @@ def surface_green_modes(h_cell, h_hop, energy) -> np.ndarray:
     return lead_modes(h_cell, h_hop, energy).g_surface
 
 
-def _modes_at(h_cell, h_hop, energy, scale):
+class _OnThreshold(Exception):
+    """Raised by the mode solvers at a real energy where a propagating mode has zero velocity.
+
+    Carries ``n_open``, the channels with a nonzero velocity there (the closing or opening channel
+    carries no current and is counted as closed).
+    """
+
+    def __init__(self, n_open: int):
+        super().__init__(n_open)
+        self.n_open = int(n_open)
+
+
+def _modes_at(h_cell, h_hop, energy, scale) -> LeadModes:
     """Solve the lead's quadratic eigenproblem.
 
-    Returns the :class:`LeadModes`, or -- if a propagating mode has zero
-    velocity (a channel threshold) -- the number of open channels with a
-    nonzero velocity, as an int.
+    Raises :class:`_OnThreshold` if a propagating mode has zero velocity (a channel threshold).
     """
     tau = h_hop[0, 0]
     if np.array_equal(h_hop, tau * np.eye(len(h_hop))) and tau != 0:
@@ -286,7 +298,7 @@ def _modes_separable(h_cell, tau: complex, energy: complex, scale: float):
         vel_a = -2 * np.imag(lam_a * tau)
         if np.any(inside & (np.abs(vel_a) < THRESHOLD_VELOCITY * scale)) or np.any(
                 np.abs(np.abs(z.real) - 2 * abs(tau)) < 1e-14 * scale):
-            return int(np.count_nonzero(inside & (np.abs(vel_a) >= THRESHOLD_VELOCITY * scale)))
+            raise _OnThreshold(int(np.count_nonzero(inside & (np.abs(vel_a) >= THRESHOLD_VELOCITY * scale))))
         # Inside the band the roots are conj pairs on the unit circle; pick the positive velocity.
         out_is_a = np.where(inside, vel_a > 0, np.abs(lam_a) < 1)
     else:
@@ -362,7 +374,7 @@ def _modes_generalised(h_cell, h_hop, energy, scale):
                 velocities[k] = v
                 (out_idx if v > 0 else in_idx).append(k)
     if on_threshold:
-        return sum(1 for v in velocities.values() if v > THRESHOLD_VELOCITY * scale)
+        raise _OnThreshold(sum(1 for v in velocities.values() if v > THRESHOLD_VELOCITY * scale))
     out_idx = np.array(out_idx, dtype=int)
     in_idx = np.array(in_idx, dtype=int)
     lam_out = lam[out_idx]

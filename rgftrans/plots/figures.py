@@ -563,9 +563,9 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
     fig, ax
     """
     from rgftrans.plots.style import CONDUCTANCE_LABEL, axis_display, format_value, readable_ticks
-    from rgftrans.errors import EnergyError, LeadError
+    from rgftrans.errors import EnergyError, StoreError
     from rgftrans.io.store import read_result
-    from rgftrans.errors import StoreError
+    from rgftrans.system.device import lead_index
 
     data = read_result(path)
     if not np.any(data.completed):
@@ -573,11 +573,7 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
     names = list(data.lead_names)
 
     def pick(name, default):
-        if name is None:
-            return default
-        if name not in names:
-            raise LeadError(f"{path}: no lead named {name!r}; the file has leads {names}")
-        return names.index(name)
+        return default if name is None else lead_index(names, name, owner=f"{path}")
 
     q_in = pick(lead_in, 0)
     p_out = pick(lead_out, 1 if len(names) > 1 else 0)

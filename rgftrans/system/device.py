@@ -30,7 +30,7 @@ from rgftrans.system.geometry import Region
 from rgftrans.system.lattices import Lattice, square
 from rgftrans.system.materials import Material, hopping_meV, material as lookup_material
 
-__all__ = ["Lead", "Device", "LeadModel", "TightBindingModel", "discretise", "check_resolution"]
+__all__ = ["Lead", "Device", "LeadModel", "TightBindingModel", "ModelCache", "discretise", "check_resolution", "lead_index"]
 
 _SIDES = {"left": (-1, 0), "right": (1, 0), "bottom": (0, -1), "top": (0, 1)}
 #: Positions closer than this fraction of the lattice spacing count as equal.
@@ -108,6 +108,24 @@ class LeadModel:
     period: np.ndarray
 
 
+class ModelCache:
+    """What is derived once from a :class:`TightBindingModel` and reused by every call on it.
+
+    Attributes
+    ----------
+    layer_blocks : LayerBlocks or None
+        The default slicing of the model cut into dense layer blocks (:func:`rgftrans.transport.rgf.layer_blocks`).
+    spectral_bounds : (float, float) or None
+        An interval holding the spectrum, meV (:func:`rgftrans.system.inputs.spectral_bounds`).
+    """
+
+    __slots__ = ("layer_blocks", "spectral_bounds")
+
+    def __init__(self):
+        self.layer_blocks = None
+        self.spectral_bounds = None
+
+
 @dataclass(frozen=True, eq=False)
 class TightBindingModel:
     """A device Hamiltonian with its leads, ready for transport.
@@ -154,6 +172,9 @@ class TightBindingModel:
     spacing_nm: float | None = None
     spin_degeneracy: int | None = None
     potential_meV: np.ndarray | None = None
+    #: Work derived from this model and reused by every call on it (layer slicing and blocks, spectral bounds).
+    #: Not an input: ``dataclasses.replace`` gives the new model an empty cache of its own.
+    cache: "ModelCache" = dc_field(default_factory=lambda: ModelCache(), init=False, repr=False, compare=False)
 
     def __post_init__(self):
         if self.spin_degeneracy is None:
@@ -219,11 +240,31 @@ class TightBindingModel:
         values = np.asarray(values)
         return values.reshape(self.n_sites, self.norbs, *values.shape[1:]).sum(axis=1)
 
-    def lead(self, name: str) -> LeadModel:
-        for lead in self.leads:
-            if lead.name == name:
-                return lead
-        raise LeadError(f"no lead named {name!r}; the model has {[l.name for l in self.leads]}")
+    def lead_index(self, lead: int | str) -> int:
+        """Position of a lead given by name or index; one-line LeadError for anything else."""
+        return lead_index([lead.name for lead in self.leads], lead)
+
+    def lead(self, name: int | str) -> LeadModel:
+        """The lead given by name or index."""
+        return self.leads[self.lead_index(name)]
+
+
+def lead_index(names, lead, *, noun: str = "lead", owner: str = "the model") -> int:
+    """Position of ``lead`` (a name, or an index) among ``names``, or a one-line LeadError saying what there is.
+
+    The one lookup behind every place a lead is named: models, local quantities, waveguide ports, result
+    files and figures (``noun="port"``, ``owner="the waveguide"`` and the like change only the message).
+    """
+    names = list(names)
+    if isinstance(lead, str):
+        if lead not in names:
+            raise LeadError(f"no {noun} named {lead!r}; {owner} has {names}")
+        return names.index(lead)
+    if isinstance(lead, bool) or not isinstance(lead, (int, np.integer)):
+        raise LeadError(f"a {noun} is given by name or index, got {lead!r}; {owner} has {names}")
+    if not 0 <= int(lead) < len(names):
+        raise LeadError(f"{noun} index {lead} is out of range; {owner} has {len(names)} {noun}s {names}")
+    return int(lead)
 
 
 #: Fewest lattice sites per wavelength before a warning.  At 10 sites per

@@ -48,7 +48,7 @@ def spectral_bounds(model) -> tuple[float, float]:
 
     Cached on the model.
     """
-    cached = model.__dict__.get("_spectral_bounds")
+    cached = model.cache.spectral_bounds
     if cached is not None:
         return cached
     ham = model.hamiltonian
@@ -59,7 +59,7 @@ def spectral_bounds(model) -> tuple[float, float]:
         c = np.real(np.diag(lead.h_cell))
         r = np.abs(lead.h_cell).sum(axis=1) - np.abs(np.diag(lead.h_cell)) + 2 * np.abs(lead.h_hop).sum(axis=1)
         lo, hi = min(lo, float(np.min(c - r))), max(hi, float(np.max(c + r)))
-    object.__setattr__(model, "_spectral_bounds", (lo, hi))
+    model.cache.spectral_bounds = (lo, hi)
     return lo, hi
 
 

@@ -43,7 +43,7 @@ import scipy.constants as const
 import scipy.sparse as sp
 import shapely
 
-from rgftrans.system.device import Device, Lead, TightBindingModel
+from rgftrans.system.device import Device, Lead, TightBindingModel, lead_index
 from rgftrans.errors import GeometryError, LeadError, PotentialError, ResolutionWarning
 from rgftrans.system.geometry import Region
 from rgftrans.system.lattices import square
@@ -251,12 +251,6 @@ class PhotonicModel:
         return f if count is None else f[:count]
 
     def port_index(self, port) -> int:
-        names = [lead.name for lead in self.model.leads]
-        if isinstance(port, str):
-            if port not in names:
-                raise LeadError(f"no port named {port!r}; the waveguide has {names}")
-            return names.index(port)
-        if not 0 <= int(port) < len(names):
-            raise LeadError(f"port index {port} out of range; the waveguide has {len(names)} ports")
-        return int(port)
+        """Position of a port given by name or index."""
+        return lead_index([lead.name for lead in self.model.leads], port, noun="port", owner="the waveguide")
 

@@ -11,6 +11,8 @@ from rgftrans._lazy import lazy_exports
 
 #: Public name -> module of this subpackage that defines it.
 _EXPORTS = {
+    "LayerBuffers": "buffers",
+    "EndTerms": "buffers",
     "interface_green": "direct",
     "transmission_direct": "direct",
     "ScatteringMatrix": "direct",

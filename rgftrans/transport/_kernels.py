@@ -17,6 +17,10 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+# Kernels take the sliced Hamiltonian as a LayerBuffers and the lead terms as an EndTerms (rgftrans.transport.buffers):
+# named tuples of arrays, which numba unpacks like any tuple.
+
+
 #: Up to this layer width the kernels use explicit loops over preallocated
 #: buffers for everything but the inversion (LAPACK), so a layer costs no
 #: allocation and no BLAS call overhead beyond the inverse itself.
@@ -51,26 +55,18 @@ def _inv(a):
 
 
 @njit(cache=True)
-def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, w0_all, gk_all,
-                 ward=False):
+def two_terminal(z_all, layers, ends, ward=False):
     """Two-terminal transmission at many energies.
 
     Parameters
     ----------
     z_all : (n_E,) complex
         Device energies (meV).
-    h_flat, h_off, sizes : layer Hamiltonians, flat; block i is
-        ``h_flat[h_off[i]: h_off[i] + m_i^2].reshape(m_i, m_i)``.
-    v_flat, v_off, v_diag : couplings ``V_i`` (m_i x m_{i+1}), flat; ``v_diag[i]``
-        if ``V_i`` is square and diagonal.
-    sig0_all : (n_E, m_0, m_0) complex
-        Self-energy of the first lead embedded in layer 0.
-    sigk_all : (n_E, m_K, m_K) complex
-        Self-energy of the last lead embedded in the last layer.
-    w0_all : (n_E, m_0, n_ch) complex
-        ``Gamma_0 = W_0 W_0^dag`` (zero-padded columns allowed).
-    gk_all : (n_E, m_K, m_K) complex
-        ``Gamma_K`` embedded in the last layer.
+    layers : LayerBuffers
+        The sliced Hamiltonian.
+    ends : EndTerms
+        ``sig_first`` (n_E, m_0, m_0), ``sig_last`` (n_E, m_K, m_K), ``w_first``
+        (n_E, m_0, n_ch), ``gamma_last`` (n_E, m_K, m_K), complex.
     ward : bool
         Skip the column propagation and use the Ward identity on the last
         layer, ``T = i Tr[Gamma_K (G_KK - G_KK^dag)] - Tr[Gamma_K G_KK Gamma_K G_KK^dag]``
@@ -85,6 +81,8 @@ def two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, s
         energy); an exactly singular one raises LinAlgError.  The caller
         redoes those energies.
     """
+    h_flat, h_off, sizes, v_flat, v_off, v_diag = layers
+    sig0_all, sigk_all, w0_all, gk_all = ends
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
     out = np.empty(n_e)
@@ -191,7 +189,7 @@ def _schur(g, v, diag, forward):
 
 
 @njit(cache=True)
-def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, out):
+def diagonal_two_terminal(z_all, layers, sig_first, sig_last, out):
     """Diagonal of G at many energies, leads in the first and last layer.
 
     ``G_ii = (A_i - V_{i-1}^dag gL_{i-1} V_{i-1} - V_i gR_{i+1} V_i^dag)^-1``
@@ -200,6 +198,8 @@ def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, si
     system.  ``out`` is (n_E, n_orbitals) in layer order.  An exactly
     singular block raises LinAlgError (the caller falls back).
     """
+    h_flat, h_off, sizes, v_flat, v_off, v_diag = layers
+    sig0_all, sigk_all = sig_first, sig_last
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
     for e in range(n_e):
@@ -252,7 +252,7 @@ def diagonal_two_terminal(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, si
 
 
 @njit(cache=True)
-def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, w0_all, gk_all):
+def two_terminal_small(z_all, layers, ends):
     """:func:`two_terminal` for narrow devices (every layer at most SMALL_BLOCK wide).
 
     Same arguments and result; all products are explicit loops over
@@ -260,6 +260,8 @@ def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_
     call overhead -- at widths of a few sites that overhead would exceed the
     arithmetic.
     """
+    h_flat, h_off, sizes, v_flat, v_off, v_diag = layers
+    sig0_all, sigk_all, w0_all, gk_all = ends
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
     mmax = 0
@@ -348,8 +350,10 @@ def two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_
 
 
 @njit(cache=True)
-def diagonal_two_terminal_small(z_all, h_flat, h_off, sizes, v_flat, v_off, v_diag, sig0_all, sigk_all, out):
+def diagonal_two_terminal_small(z_all, layers, sig_first, sig_last, out):
     """:func:`diagonal_two_terminal` for narrow devices: loops over preallocated buffers, no BLAS calls."""
+    h_flat, h_off, sizes, v_flat, v_off, v_diag = layers
+    sig0_all, sigk_all = sig_first, sig_last
     n_e = z_all.shape[0]
     n_layers = sizes.shape[0]
     mmax = 0

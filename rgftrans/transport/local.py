@@ -25,7 +25,7 @@ import scipy.sparse as sp
 
 from rgftrans.constants import SINGULAR_ETA
 from rgftrans.system.device import TightBindingModel
-from rgftrans.errors import LeadError, ThresholdWarning
+from rgftrans.errors import ThresholdWarning
 from rgftrans.system.inputs import check_energies, check_energy, check_eta, check_model
 from rgftrans.leads.modes import incoming_sources, outgoing_amplitudes, require_off_threshold
 from rgftrans.transport.rgf import LayerBlocks, end_self_energies, green_blocks, layer_blocks
@@ -60,17 +60,6 @@ class LocalResult:
 
 def _site_order(blocks: LayerBlocks) -> np.ndarray:
     return np.concatenate(blocks.slicing.layers)
-
-
-def _lead_index(model: TightBindingModel, lead: int | str) -> int:
-    if isinstance(lead, str):
-        names = [l.name for l in model.leads]
-        if lead not in names:
-            raise LeadError(f"no lead named {lead!r}; the model has {names}")
-        return names.index(lead)
-    if not 0 <= lead < len(model.leads):
-        raise LeadError(f"lead index {lead} is out of range; the model has {len(model.leads)} leads")
-    return int(lead)
 
 
 def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.0,
@@ -139,16 +128,16 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
     from rgftrans.transport._kernels import SMALL_BLOCK, diagonal_two_terminal, diagonal_two_terminal_small
 
     n_e = len(energies)
-    z_all, sig0, sigk, _ = end_self_energies(model, blocks, energies, eta)
+    z_all, sig_first, sig_last, _ = end_self_energies(model, blocks, energies, eta)
     diag = np.empty((n_e, model.n_orbitals), dtype=complex)
-    flat = blocks.flat()
-    kernel = diagonal_two_terminal_small if flat[2].max() <= SMALL_BLOCK else diagonal_two_terminal
+    layers = blocks.buffers
+    kernel = diagonal_two_terminal_small if layers.sizes.max() <= SMALL_BLOCK else diagonal_two_terminal
     try:
-        kernel(z_all, *flat, sig0, sigk, diag)
+        kernel(z_all, layers, sig_first, sig_last, diag)
     except np.linalg.LinAlgError:  # a singular partial system at one energy: those energies take full sweeps
         for k in range(n_e):
             try:
-                kernel(z_all[k:k + 1], *flat, sig0[k:k + 1], sigk[k:k + 1], diag[k:k + 1])
+                kernel(z_all[k:k + 1], layers, sig_first[k:k + 1], sig_last[k:k + 1], diag[k:k + 1])
             except np.linalg.LinAlgError:
                 diag[k] = np.nan
     order = _site_order(blocks)
@@ -193,7 +182,7 @@ def scattering_states(model: TightBindingModel, energy: float, lead: int | str =
     """Scattering states of all open channels incoming from ``lead`` (RGF)."""
     check_model(model)
     energy = check_energy(energy, model)
-    q = _lead_index(model, lead)
+    q = model.lead_index(lead)
     blocks = layer_blocks(model, slicing)
     sigmas, modes = lead_self_energies(model, energy)
     require_off_threshold(modes, energy, "a scattering state")

@@ -29,6 +29,7 @@ from rgftrans.system.inputs import check_energies, check_eta, check_model
 from rgftrans.leads.embedding import (broadening, device_energy, gamma_columns, lead_self_energies,
                                       warn_thresholds)
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S, conductance_g0
+from rgftrans.transport.buffers import EndTerms, LayerBuffers
 from rgftrans.transport.slicing import Slicing, slice_layers
 
 __all__ = [
@@ -86,35 +87,32 @@ class LayerBlocks:
 
     ``h_layers[i]`` is ``<layer i|H|layer i>``; ``v_next[i]`` is
     ``<layer i|H|layer i+1>``; ``lead_slots[p]`` are the positions of lead
-    ``p``'s interface sites inside its layer.
+    ``p``'s interface sites inside its layer; ``buffers`` holds the same
+    blocks as the flat arrays the compiled kernels read (the blocks above are
+    views into them).
     """
 
     slicing: Slicing
     h_layers: tuple
     v_next: tuple
     lead_slots: tuple
-
-    def flat(self):
-        """Flat buffers for the compiled kernels: (h_flat, h_off, sizes, v_flat, v_off, v_diag)."""
-        return self.__dict__["_flat"]
+    buffers: LayerBuffers
 
 
 def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> LayerBlocks:
     """Cut the model's Hamiltonian into dense layer blocks (slicing it first if needed).
 
     The default slicing and its blocks are computed once per model and kept
-    on it, so repeated calls (energy batches, sweeps over energies) pay
-    nothing; an explicit ``slicing`` is cut afresh.
+    in its cache (``model.cache.layer_blocks``), so repeated calls (energy
+    batches, sweeps over energies) pay nothing; an explicit ``slicing`` is
+    cut afresh.
     """
     if slicing is None:
-        cached = model.__dict__.get("_default_blocks")
-        if cached is not None:
-            return cached
-        auto = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
-                            positions=model.orbital_positions())
-        blocks = _cut_blocks(model, auto)
-        object.__setattr__(model, "_default_blocks", blocks)
-        return blocks
+        if model.cache.layer_blocks is None:
+            auto = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
+                                positions=model.orbital_positions())
+            model.cache.layer_blocks = _cut_blocks(model, auto)
+        return model.cache.layer_blocks
     return _cut_blocks(model, slicing)
 
 
@@ -147,11 +145,10 @@ def _cut_blocks(model: TightBindingModel, slicing: Slicing) -> LayerBlocks:
         if np.any(layer_of[lead.interface] != slicing.lead_layer[p]):
             raise ValueError(f"lead {lead.name!r}: interface not inside its layer")
         slots.append(pos_in[lead.interface])
-    blocks = LayerBlocks(slicing=slicing, h_layers=h_layers, v_next=v_next, lead_slots=tuple(slots))
     v_diag = np.array([v.shape[0] == v.shape[1] and np.count_nonzero(v - np.diag(np.diag(v))) == 0
                        for v in v_next] or [False], dtype=np.bool_)
-    object.__setattr__(blocks, "_flat", (h_flat, h_off, sizes, v_flat, v_off, v_diag))
-    return blocks
+    buffers = LayerBuffers(h_flat=h_flat, h_off=h_off, sizes=sizes, v_flat=v_flat, v_off=v_off, v_diag=v_diag)
+    return LayerBlocks(slicing=slicing, h_layers=h_layers, v_next=v_next, lead_slots=tuple(slots), buffers=buffers)
 
 
 def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
@@ -207,107 +204,126 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
 WARD_MIN_T = 1e-3
 #: Energies handed to the compiled kernel at once (bounds the self-energy buffers).
 ENERGY_CHUNK = 64
-#: Eigenvalues of Gamma below this fraction of the largest are dropped from W (closed channels).
+
+
 def end_self_energies(model, blocks: LayerBlocks, energies, eta: float = 0.0, *, warn: bool = True):
     """Device energies and the two leads' self-energies embedded in the first and last layer.
 
-    Returns ``z_all`` (n_E,), ``sig0`` (n_E, m_0, m_0), ``sigk`` (n_E, m_K, m_K)
+    Returns ``z_all`` (n_E,), ``sig_first`` (n_E, m_0, m_0), ``sig_last`` (n_E, m_K, m_K)
     and, per energy, the ``(sigmas, modes)`` of :func:`lead_self_energies` --
     the inputs of the compiled two-lead kernels.
     """
     n_e = len(energies)
-    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
-    slots0, slots1 = blocks.lead_slots
-    sig0 = np.zeros((n_e, m0, m0), dtype=complex)
-    sigk = np.zeros((n_e, mk, mk), dtype=complex)
+    m_first, m_last = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
+    slots_first, slots_last = blocks.lead_slots
+    sig_first = np.zeros((n_e, m_first, m_first), dtype=complex)
+    sig_last = np.zeros((n_e, m_last, m_last), dtype=complex)
     z_all = np.empty(n_e, dtype=complex)
     per_energy = []
     for k, energy in enumerate(energies):
         sigmas, modes = lead_self_energies(model, energy, warn=warn)
         z_all[k] = device_energy(energy, modes, eta)
-        sig0[k][np.ix_(slots0, slots0)] = sigmas[0]
-        sigk[k][np.ix_(slots1, slots1)] = sigmas[1]
+        sig_first[k][np.ix_(slots_first, slots_first)] = sigmas[0]
+        sig_last[k][np.ix_(slots_last, slots_last)] = sigmas[1]
         per_energy.append((sigmas, modes))
-    return z_all, sig0, sigk, per_energy
+    return z_all, sig_first, sig_last, per_energy
+
+
+def _end_terms(model, blocks: LayerBlocks, energies, eta):
+    """The compiled kernels' lead inputs at each energy, with the open channels and threshold flags.
+
+    Returns ``z_all``, an :class:`EndTerms` (self-energies of both ends, ``W`` of the first lead with
+    ``Gamma = W W^dag`` zero-padded to the most open channels, ``Gamma`` of the last lead), ``n_open``
+    (n_E, 2) and ``at_threshold`` (n_E,).
+    """
+    n_e = len(energies)
+    m_first, m_last = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
+    slots_first, slots_last = blocks.lead_slots
+    z_all, sig_first, sig_last, per_energy = end_self_energies(model, blocks, energies, eta, warn=False)
+    gamma_last = np.zeros((n_e, m_last, m_last), dtype=complex)
+    n_open = np.zeros((n_e, 2), dtype=np.int64)
+    at_threshold = np.zeros(n_e, dtype=bool)
+    w_each = []
+    for k, (sigmas, modes) in enumerate(per_energy):
+        at_threshold[k] = any(m.at_threshold for m in modes)
+        n_open[k] = [m.n_open for m in modes]
+        gamma_last[k][np.ix_(slots_last, slots_last)] = broadening(sigmas[1])
+        w_each.append(gamma_columns(broadening(sigmas[0])))
+    n_channels = max(1, max(w.shape[1] for w in w_each))
+    w_first = np.zeros((n_e, m_first, n_channels), dtype=complex)
+    for k, w in enumerate(w_each):
+        w_first[k][slots_first, :w.shape[1]] = w
+    return z_all, EndTerms(sig_first, sig_last, w_first, gamma_last), n_open, at_threshold
+
+
+def _run_kernel(kernel, z_all, layers: LayerBuffers, ends: EndTerms, select, **options) -> np.ndarray:
+    """Transmissions at the energies ``select`` from a compiled kernel; NaN where a block is exactly singular.
+
+    An exactly singular block raises LinAlgError for the whole batch: the energies are then redone one by one.
+    """
+    def at(sel):
+        return kernel(z_all[sel], layers, EndTerms(*(term[sel] for term in ends)), **options)
+
+    try:
+        return at(select)
+    except np.linalg.LinAlgError:
+        out = np.full(len(select), np.nan)
+        for j, k in enumerate(select):
+            try:
+                out[j] = at(np.array([k]))[0]
+            except np.linalg.LinAlgError:
+                pass
+        return out
+
+
+def _direct_fallback(model, energy: float, eta: float) -> float:
+    """T at one energy where the recursion broke down: a sparse direct solve, just above the axis if need be.
+
+    A singular intermediate block (a bound state of a partial system at exactly this energy) breaks the
+    recursion, not the physics: sparse LU solves the whole device.  If the open device itself is singular
+    there (a bound state in the continuum sitting exactly on the energy), T is taken just above the real
+    axis, where it is continuous, and the user is told.
+    """
+    from rgftrans.transport.direct import transmission_direct
+
+    try:
+        return float(transmission_direct(model, [energy], eta=eta)[0, 1, 0])
+    except RuntimeError:  # splu: "Factor is exactly singular"
+        pass
+    shift = SINGULAR_ETA * model.energy_scale
+    warnings.warn(
+        f"E = {energy:.10g} meV is an eigenvalue of the open device (a bound state in the continuum sits "
+        f"exactly there); T was computed at E + {shift:.1e}i meV",
+        ThresholdWarning, stacklevel=4,
+    )
+    return float(transmission_direct(model, [energy], eta=eta + shift)[0, 1, 0])
 
 
 def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
-    """Lead terms in Python (cached), the slice loop in the compiled kernel."""
+    """Transmission at a batch of energies: lead terms in Python (cached), the slice loop compiled.
+
+    Wide layers use the Ward identity on the last layer (no column propagation) at real energies of a
+    Hermitian device; where T comes out below ``WARD_MIN_T`` per channel it has lost relative accuracy and
+    is redone with columns.  Energies where the recursion breaks down take :func:`_direct_fallback`.
+    """
     from rgftrans.transport._kernels import SMALL_BLOCK, two_terminal, two_terminal_small
 
-    n_e = len(energies)
-    m0, mk = len(blocks.h_layers[0]), len(blocks.h_layers[-1])
-    slots0, slots1 = blocks.lead_slots
-    z_all, sig0, sigk, per_energy = end_self_energies(model, blocks, energies, eta, warn=False)
-    gk = np.zeros((n_e, mk, mk), dtype=complex)
-    w_cols = []
-    n_open = np.zeros((n_e, 2), dtype=np.int64)
-    flagged = np.zeros(n_e, dtype=bool)
-    for k, (sigmas, modes) in enumerate(per_energy):
-        flagged[k] = any(m.at_threshold for m in modes)
-        n_open[k] = [m.n_open for m in modes]
-        gk[k][np.ix_(slots1, slots1)] = broadening(sigmas[1])
-        w_small = gamma_columns(broadening(sigmas[0]))
-        w = np.zeros((m0, w_small.shape[1]), dtype=complex)
-        w[slots0] = w_small
-        w_cols.append(w)
-    n_ch = max(1, max(w.shape[1] for w in w_cols))
-    w0 = np.zeros((n_e, m0, n_ch), dtype=complex)
-    for k, w in enumerate(w_cols):
-        w0[k, :, :w.shape[1]] = w
-    h_flat, h_off, sizes, v_flat, v_off, v_diag = blocks.flat()
-    args = (h_flat, h_off, sizes, v_flat, v_off, v_diag)
-    wide = sizes.max() > SMALL_BLOCK
-    kernel = two_terminal if wide else two_terminal_small
-
-    def call(sel, ward):
-        if ward:
-            return two_terminal(z_all[sel], *args, sig0[sel], sigk[sel], w0[sel], gk[sel], True)
-        return kernel(z_all[sel], *args, sig0[sel], sigk[sel], w0[sel], gk[sel])
-
-    def run(sel, ward):
-        try:
-            return call(sel, ward)
-        except np.linalg.LinAlgError:  # an exactly singular block: redo the energies one by one, NaN where singular
-            out = np.full(len(sel), np.nan)
-            for j, k in enumerate(sel):
-                try:
-                    out[j] = call(np.array([k]), ward)[0]
-                except np.linalg.LinAlgError:
-                    pass
-            return out
-
-    # Wide layers: the Ward identity on the last layer saves the column propagation (real energies only);
-    # where T comes out small it has lost relative accuracy, so those energies are redone with columns.
+    z_all, ends, n_open, at_threshold = _end_terms(model, blocks, energies, eta)
+    layers = blocks.buffers
+    wide = layers.sizes.max() > SMALL_BLOCK
+    columns = two_terminal if wide else two_terminal_small
+    trans = np.full(len(energies), np.nan)
     real = z_all.imag == 0
-    trans = np.full(n_e, np.nan)
     if wide and np.any(real) and not model.is_lossy:  # the identity needs a Hermitian device
         sel = np.flatnonzero(real)
-        trans[sel] = run(sel, True)
+        trans[sel] = _run_kernel(two_terminal, z_all, layers, ends, sel, ward=True)
         trans[sel[trans[sel] < WARD_MIN_T * np.maximum(n_open[sel].min(axis=1), 1)]] = np.nan
     redo = np.flatnonzero(~np.isfinite(trans))
     if len(redo):
-        trans[redo] = run(redo, False)
-    # A singular intermediate block (a bound state of a partial system at exactly this energy) breaks the
-    # recursion, not the physics: those energies are solved directly by sparse LU.  If the whole open device
-    # is singular there (a bound state in the continuum sitting exactly on the energy), T is taken just above
-    # the real axis, where it is continuous, and the user is told.
+        trans[redo] = _run_kernel(columns, z_all, layers, ends, redo)
     for k in np.flatnonzero(~np.isfinite(trans)):
-        from rgftrans.transport.direct import transmission_direct
-
-        try:
-            trans[k] = transmission_direct(model, [energies[k]], eta=eta)[0, 1, 0]
-            continue
-        except RuntimeError:  # splu: "Factor is exactly singular"
-            pass
-        shift = SINGULAR_ETA * model.energy_scale
-        warnings.warn(
-            f"E = {energies[k]:.10g} meV is an eigenvalue of the open device (a bound state in the continuum sits "
-            f"exactly there); T was computed at E + {shift:.1e}i meV",
-            ThresholdWarning, stacklevel=3,
-        )
-        trans[k] = transmission_direct(model, [energies[k]], eta=eta + shift)[0, 1, 0]
-    return trans, n_open, flagged
+        trans[k] = _direct_fallback(model, energies[k], eta)
+    return trans, n_open, at_threshold
 
 
 # --------------------------------------------------------------------------
