@@ -234,157 +234,24 @@ def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conduc
         too few rows.
     """
     path = Path(path)
-    if kind not in _KINDS:
-        raise CompareError(f"{path}: {_arg('kind')} must be 'conductance' or 'current', got {kind!r}")
-    if kind == "current":
-        if bias_V is None:
-            raise CompareError(
-                f"{path}: a current trace needs the source-drain bias to become a conductance; pass {_arg('bias_V')} "
-                f"(volts)"
-            )
-        try:
-            bias = float(bias_V)
-        except (TypeError, ValueError):
-            raise CompareError(f"{path}: {_arg('bias_V')} must be a number in V, got {bias_V!r}") from None
-        if not math.isfinite(bias) or bias == 0.0:
-            raise CompareError(f"{path}: {_arg('bias_V')} = {bias!r} V; pass the finite, non-zero bias of the measurement")
-    elif bias_V is not None:
-        raise CompareError(f"{path}: {_arg('bias_V')} applies to {_arg('kind')} 'current' only; drop it or pass "
-                           f"{_arg('kind')} 'current'")
-
-    text = _read_text(path)
-    header: list[str] | None = None
-    delimiter: str | None = "unset"  # type: ignore[assignment]
-    rows: list[tuple[int, list[str]]] = []
-    for line_no, line in enumerate(text.splitlines(), start=1):
-        stripped = line.strip()
-        if not stripped or stripped.startswith("#"):
-            continue
-        if delimiter == "unset":
-            delimiter = _delimiter(stripped)
-        cells = _cells(stripped, delimiter)
-        if header is None and not rows and not any(_is_number(c) for c in cells):
-            header = cells
-            continue
-        rows.append((line_no, cells))
-
-    n_cols = len(header) if header is not None else (len(rows[0][1]) if rows else 0)
-    if header is not None:
-        names, header_units = zip(*(_split_header(c) for c in header)) if header else ((), ())
-        present = ", ".join(repr(c) for c in header)
-    else:
-        names, header_units = tuple(str(i) for i in range(n_cols)), (None,) * n_cols
-        present = ", ".join(str(i) for i in range(n_cols)) + " (no header row: address columns by index)"
-
-    def resolve(spec, what: str, keyword: str):
-        if isinstance(spec, (int, np.integer)) and not isinstance(spec, bool):
-            if 0 <= spec < n_cols:
-                return int(spec)
-        elif isinstance(spec, str):
-            wanted = spec.strip().lower()
-            for i in range(n_cols):
-                if header is not None and wanted in (header[i].lower(), names[i].lower()):
-                    return i
-        raise CompareError(
-            f"{path}: no column {spec!r} for the {what}; columns present: {present}; pass {_arg(keyword)} one of them"
-        )
-
-    if n_cols == 0:
-        raise CompareError(f"{path}: no data rows, need at least {MIN_TRACE_POINTS}; check that this is the trace file")
-    i_gate = 0 if gate_column is None else resolve(gate_column, "gate voltage", "gate_column")
-    i_second = None if second_column is None else resolve(second_column, "second column", "second_column")
-    if value_column is None:
-        left = [i for i in range(n_cols) if i not in (i_gate, i_second)]
-        if len(left) != 1:
-            raise CompareError(
-                f"{path}: cannot tell which column holds the {kind}: columns present: {present}; pass {_arg('value_column')}"
-            )
-        i_value = left[0]
-    else:
-        i_value = resolve(value_column, kind, "value_column")
-    if i_value == i_gate:
-        raise CompareError(f"{path}: {_arg('gate_column')} and {_arg('value_column')} both select column {names[i_gate]!r}; pick two columns")
-
-    # Units of the value column: from the argument and/or the header.
-    table, other = (_CONDUCTANCE_UNITS, _CURRENT_UNITS) if kind == "conductance" else (_CURRENT_UNITS, _CONDUCTANCE_UNITS)
-    head_unit = header_units[i_value]
-    if units is not None and head_unit is not None and _unit_key(units) != _unit_key(head_unit):
-        raise CompareError(
-            f"{path}: column {header[i_value]!r} says [{head_unit}] but {_arg('units')} {units!r} was passed; drop one of them"
-        )
-    unit = units if units is not None else head_unit
-    if unit is None:
-        raise CompareError(
-            f"{path}: the units of the {kind} column {names[i_value]!r} are not known; pass {_arg('units')} "
-            f"(one of {', '.join(table)}) or write them in the header as '{names[i_value]} [unit]'"
-        )
-    key = _unit_key(unit)
-    if key not in table:
-        if key in other:
-            hint = (f"{_arg('kind')} 'current' and {_arg('bias_V')}" if kind == "conductance"
-                    else f"{_arg('kind')} 'conductance'")
-            raise CompareError(f"{path}: the value column is in {unit!r}, which is not a {kind}; pass {hint}")
-        raise CompareError(f"{path}: unknown {kind} unit {unit!r}; use one of {', '.join(table)}")
-    value_scale = table[key]
-    gate_unit = header_units[i_gate] or "V"
+    bias = _check_bias(path, kind, bias_V)
+    table = _split_table(path, _read_text(path))
+    i_gate, i_value, i_second = _pick_columns(table, kind, gate_column, value_column, second_column)
+    value_scale, unit = _value_unit(table, kind, i_value, units)
+    gate_unit = table.units[i_gate] or "V"
     if _unit_key(gate_unit) not in _GATE_UNITS:
-        raise CompareError(f"{path}: gate column {header[i_gate]!r} is in {gate_unit!r}; give the gate voltage in V or mV")
-    gate_scale = _GATE_UNITS[_unit_key(gate_unit)]
-
-    # Parse the rows.
-    columns = [(i_gate, "gate voltage"), (i_value, kind)] + ([(i_second, "second")] if i_second is not None else [])
-    data = np.empty((len(rows), len(columns)))
-    line_nos = np.array([ln for ln, _ in rows], dtype=int)
-    for r, (line_no, cells) in enumerate(rows):
-        if len(cells) != n_cols:
-            raise CompareError(
-                f"{path}, line {line_no}: {len(cells)} cell(s), expected {n_cols} ({present}); fix or remove the row"
-            )
-        for c, (i, _) in enumerate(columns):
-            cell = cells[i]
-            try:
-                value = float(cell)
-            except ValueError:
-                raise CompareError(
-                    f"{path}, line {line_no}: cell {cell!r} in column {names[i]!r} is not a number; "
-                    f"fix or remove the row"
-                ) from None
-            if not math.isfinite(value):
-                what = "NaN" if math.isnan(value) else "infinite"
-                raise CompareError(
-                    f"{path}, line {line_no}: column {names[i]!r} is {what} ({cell!r}); remove the row or "
-                    f"fill in the value"
-                )
-            data[r, c] = value
-    if len(rows) < MIN_TRACE_POINTS:
-        raise CompareError(
-            f"{path}: {len(rows)} data row(s), need at least {MIN_TRACE_POINTS}; check that the file holds the whole trace"
-        )
-
-    gate = data[:, 0] * gate_scale
-    step = np.diff(gate)
-    if np.any(step == 0.0):
-        k = int(np.flatnonzero(step == 0.0)[0])
-        raise CompareError(
-            f"{path}, line {line_nos[k + 1]}: gate voltage {float(data[k + 1, 0])!r} repeats line {line_nos[k]}; "
-            f"average or remove repeated points (a trace must not revisit a gate voltage)"
-        )
-    direction = np.sign(step[0])
-    turns = np.flatnonzero(np.sign(step) != direction)
-    if turns.size:
-        k = int(turns[0])
-        sense = "rising" if direction > 0 else "falling"
-        raise CompareError(
-            f"{path}, line {line_nos[k + 1]}: gate voltage turns back ({float(data[k, 0])!r} -> {float(data[k + 1, 0])!r} after "
-            f"{sense} from line {line_nos[0]}); split up and down sweeps into separate files"
-        )
-    order = slice(None) if direction > 0 else slice(None, None, -1)
+        raise CompareError(f"{path}: gate column {table.header[i_gate]!r} is in {gate_unit!r}; give the gate voltage "
+                           "in V or mV")
+    columns = [i_gate, i_value] + ([i_second] if i_second is not None else [])
+    data, line_nos = _numbers(table, columns)
+    gate = data[:, 0] * _GATE_UNITS[_unit_key(gate_unit)]
+    order = _gate_order(path, gate, data[:, 0], line_nos)
     value = data[:, 1] * value_scale
     if kind == "current":
         value = value / bias
-    unit_text = f"[{unit}]"
     if description is None:
-        description = f"{kind} column {names[i_value]!r} {unit_text} against gate column {names[i_gate]!r} [{gate_unit}]"
+        description = (f"{kind} column {table.names[i_value]!r} [{unit}] against gate column "
+                       f"{table.names[i_gate]!r} [{gate_unit}]")
         if kind == "current":
             description += f", divided by the bias {bias:g} V"
         description += f", read from {path.name}"
@@ -394,5 +261,176 @@ def read_trace(path, *, gate_column=None, value_column=None, kind: str = "conduc
         source=str(path),
         description=description,
         second_values=None if i_second is None else data[order, 2],
-        second_name="" if i_second is None else (header[i_second] if header is not None else f"column {i_second}"),
+        second_name="" if i_second is None else (table.header[i_second] if table.has_header else f"column {i_second}"),
     )
+
+
+def _check_bias(path: Path, kind: str, bias_V) -> float | None:
+    """The source-drain bias (V) a current trace needs, or None for a conductance trace."""
+    if kind not in _KINDS:
+        raise CompareError(f"{path}: {_arg('kind')} must be 'conductance' or 'current', got {kind!r}")
+    if kind == "conductance":
+        if bias_V is not None:
+            raise CompareError(f"{path}: {_arg('bias_V')} applies to {_arg('kind')} 'current' only; drop it or pass "
+                               f"{_arg('kind')} 'current'")
+        return None
+    if bias_V is None:
+        raise CompareError(
+            f"{path}: a current trace needs the source-drain bias to become a conductance; pass {_arg('bias_V')} "
+            f"(volts)"
+        )
+    try:
+        bias = float(bias_V)
+    except (TypeError, ValueError):
+        raise CompareError(f"{path}: {_arg('bias_V')} must be a number in V, got {bias_V!r}") from None
+    if not math.isfinite(bias) or bias == 0.0:
+        raise CompareError(f"{path}: {_arg('bias_V')} = {bias!r} V; pass the finite, non-zero bias of the measurement")
+    return bias
+
+
+@dataclass(frozen=True)
+class _TextTable:
+    """A trace file split into cells: the header (if any), column names and units, and the data rows."""
+
+    path: Path
+    header: tuple
+    names: tuple
+    units: tuple
+    rows: list  # (line number, cells)
+    has_header: bool
+
+    @property
+    def n_columns(self) -> int:
+        return len(self.names)
+
+    def present(self) -> str:
+        if self.has_header:
+            return ", ".join(repr(c) for c in self.header)
+        return ", ".join(self.names) + " (no header row: address columns by index)"
+
+
+def _split_table(path: Path, text: str) -> _TextTable:
+    """Cells of every non-comment line; the first line is a header when none of its cells is a number."""
+    lines = [(no, line.strip()) for no, line in enumerate(text.splitlines(), start=1)]
+    lines = [(no, line) for no, line in lines if line and not line.startswith("#")]
+    if not lines:
+        raise CompareError(f"{path}: no data rows, need at least {MIN_TRACE_POINTS}; check that this is the trace file")
+    delimiter = _delimiter(lines[0][1])  # the first line fixes the separator for the whole file
+    cells = [(no, _cells(line, delimiter)) for no, line in lines]
+    has_header = not any(_is_number(c) for c in cells[0][1])
+    if has_header:
+        header = tuple(cells[0][1])
+        names, units = zip(*(_split_header(c) for c in header)) if header else ((), ())
+        rows = cells[1:]
+    else:
+        rows = cells
+        header = ()
+        names, units = tuple(str(i) for i in range(len(rows[0][1]))), (None,) * len(rows[0][1])
+    if not names:
+        raise CompareError(f"{path}: no data rows, need at least {MIN_TRACE_POINTS}; check that this is the trace file")
+    return _TextTable(path=path, header=header, names=tuple(names), units=tuple(units), rows=rows,
+                      has_header=has_header)
+
+
+def _pick_columns(table: _TextTable, kind: str, gate_column, value_column, second_column):
+    """Indices of the gate, value and optional second column, from names or indices (defaults documented above)."""
+    path, n_cols = table.path, table.n_columns
+
+    def resolve(spec, what: str, keyword: str) -> int:
+        if isinstance(spec, (int, np.integer)) and not isinstance(spec, bool):
+            if 0 <= spec < n_cols:
+                return int(spec)
+        elif isinstance(spec, str):
+            wanted = spec.strip().lower()
+            for i in range(n_cols):
+                if table.has_header and wanted in (table.header[i].lower(), table.names[i].lower()):
+                    return i
+        raise CompareError(f"{path}: no column {spec!r} for the {what}; columns present: {table.present()}; pass "
+                           f"{_arg(keyword)} one of them")
+
+    i_gate = 0 if gate_column is None else resolve(gate_column, "gate voltage", "gate_column")
+    i_second = None if second_column is None else resolve(second_column, "second column", "second_column")
+    if value_column is None:
+        left = [i for i in range(n_cols) if i not in (i_gate, i_second)]
+        if len(left) != 1:
+            raise CompareError(f"{path}: cannot tell which column holds the {kind}: columns present: "
+                               f"{table.present()}; pass {_arg('value_column')}")
+        i_value = left[0]
+    else:
+        i_value = resolve(value_column, kind, "value_column")
+    if i_value == i_gate:
+        raise CompareError(f"{path}: {_arg('gate_column')} and {_arg('value_column')} both select column "
+                           f"{table.names[i_gate]!r}; pick two columns")
+    return i_gate, i_value, i_second
+
+
+def _value_unit(table: _TextTable, kind: str, i_value: int, units) -> tuple[float, str]:
+    """The value column's scale to S (or A) and its unit, from the argument and/or the header."""
+    path = table.path
+    known, other = (_CONDUCTANCE_UNITS, _CURRENT_UNITS) if kind == "conductance" else (_CURRENT_UNITS, _CONDUCTANCE_UNITS)
+    head_unit = table.units[i_value]
+    if units is not None and head_unit is not None and _unit_key(units) != _unit_key(head_unit):
+        raise CompareError(f"{path}: column {table.header[i_value]!r} says [{head_unit}] but {_arg('units')} "
+                           f"{units!r} was passed; drop one of them")
+    unit = units if units is not None else head_unit
+    if unit is None:
+        raise CompareError(
+            f"{path}: the units of the {kind} column {table.names[i_value]!r} are not known; pass {_arg('units')} "
+            f"(one of {', '.join(known)}) or write them in the header as '{table.names[i_value]} [unit]'"
+        )
+    key = _unit_key(unit)
+    if key not in known:
+        if key in other:
+            hint = (f"{_arg('kind')} 'current' and {_arg('bias_V')}" if kind == "conductance"
+                    else f"{_arg('kind')} 'conductance'")
+            raise CompareError(f"{path}: the value column is in {unit!r}, which is not a {kind}; pass {hint}")
+        raise CompareError(f"{path}: unknown {kind} unit {unit!r}; use one of {', '.join(known)}")
+    return known[key], unit
+
+
+def _numbers(table: _TextTable, columns: list) -> tuple[np.ndarray, np.ndarray]:
+    """The chosen columns of every row as floats (rows x columns) and the rows' line numbers."""
+    path, n_cols = table.path, table.n_columns
+    data = np.empty((len(table.rows), len(columns)))
+    for r, (line_no, cells) in enumerate(table.rows):
+        if len(cells) != n_cols:
+            raise CompareError(f"{path}, line {line_no}: {len(cells)} cell(s), expected {n_cols} "
+                               f"({table.present()}); fix or remove the row")
+        for c, i in enumerate(columns):
+            cell = cells[i]
+            try:
+                value = float(cell)
+            except ValueError:
+                raise CompareError(f"{path}, line {line_no}: cell {cell!r} in column {table.names[i]!r} is not a "
+                                   "number; fix or remove the row") from None
+            if not math.isfinite(value):
+                what = "NaN" if math.isnan(value) else "infinite"
+                raise CompareError(f"{path}, line {line_no}: column {table.names[i]!r} is {what} ({cell!r}); remove "
+                                   "the row or fill in the value")
+            data[r, c] = value
+    if len(table.rows) < MIN_TRACE_POINTS:
+        raise CompareError(f"{path}: {len(table.rows)} data row(s), need at least {MIN_TRACE_POINTS}; check that the "
+                           "file holds the whole trace")
+    return data, np.array([no for no, _ in table.rows], dtype=int)
+
+
+def _gate_order(path: Path, gate: np.ndarray, written, line_nos) -> slice:
+    """The slice that makes the gate voltage increase; one-line errors for a repeated or turning gate voltage."""
+    step = np.diff(gate)
+    if np.any(step == 0.0):
+        k = int(np.flatnonzero(step == 0.0)[0])
+        raise CompareError(
+            f"{path}, line {line_nos[k + 1]}: gate voltage {float(written[k + 1])!r} repeats line {line_nos[k]}; "
+            f"average or remove repeated points (a trace must not revisit a gate voltage)"
+        )
+    direction = np.sign(step[0])
+    turns = np.flatnonzero(np.sign(step) != direction)
+    if turns.size:
+        k = int(turns[0])
+        sense = "rising" if direction > 0 else "falling"
+        raise CompareError(
+            f"{path}, line {line_nos[k + 1]}: gate voltage turns back ({float(written[k])!r} -> "
+            f"{float(written[k + 1])!r} after {sense} from line {line_nos[0]}); split up and down sweeps into "
+            "separate files"
+        )
+    return slice(None) if direction > 0 else slice(None, None, -1)
