@@ -943,6 +943,63 @@ def _problems(*, sweep, trace, fitted, p0, x0, sol, ranges, scales, reduced_chi2
     return problems
 
 
+def _fitted_names(sweep, fit, fit_series: bool, fit_temperature: bool, where: str) -> tuple:
+    """The fitted parameters in canonical order (default: lever arm and offset, or the offset on a gate axis)."""
+    names = sweep.parameter_names
+    if fit is None:
+        fit = ("lever_arm", "offset") if sweep.mode == "energy" else ("offset",)
+    if isinstance(fit, str):
+        fit = (fit,)
+    fitted = list(dict.fromkeys(fit))
+    if fit_series and "r_series" not in fitted:
+        fitted.append("r_series")
+    if fit_temperature and "temperature" not in fitted:
+        fitted.append("temperature")
+    bad = [n for n in fitted if n not in names]
+    if bad:
+        extra = " (a stored gate axis needs no lever arm)" if "lever_arm" in bad and sweep.mode == "gate" else ""
+        raise CompareError(f"{where}: cannot fit {bad}{extra} ({_arg('fit')}); fit names are {list(names)}")
+    if not fitted:
+        raise CompareError(f"{where}: nothing to fit; pass {_arg('fit')} with at least one of {list(names)}")
+    return tuple(n for n in names if n in fitted)
+
+
+def _start_values(sweep, trace, initial: dict, r_series_ohm, temperature_K, fitted, mu_ref: float, where: str) -> dict:
+    """Start (or fixed) values of every parameter.
+
+    In energy mode the offset defaults to the gate voltage that puts the trace's middle on the middle of the
+    stored energies; on a stored gate axis the offset defaults to 0 V and a lever arm is refused.
+    """
+    unknown = sorted(set(initial) - {"lever_arm", "offset"})
+    if unknown:
+        raise CompareError(
+            f"{where}: initial names {unknown}; it takes 'lever_arm' and 'offset' (r_series_ohm and temperature_K "
+            f"are keywords of their own)"
+        )
+    p0 = {"r_series": _check_resistance(r_series_ohm), "temperature": _check_temperature(temperature_K, positive=True)}
+    if sweep.mode == "energy":
+        if "lever_arm" not in initial:
+            raise CompareError(
+                f"{where}: give the lever arm {_arg('lever_arm')} in meV/V (e.g. the energy spacing of two stored "
+                f"peaks over the gate spacing of the measured ones)"
+            )
+        p0["lever_arm"] = float(initial["lever_arm"])
+        if not math.isfinite(p0["lever_arm"]) or p0["lever_arm"] == 0.0:
+            raise CompareError(f"{where}: {_arg('lever_arm')} = {p0['lever_arm']!r}; pass a finite, non-zero meV/V")
+        e = sweep.energies
+        default_offset = 0.5 * (trace.gate_V[0] + trace.gate_V[-1]) - (0.5 * (e[0] + e[-1]) - mu_ref) / p0["lever_arm"]
+        p0["offset"] = float(initial.get("offset", default_offset))
+    else:
+        if "lever_arm" in initial:
+            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage; drop {_arg('lever_arm')}")
+        p0["offset"] = float(initial.get("offset", 0.0))
+    if not math.isfinite(p0["offset"]):
+        raise CompareError(f"{where}: {_arg('offset')} = {p0['offset']!r}; pass a finite gate voltage in V")
+    if "temperature" in fitted:
+        p0["temperature"] = max(p0["temperature"], _MIN_FIT_TEMPERATURE_K)
+    return p0
+
+
 def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series_ohm=0.0, fit_series: bool = False,
               fit_temperature: bool = False, noise_S=None, initial: Mapping[str, float] | None = None,
               bounds: Mapping[str, tuple] | None = None, mu_ref_meV: float | None = None, leads=None,
@@ -1026,58 +1083,17 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
     sweep = _Sweep(result, leads=leads, gate_axis=gate_axis, select=select)
     where = f"{trace.source or 'trace'} vs {sweep.path}"
     names = sweep.parameter_names
-    if fit is None:
-        fit = ("lever_arm", "offset") if sweep.mode == "energy" else ("offset",)
-    if isinstance(fit, str):
-        fit = (fit,)
-    fitted = list(dict.fromkeys(fit))
-    if fit_series and "r_series" not in fitted:
-        fitted.append("r_series")
-    if fit_temperature and "temperature" not in fitted:
-        fitted.append("temperature")
-    bad = [n for n in fitted if n not in names]
-    if bad:
-        extra = " (a stored gate axis needs no lever arm)" if "lever_arm" in bad and sweep.mode == "gate" else ""
-        raise CompareError(f"{where}: cannot fit {bad}{extra} ({_arg('fit')}); fit names are {list(names)}")
-    if not fitted:
-        raise CompareError(f"{where}: nothing to fit; pass {_arg('fit')} with at least one of {list(names)}")
-    fitted = tuple(n for n in names if n in fitted)  # canonical order
+    fitted = _fitted_names(sweep, fit, fit_series, fit_temperature, where)
     n, k = trace.n_points, len(fitted)
     if n <= k:
         raise CompareError(f"{where}: {n} points cannot determine {k} parameters; measure more points or fit fewer")
-    initial = dict(initial or {})
-    unknown = sorted(set(initial) - {"lever_arm", "offset"})
-    if unknown:
-        raise CompareError(
-            f"{where}: initial names {unknown}; it takes 'lever_arm' and 'offset' (r_series_ohm and temperature_K "
-            f"are keywords of their own)"
-        )
     mu_ref, mu_ref_source = _reference_potential(sweep, mu_ref_meV)
-    p0 = {"r_series": _check_resistance(r_series_ohm), "temperature": _check_temperature(temperature_K, positive=True)}
-    if sweep.mode == "energy":
-        if "lever_arm" not in initial:
-            raise CompareError(
-                f"{where}: give the lever arm {_arg('lever_arm')} in meV/V (e.g. the energy spacing of two stored "
-                f"peaks over the gate spacing of the measured ones)"
-            )
-        p0["lever_arm"] = float(initial["lever_arm"])
-        if not math.isfinite(p0["lever_arm"]) or p0["lever_arm"] == 0.0:
-            raise CompareError(f"{where}: {_arg('lever_arm')} = {p0['lever_arm']!r}; pass a finite, non-zero meV/V")
-        e = sweep.energies
-        default_offset = 0.5 * (trace.gate_V[0] + trace.gate_V[-1]) - (0.5 * (e[0] + e[-1]) - mu_ref) / p0["lever_arm"]
-        p0["offset"] = float(initial.get("offset", default_offset))
-    else:
-        if "lever_arm" in initial:
-            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage; drop {_arg('lever_arm')}")
-        p0["offset"] = float(initial.get("offset", 0.0))
-    if not math.isfinite(p0["offset"]):
-        raise CompareError(f"{where}: {_arg('offset')} = {p0['offset']!r}; pass a finite gate voltage in V")
+    p0 = _start_values(sweep, trace, dict(initial or {}), r_series_ohm, temperature_K, fitted, mu_ref, where)
     if noise_S is not None:
         sigma = float(noise_S)
         if not math.isfinite(sigma) or sigma <= 0.0:
             raise CompareError(f"{where}: {_arg('noise_S')} = {noise_S!r}; pass the positive noise sigma in S, or "
                                f"leave it out to estimate it")
-    p0["temperature"] = max(p0["temperature"], _MIN_FIT_TEMPERATURE_K) if "temperature" in fitted else p0["temperature"]
     ranges = _parameter_bounds(fitted, p0, dict(bounds or {}), where, user_given=bounds is not None)
 
     gate = trace.gate_V
