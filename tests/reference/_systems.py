@@ -23,6 +23,7 @@ need no shift.
 import numpy as np
 import scipy.sparse as sp
 
+from builders import strip_device as _strip
 from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
 from rgftrans.system.geometry import rectangle
 from rgftrans.system.lattices import square
@@ -46,18 +47,13 @@ def chain_device(x_lo, x_hi, potential=0.0, *, left_potential=0.0, right_potenti
 
 
 def strip_device(width, length, potential=0.0, *, orientation="horizontal"):
-    """Hard-wall strip ``width`` rows across and ``length`` columns long, leads at both ends.
+    """Hard-wall strip ``width`` rows across and ``length`` columns long, leads at both ends, discretised.
 
-    ``orientation="vertical"`` runs the strip along y, with bottom and top leads.
+    ``orientation="vertical"`` runs the strip along y, with bottom and top leads.  The strip itself is the
+    suite's one strip builder (:func:`builders.strip_device`).
     """
-    pad = 0.4  # sites are the lattice points inside; the margin keeps one-row/one-column rectangles non-degenerate
-    if orientation == "horizontal":
-        region = rectangle(-pad, -pad, length - 1 + pad, width - 1 + pad)
-        leads = [Lead("L", "left", (0, width - 1)), Lead("R", "right", (0, width - 1))]
-    else:
-        region = rectangle(-pad, -pad, width - 1 + pad, length - 1 + pad)
-        leads = [Lead("B", "bottom", (0, width - 1)), Lead("T", "top", (0, width - 1))]
-    return Device(region, leads, lattice=square(1.0), hopping=1.0, potential=potential).discretise()
+    sides = ("left", "right") if orientation == "horizontal" else ("bottom", "top")
+    return _strip(width, length, sides=sides, potential=potential).discretise()
 
 
 def site_table_potential(table):
