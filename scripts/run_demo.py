@@ -136,7 +136,7 @@ def multi_terminal(out: Path, name: str, title: str) -> None:
     n = len(model.leads)
     names = res.lead_names
     # Unitarity: every column of [R; T] sums to the open channels of the source lead.
-    col_err = np.abs(res.transmission.sum(axis=1) - res.n_open).max()
+    col_err = np.abs(res.matrix.sum(axis=1) - res.n_open).max()
     print(f"[{name}] invented example: {model.n_sites} sites, {n} leads, {len(energies)} energies in "
           f"{elapsed:.2f} s; max |sum_p T_pq - N_q| = {col_err:.1e}")
     fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
@@ -145,7 +145,7 @@ def multi_terminal(out: Path, name: str, title: str) -> None:
     pairs = [(p, q) for q in range(n) for p in range(q + 1, n)]
     for k, (p, q) in enumerate(pairs):
         ls, lw = styles[k % len(styles)]
-        ax.plot(res.energies, res.transmission[:, p, q], ls=ls, lw=lw, label=f"T {names[q]} → {names[p]}")
+        ax.plot(res.energies, res.matrix[:, p, q], ls=ls, lw=lw, label=f"T {names[q]} → {names[p]}")
     ax.set_xlabel("energy E (meV)")
     ax.set_ylabel("transmission T")
     ax.set_title(title)

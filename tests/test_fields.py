@@ -67,7 +67,7 @@ def test_multiterminal_reciprocity_and_its_breaking():
 
     def tm(b):
         dev = Device(region, leads, lattice=square(A), field=b, potential=pot)
-        return transmission_matrix(dev.discretise(), [3.0, 5.5]).transmission
+        return transmission_matrix(dev.discretise(), [3.0, 5.5]).matrix
 
     t_p, t_m = tm(1.1), tm(-1.1)
     assert np.allclose(t_p, np.swapaxes(t_m, 1, 2), atol=1e-9)  # round-off, three leads (module docstring)

@@ -76,7 +76,7 @@ def test_multiterminal_sum_rules(seed, n_leads):
     """R_pp + sum_{q!=p} T_qp = N_p and R_qq + sum_{p!=q} T_pq = N_q (Büttiker, PRL 57, 1761 (1986), from memory)."""
     model, energy = random_device(seed, n_leads)
     res = transmission_matrix(model, [energy])
-    t = res.transmission[0]
+    t = res.matrix[0]
     n_open = res.n_open[0]
     # 1e-9: sums of O(10) terms, each exact to round-off of an RGF sweep.
     assert np.allclose(t.sum(axis=0), n_open, atol=1e-9)  # columns: everything sent from q ends somewhere
@@ -91,7 +91,7 @@ def test_multiterminal_sum_rules(seed, n_leads):
 def test_scattering_states_carry_the_transmission(seed, n_leads):
     """sum |amplitude|^2 into lead p from the RGF scattering states equals T_p0 (Fisher & Lee, PRB 23, 6851 (1981), from memory)."""
     model, energy = random_device(seed, n_leads)
-    res = transmission_matrix(model, [energy]).transmission[0]
+    res = transmission_matrix(model, [energy]).matrix[0]
     states = scattering_states(model, energy, 0)
     for p in range(n_leads):
         assert states.transmission_into(p) == pytest.approx(res[p, 0], abs=1e-9)

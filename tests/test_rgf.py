@@ -287,7 +287,7 @@ def test_singular_partial_system_falls_back_to_a_direct_solve():
     ref = transmission_direct(model, energies)[:, 1, 0]
     assert ref[1] > 0.01  # the neighbouring energy transmits: the comparison is not 0 = 0 everywhere
     assert np.allclose(transmission(model, energies).transmission, ref, atol=1e-12)
-    assert np.allclose(transmission_matrix(model, energies).transmission[:, 1, 0], ref, atol=1e-9)
+    assert np.allclose(transmission_matrix(model, energies).matrix[:, 1, 0], ref, atol=1e-9)
 
 
 def test_energy_exactly_on_a_bound_state_in_the_continuum():

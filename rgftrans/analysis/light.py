@@ -160,11 +160,11 @@ def waveguide_spectrum(pm: PhotonicModel, frequencies_GHz) -> Spectrum:
     lams = pm.lam(freqs)
     if pm.is_lossy:
         parts = [transmission_matrix(pm.model_at(lam), [lam]) for lam in lams]
-        tmat = np.concatenate([p.transmission for p in parts])
+        tmat = np.concatenate([p.matrix for p in parts])
         n_open = np.concatenate([p.n_open for p in parts])
     else:
         res = transmission_matrix(pm.model, lams)
-        tmat, n_open = res.transmission, res.n_open
+        tmat, n_open = res.matrix, res.n_open
     absorption = n_open - tmat.sum(axis=1)
     names = tuple(lead.name for lead in pm.model.leads)
     return Spectrum(frequencies_GHz=freqs, transmission=tmat, n_open=n_open, absorption=absorption,

@@ -141,7 +141,7 @@ def _refined_pairs(cfg: RunConfig, model, slicing, pair: np.ndarray, point: dict
 
     def evaluate(x):
         res = transmission_matrix(model, x, slicing=slicing)
-        return _pair_conductances(res.transmission, res.n_open)
+        return _pair_conductances(res.matrix, res.n_open)
 
     sampling = refine(evaluate, energies, tolerance=cfg.energy.refine_tolerance, max_points=cap, values=pair)
     if not sampling.converged:
@@ -193,7 +193,7 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
         out = {"transmission": t, "n_open": res.n_open}
     else:
         res = transmission_matrix(model, energies, slicing=slicing)
-        out = {"transmission": res.transmission, "n_open": res.n_open}
+        out = {"transmission": res.matrix, "n_open": res.n_open}
     pair = _pair_conductances(out["transmission"], out["n_open"])
     refined = None
     if cfg.energy.refine_tolerance is not None:

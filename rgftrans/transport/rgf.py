@@ -426,9 +426,11 @@ class TransmissionMatrixResult:
     Attributes
     ----------
     energies : (n_E,) float ndarray, meV
-    transmission : (n_E, n_leads, n_leads) float ndarray
-        ``transmission[k, p, q]``: from lead q into lead p, per spin; the
-        diagonal holds the reflection ``R_pp``.
+    matrix : (n_E, n_leads, n_leads) float ndarray
+        ``matrix[k, p, q]``: transmission from lead q into lead p; the
+        diagonal holds the reflection ``R_pp``.  (A result's ``transmission``
+        is always one number per energy, as in :class:`TransmissionResult`;
+        the matrix has its own name.)
     n_open : (n_E, n_leads) int ndarray
     at_threshold : (n_E,) bool ndarray
     lead_names : tuple of str
@@ -437,7 +439,7 @@ class TransmissionMatrixResult:
     """
 
     energies: np.ndarray
-    transmission: np.ndarray
+    matrix: np.ndarray
     n_open: np.ndarray
     at_threshold: np.ndarray
     lead_names: tuple
@@ -452,7 +454,7 @@ class TransmissionMatrixResult:
         Multiply by :data:`rgftrans.system.materials.CONDUCTANCE_QUANTUM_S` for siemens.
         """
         eye = np.eye(len(self.lead_names))
-        return conductance_g0(self.n_open[:, :, None] * eye - self.transmission, self.spin_degeneracy)
+        return conductance_g0(self.n_open[:, :, None] * eye - self.matrix, self.spin_degeneracy)
 
 
 def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
@@ -497,7 +499,7 @@ def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
                     t += n_open[k, p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real
                 trans[k, p, q] = t
     warn_thresholds(energies, flagged)
-    return TransmissionMatrixResult(energies=energies, transmission=trans, n_open=n_open,
+    return TransmissionMatrixResult(energies=energies, matrix=trans, n_open=n_open,
                                     at_threshold=flagged, lead_names=tuple(l.name for l in model.leads),
                                     spin_degeneracy=model.spin_degeneracy)
 
