@@ -7,9 +7,10 @@ ARPACK above, the same answer either way, and a one-line
 On it, the pole solver (module ``poles``): :class:`Resonance`,
 :func:`effective_hamiltonian` (``H + Sigma(E)``), :func:`resonances`
 (self-consistent in ``Re z``; a model without leads gives its closed levels),
-:func:`follow_pole` and :func:`window_poles`.  Builds on ``transport``'s
-layers below it (leads for the self-energies); the searches that use these
-poles (dark states, BICs, resolution checks) are ``analysis``.
+:func:`follow_pole` and :func:`window_poles`.  Sits between ``transport``
+and ``analysis`` and uses only the layers below (``leads`` for the
+self-energies, ``system`` for the model); the searches that use these poles
+(dark states, BICs, resolution checks) are ``analysis``.
 """
 
 from rgftrans._lazy import lazy_exports
