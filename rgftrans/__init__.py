@@ -15,9 +15,11 @@ in this list (a contract checked by the test suite):
 ``rgftrans.transport``
     :func:`transmission`, :func:`transmission_matrix` (RGF), :func:`ldos` and the
     other local quantities, and the sparse direct reference solver.
+``rgftrans.spectra``
+    Resonance poles (:func:`resonances`) and eigenvalues near an energy.
 ``rgftrans.analysis``
     Temperature (:func:`thermal_conductance`), the regime estimate, resolution
-    checks, resonance poles and the search for bound states in the continuum.
+    checks, Fano fits and the search for bound states in the continuum.
 ``rgftrans.io``
     Files: TOML run configs (:func:`load_config`), HDF5 result files
     (:func:`read_result`), sweeps (:func:`run_sweep`), measured traces and fits.
@@ -64,7 +66,7 @@ _EXPORTS = {
     "transmission_direct": "transport.direct", "scattering_matrix": "transport.direct",
     # analysis
     "thermal_conductance": "analysis.thermal", "landauer_current": "analysis.thermal",
-    "regime_estimate": "analysis.regime", "resonances": "analysis.darkstates",
+    "regime_estimate": "analysis.regime", "resonances": "spectra.poles",
     # io
     "load_config": "io.config", "read_result": "io.store", "run_sweep": "io.sweeps",
     # errors

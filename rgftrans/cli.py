@@ -90,7 +90,7 @@ def _refuse_waveguide(path) -> None:
 
 def _window_poles(cfg, model):
     """The model's resonance poles in the config's energy window (None for a single energy)."""
-    from rgftrans.analysis.resolution import window_poles
+    from rgftrans.spectra.poles import window_poles
 
     energies = cfg.energies()
     return window_poles(model, (energies[0], energies[-1])) if energies.size > 1 else None
@@ -408,6 +408,7 @@ def _darkstates_plane(args, data) -> int:
 
     import numpy as np
 
+    from rgftrans.analysis.darkstates import fano_collapse
     from rgftrans.io.searches import stored_plane_builder, search_sweep_plane, write_grid_search
     from rgftrans.plots.figures import plot_bic_plane, plot_fano_collapse, plot_map
 
@@ -450,7 +451,8 @@ def _darkstates_plane(args, data) -> int:
         build = stored[1]
         bic = inside[0]
         step = float(np.median(np.diff(search.p1)))
-        fig, _ = plot_fano_collapse(build, bic, step / 4, name=n1)
+        collapse = fano_collapse(build, bic, step / 4, parameter_unit=data.axes[0].units)
+        fig, _ = plot_fano_collapse(collapse, name=n1)
         fig.savefig(f"{prefix}_fano_collapse.png", dpi=150)
         model = build(*bic.parameter)
         fig, _ = plot_map(model, model.per_site(bic.state**2), label="|ψ|² (per site)",

@@ -53,6 +53,10 @@ class SearchFailed(ComputationFailed):
     """A search (e.g. for dark states) produced no valid result; nothing is reported as found."""
 
 
+class EigenSolveFailed(ComputationFailed):
+    """An iterative eigenvalue solve (shift-invert ARPACK) did not converge or broke down; nothing is returned."""
+
+
 class RgftransWarning(UserWarning):
     """Base class of warnings about legal but suspicious input."""
 

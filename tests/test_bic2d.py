@@ -7,7 +7,7 @@ import pytest
 import scipy.sparse as sp
 
 from rgftrans.analysis.bic2d import coupling_residuals, locate_bic_2d, search_grid
-from rgftrans.analysis.darkstates import resonances
+from rgftrans.spectra.poles import resonances
 from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
 from rgftrans.errors import RgftransError
 from rgftrans.system.fields import MagneticField
@@ -53,6 +53,43 @@ def test_two_level_bic_found_to_1e6():
     assert bic.orders_of_magnitude >= 6  # the pole solver, independently, sees the width collapse
     assert bic.exponent == pytest.approx(2.0, abs=0.1)  # Gamma ~ (p - p*)^2 (a simple zero of each coupling)
     assert bic.solves <= 40
+
+
+def test_fano_collapse_data_on_the_two_level_bic():
+    """The data behind the fano-collapse figure: the width closes as |p - p*|^2 (a simple zero of the coupling, see
+    locate_bic_2d; Gamma / d^2 tends to a constant, 0.139 meV per unit kappa^2 here, and the three nearest distances
+    agree to 1e-3 relative: the quartic correction is 2e-4 of it at d = 1e-4), the lines beside the BIC have a
+    Fano zero and the BIC itself shows no line.  Each number is the one the figure used to compute itself (same
+    recipe, same floating-point operations), so the figure is unchanged."""
+    from rgftrans.analysis.darkstates import fano_collapse
+    from rgftrans.spectra.poles import follow_pole
+
+    bic = locate_bic_2d(two_levels, (0.30, 0.30), (0.05, 0.05), E_STAR + 0.05)
+    step = 0.04
+    c = fano_collapse(two_levels, bic, step, parameter_unit="meV")
+    assert c.shifts.tolist() == [0.04, 0.02, 0.01, 0.0] and c.parameter_unit == "meV"
+    assert c.transmissions.shape == (4, 800) and c.distances == pytest.approx(step * np.geomspace(1e-3, 1.0, 13))
+    ratio = c.widths_meV / c.distances**2
+    assert np.ptp(ratio[:3]) <= 1e-3 * ratio[0]
+    near = c.distances <= 0.1 * step
+    assert np.polyfit(np.log(c.distances[near]), np.log(c.widths_meV[near]), 1)[0] == pytest.approx(2.0, abs=0.01)
+    # The old figure's recipe, step by step.
+    p1, p2 = bic.parameter
+    seed = bic.state.astype(complex)
+    poles = [follow_pole(two_levels(p1 + f * step, p2), bic.energy_meV, seed) for f in (1.0, 0.5, 0.25)]
+    assert c.line_widths_meV[:3].tolist() == [r.width_meV for r in poles]
+    assert c.centres_meV.tolist() == [r.energy_meV for r in poles] + [bic.energy_meV]
+    half = 6 * max(r.width_meV for r in poles)
+    assert np.array_equal(c.offsets_meV, np.linspace(-half, half, 800))
+    for k, x in enumerate(c.shifts):
+        t = transmission(two_levels(p1 + x, p2), c.centres_meV[k] + c.offsets_meV).transmission
+        assert np.array_equal(c.transmissions[k], t), k
+    x = c.distances[4]
+    assert c.widths_meV[4] == follow_pole(two_levels(p1 + x, p2), bic.energy_meV, seed).width_meV
+    # The physics the figure shows: a Fano zero beside the BIC (exact for real single-channel transport), none at it.
+    assert c.transmissions[:3].min(axis=1).max() < 1e-5 and c.transmissions[:3].max(axis=1).min() > 0.9
+    e, t_bic = c.offsets_meV, c.transmissions[-1]
+    assert np.abs(t_bic - np.polyval(np.polyfit(e, t_bic, 2), e)).max() < 1e-9  # smooth background only
 
 
 def test_grid_search_finds_the_closed_form_bic_once():

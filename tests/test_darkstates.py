@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from rgftrans.analysis.darkstates import coupling_diagnostics, find_resonances, fit_fano, locate_bic, resonances, track_resonance
+from rgftrans.analysis.darkstates import coupling_diagnostics, find_resonances, fit_fano, locate_bic, track_resonance
+from rgftrans.spectra.poles import resonances
 from rgftrans.system.device import Device, Lead, LeadModel, TightBindingModel
 from rgftrans.errors import RgftransError
 from rgftrans.system.geometry import rectangle

@@ -258,7 +258,7 @@ def shifted_levels(tmp_path_factory):
 def _narrow_resonance(path):
     """The narrow (not protected) resonance of the unshifted dot near 0.61 meV."""
     from rgftrans.io.config import parse_config
-    from rgftrans.analysis.darkstates import resonances
+    from rgftrans.spectra.poles import resonances
 
     cfg = parse_config(read_result(path).config_text)
     model = cfg.build_device({**cfg.base_point(), "potential.constant_meV": 0.0}).discretise()

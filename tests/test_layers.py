@@ -1,9 +1,11 @@
-"""The package's layers: each subpackage imports only from those below it (contract in pyproject.toml).
+"""The package's layers: each subpackage imports only from those below it, and figures import no solver
+(two contracts in pyproject.toml).
 
 The contract is checked by import-linter, which reads every import statement,
 those inside functions included.  The second test proves the check can fail:
 it copies the package, adds one upward import (the lowest layer reaching for
-the command line) and expects the contract to break.  The third builds a
+the command line) and expects the contract to break; the next does the same
+for a figure importing transport, spectra or leads.  The third builds a
 wheel, as a non-editable install would, and checks every subpackage is in it.
 """
 
@@ -18,7 +20,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
-SUBPACKAGES = ("system", "electrostatics", "leads", "transport", "analysis", "io", "plots")
+SUBPACKAGES = ("system", "electrostatics", "leads", "transport", "spectra", "analysis", "io", "plots")
 
 
 def _lint(cwd: Path) -> subprocess.CompletedProcess:
@@ -30,7 +32,7 @@ def _lint(cwd: Path) -> subprocess.CompletedProcess:
 def test_layers_contract_is_kept():
     result = _lint(ROOT)
     assert result.returncode == 0, result.stdout + result.stderr
-    assert "1 kept, 0 broken" in result.stdout
+    assert "2 kept, 0 broken" in result.stdout
 
 
 def test_an_upward_import_breaks_the_contract(tmp_path):
@@ -41,6 +43,23 @@ def test_an_upward_import_breaks_the_contract(tmp_path):
     result = _lint(tmp_path)
     assert result.returncode != 0
     assert "rgftrans.system is not allowed to import rgftrans.cli" in result.stdout
+
+
+@pytest.mark.parametrize("solver", ["rgftrans.transport.rgf import transmission",
+                                    "rgftrans.spectra.poles import follow_pole",
+                                    "rgftrans.leads.embedding import lead_self_energies"],
+                         ids=["transport", "spectra", "leads"])
+def test_a_figure_that_runs_a_solver_breaks_the_contract(tmp_path, solver):
+    # The second contract: plots draw what they are handed; a figure importing a solver (even inside a function,
+    # where the layers contract alone would allow it) breaks it.
+    shutil.copytree(ROOT / "rgftrans", tmp_path / "rgftrans", ignore=shutil.ignore_patterns("__pycache__"))
+    shutil.copy(ROOT / "pyproject.toml", tmp_path / "pyproject.toml")
+    figures = tmp_path / "rgftrans" / "plots" / "figures.py"
+    figures.write_text(figures.read_text() + f"\n\ndef _computes():\n    from {solver}  # noqa: F401\n")
+    result = _lint(tmp_path)
+    assert result.returncode != 0
+    assert f"rgftrans.plots is not allowed to import {solver.split()[0].rsplit('.', 1)[0]}" in result.stdout
+    assert "1 kept, 1 broken" in result.stdout
 
 
 @pytest.mark.slow

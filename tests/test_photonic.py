@@ -171,7 +171,7 @@ def test_command_line_cavity_spectrum_field_and_bic(tmp_path, capsys):
     import h5py
 
     from rgftrans.cli import main
-    from rgftrans.analysis.darkstates import resonances
+    from rgftrans.spectra.poles import resonances
     from rgftrans.io.waveguide_config import parse_waveguide
 
     text = (Path(__file__).parent.parent / "configs" / "microwave_cavity.toml").read_text()

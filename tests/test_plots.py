@@ -391,3 +391,32 @@ def test_waveguide_result_types_carry_frequency_fields():
         assert not any("meV" in n for n in names), (cls.__name__, names)
     assert "frequency_GHz" in [f.name for f in dataclasses.fields(SpectralLine)]
     assert "frequency_GHz" in [f.name for f in dataclasses.fields(DarkMode)]
+
+
+def test_fano_collapse_figure_draws_what_it_is_handed(monkeypatch):
+    """The figure takes computed data (analysis.darkstates.fano_collapse) and computes nothing: with the solvers made
+    to fail, it still draws every line, labels its axes with units and marks the BIC's row as having no line."""
+    import rgftrans.spectra.poles as poles
+    import rgftrans.transport.rgf as rgf
+    from rgftrans.analysis.darkstates import FanoCollapse
+    from rgftrans.plots.figures import plot_fano_collapse
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a figure called a solver")
+
+    monkeypatch.setattr(rgf, "transmission", refuse)
+    monkeypatch.setattr(poles, "follow_pole", refuse)
+    offsets = np.linspace(-1e-3, 1e-3, 10)
+    d = np.geomspace(1e-4, 1e-1, 4)
+    collapse = FanoCollapse(bic_parameter=np.array([0.1, 0.2]), bic_energy_meV=1.0,
+                            shifts=np.array([1e-3, 5e-4, 0.0]), centres_meV=np.array([1.01, 1.005, 1.0]),
+                            line_widths_meV=np.array([4e-4, 1e-4, 0.0]), offsets_meV=offsets,
+                            transmissions=np.full((3, 10), 0.5), distances=d, widths_meV=0.4 * d**2,
+                            parameter_unit="V")
+    fig, axes = plot_fano_collapse(collapse, name="gates.upper.voltage_V")
+    labels = [line.get_label() for line in axes[0].get_lines()]
+    assert len(labels) == 3 and labels[-1] == "p* (BIC): no line" and "Γ = 4.00e-04 meV" in labels[0]
+    assert UNIT_IN_PARENTHESES.search(axes[1].get_xlabel()) and "(meV)" in axes[1].get_ylabel()
+    assert "upper gate voltage" in axes[1].get_xlabel()
+    assert axes[1].get_lines()[0].get_ydata() == pytest.approx(0.4 * d**2)
+

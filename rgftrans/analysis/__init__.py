@@ -1,11 +1,11 @@
 """What the computed transport means: temperature, regime, resolution, resonances and dark states.
 
 Thermal averages and bias currents, the regime estimate (coherent or Coulomb
-blockade), energy-grid resolution checks and refinement, resonance poles,
-Fano fits, and the search for bound states in the continuum along one
-parameter or over a plane.  Everything takes models or builders of models
+blockade), energy-grid resolution checks and refinement, Fano fits, the
+search for bound states in the continuum along one parameter or over a
+plane, and the data of a Fano line closing at one (``fano_collapse``).  Everything takes models or builders of models
 and returns results; nothing here opens a file (reading and writing stored
-sweeps is ``io``).  Builds on ``transport``.
+sweeps is ``io``).  Builds on ``spectra`` (the poles) and ``transport``.
 """
 
 from rgftrans._lazy import lazy_exports
@@ -20,9 +20,6 @@ _EXPORTS = {
     "GridSearch": "bic2d",
     "search_grid": "bic2d",
     "plane_seeds": "bic2d",
-    "Resonance": "darkstates",
-    "effective_hamiltonian": "darkstates",
-    "resonances": "darkstates",
     "CouplingDiagnostics": "darkstates",
     "coupling_diagnostics": "darkstates",
     "FanoFit": "darkstates",
@@ -33,11 +30,12 @@ _EXPORTS = {
     "track_resonance": "darkstates",
     "BicLocation": "darkstates",
     "locate_bic": "darkstates",
-    "follow_pole": "darkstates",
     "inside_window": "darkstates",
     "follow_at": "darkstates",
     "progress_bar": "darkstates",
     "report_beside": "darkstates",
+    "FanoCollapse": "darkstates",
+    "fano_collapse": "darkstates",
     "Spectrum": "light",
     "FieldMap": "light",
     "PhotonicResonance": "light",
@@ -62,7 +60,6 @@ _EXPORTS = {
     "warn_energies_outside_leads": "resolution",
     "warn_sharp_features": "resolution",
     "warn_unresolved_resonances": "resolution",
-    "window_poles": "resolution",
     "thermal_average": "thermal",
     "BOLTZMANN_MEV_PER_K": "thermal",
     "CurrentResult": "thermal",

@@ -30,13 +30,13 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
-from rgftrans.analysis.darkstates import (DENSE_BELOW, PROTECTED_WIDTH, WIDTH_FLOOR, follow_pole, inside_window,
-                                          progress_bar, report_beside)
-from rgftrans.system.device import TightBindingModel
-from rgftrans.errors import RgftransError
+from rgftrans.analysis.darkstates import PROTECTED_WIDTH, WIDTH_FLOOR, inside_window, progress_bar, report_beside
+from rgftrans.errors import EigenSolveFailed, RgftransError
 from rgftrans.leads.embedding import lead_self_energies
+from rgftrans.spectra.eigen import eigenvalues_near
+from rgftrans.spectra.poles import follow_pole
+from rgftrans.system.device import TightBindingModel
 
 __all__ = ["CouplingResiduals", "coupling_residuals", "Bic2D", "locate_bic_2d", "explain", "GridSearch", "search_grid",
            "plane_seeds"]
@@ -49,6 +49,10 @@ MIN_OVERLAP = 0.5
 ZERO_RESIDUAL = 1e-12
 #: Finite-difference step of the Jacobian, as a fraction of the user's parameter step.
 JACOBIAN_STEP = 1e-4
+#: Closed-dot levels nearest a dark state among which `explain` names its two largest parts.
+EXPLAIN_LEVELS = 8
+#: Closed-dot levels nearest the window's centre that `plane_seeds` looks at (a window holding more keeps these).
+SEED_LEVELS = 60
 
 
 @dataclass(frozen=True, eq=False)
@@ -129,21 +133,6 @@ def _real_part(model: TightBindingModel, energy: float):
     return h_real, w_mat, tuple(names), tuple(int(m.n_open) for m in modes), np.array(gammas)
 
 
-def _eigh_near(h_real: sp.csr_matrix, energy: float, count: int):
-    n = h_real.shape[0]
-    if n < DENSE_BELOW:
-        w, v = np.linalg.eigh(h_real.toarray())
-    else:
-        h_csc = h_real.tocsc()
-        try:
-            w, v = spla.eigsh(h_csc, k=min(count, n - 2), sigma=energy, which="LM")
-        except RuntimeError:  # the shift is exactly an eigenvalue (a converged state asked again): move it a hair
-            shift = energy + 1e-9 * max(abs(energy), 1.0)
-            w, v = spla.eigsh(h_csc, k=min(count, n - 2), sigma=shift, which="LM")
-    order = np.argsort(np.abs(w - energy))[:count]
-    return w[order], v[:, order]
-
-
 def coupling_residuals(model: TightBindingModel, energy_guess: float, *, reference: np.ndarray | None = None,
                        max_iter: int = 80) -> CouplingResiduals:
     """Signed couplings of the state of ``H + Lambda(E)`` near ``energy_guess`` (or continuing ``reference``).
@@ -159,7 +148,7 @@ def coupling_residuals(model: TightBindingModel, energy_guess: float, *, referen
     prev = None  # (E, lambda(E) - E) of the previous step, for secant steps
     for _ in range(max_iter):
         h_real, w_mat, names, n_open, gammas = _real_part(model, energy)
-        w, v = _eigh_near(h_real, energy, 4)
+        w, v = eigenvalues_near(h_real, energy, 4, hermitian=True)
         if ref is not None and ref.shape[0] == v.shape[0]:
             k = int(np.argmax(np.abs(ref @ v)))
         else:
@@ -341,12 +330,7 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start, ste
 
 def explain(model: TightBindingModel, res: CouplingResiduals, kind: str = "accidental") -> str:
     """Why ``res.state`` is dark, in words: its make-up from closed-dot levels and its coupling to each channel."""
-    ham = model.hamiltonian.real
-    n = ham.shape[0]
-    if n < DENSE_BELOW:
-        evals, evecs = np.linalg.eigh(ham.toarray())
-    else:
-        evals, evecs = spla.eigsh(ham.tocsc(), k=min(8, n - 2), sigma=res.energy_meV, which="LM")
+    evals, evecs = eigenvalues_near(model.hamiltonian.real, res.energy_meV, EXPLAIN_LEVELS, hermitian=True)
     weights = (evecs.T @ res.state) ** 2
     top = np.argsort(-weights)[:2]
     makeup = " + ".join(f"{100 * weights[k]:.1f} % of the closed-dot level at {evals[k]:.5g} meV" for k in top)
@@ -485,7 +469,7 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
                 energy, ref = (seed, None) if prev is None else states.get(prev, (seed, None))[:2]
                 try:
                     r = coupling_residuals(build(p1[i], p2[j]), energy, reference=ref)
-                except (RgftransError, np.linalg.LinAlgError, spla.ArpackNoConvergence, spla.ArpackError):
+                except (RgftransError, np.linalg.LinAlgError, EigenSolveFailed):
                     continue
                 if ref is not None and r.overlap < MIN_OVERLAP:
                     continue  # identity lost: NaN here; points beyond restart from the seed energy (new signs,
@@ -543,13 +527,8 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
 
 def plane_seeds(model: TightBindingModel, e_lo: float, e_hi: float) -> np.ndarray:
     """Closed-dot levels in [e_lo, e_hi] at which every lead has exactly one open channel: the candidate states."""
-    ham = model.hamiltonian.real
-    n = ham.shape[0]
-    if n < 4000:
-        evals = np.linalg.eigvalsh(ham.toarray())
-    else:
-        evals = spla.eigsh(ham.tocsc(), k=min(60, n - 2), sigma=0.5 * (e_lo + e_hi), which="LM",
-                           return_eigenvectors=False)
+    evals, _ = eigenvalues_near(model.hamiltonian.real, 0.5 * (e_lo + e_hi), SEED_LEVELS, hermitian=True,
+                                vectors=False)
     keep = []
     for e in np.sort(evals[(evals >= e_lo) & (evals <= e_hi)]):
         _, modes = lead_self_energies(model, float(e), warn=False)

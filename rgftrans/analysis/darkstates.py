@@ -1,11 +1,10 @@
-"""Dark states: resonance poles, Fano fits, width tracking, BIC location and coupling diagnostics.
+"""Dark states: Fano fits, width tracking, BIC location, coupling diagnostics and the Fano line's collapse.
 
-A resonance is a pole ``z`` of the device Green's function: an eigenvalue of
-the non-Hermitian effective Hamiltonian ``H_eff(E) = H + sum_p Sigma_p(E)``,
-with ``E = Re z`` iterated to self-consistency.  Its width is
-``Gamma = -2 Im z`` and its quality factor ``Q = Re z / Gamma`` (energies from
-the band bottom).  A bound state in the continuum (BIC) is a pole whose width
-vanishes while open channels exist at its energy.
+The poles themselves come from :mod:`rgftrans.spectra.poles`: a resonance is
+an eigenvalue ``z`` of ``H_eff(E) = H + sum_p Sigma_p(E)`` self-consistent in
+``E = Re z``, of width ``Gamma = -2 Im z`` and quality factor
+``Q = Re z / Gamma``.  A bound state in the continuum (BIC) is a pole whose
+width vanishes while open channels exist at its energy.
 
 Why a state is dark is read off a two-level picture built from two closed-dot
 eigenstates ``psi_1, psi_2`` near the energy: ``H0 = Psi^dag (H + Re Sigma) Psi``
@@ -34,25 +33,21 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg as sla
 import scipy.optimize as sopt
-import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
-from rgftrans.system.device import TightBindingModel
-from rgftrans.errors import ResolutionWarning, RgftransError
+from rgftrans.errors import EigenSolveFailed, ResolutionWarning, RgftransError
 from rgftrans.leads.embedding import gamma_columns, lead_self_energies
+from rgftrans.spectra.eigen import eigenvalues_near
+from rgftrans.spectra.poles import Resonance, follow_pole
+from rgftrans.system.device import TightBindingModel
+from rgftrans.transport.rgf import transmission
 
 __all__ = [
-    "Resonance", "effective_hamiltonian", "resonances", "CouplingDiagnostics", "coupling_diagnostics",
-    "FanoFit", "fano_profile", "fit_fano", "find_resonances", "Track", "track_resonance", "BicLocation",
-    "locate_bic", "follow_pole", "inside_window", "follow_at", "progress_bar", "report_beside",
+    "CouplingDiagnostics", "coupling_diagnostics", "FanoFit", "fano_profile", "fit_fano", "find_resonances",
+    "Track", "track_resonance", "BicLocation", "locate_bic", "inside_window", "follow_at", "progress_bar",
+    "report_beside", "FanoCollapse", "fano_collapse",
 ]
 
-#: Below this many orbitals the poles come from a dense eigen-decomposition.
-DENSE_BELOW = 300
-#: Self-consistency: stop when the pole moves less than this fraction of the energy scale.
-POLE_TOL = 1e-12
 #: A coupling below this fraction of the largest one counts as zero (a symmetry-protected dark state).
 DECOUPLED = 1e-6
 #: A width below this fraction of the hopping at both ends of a search interval means the resonance is
@@ -102,112 +97,6 @@ def inside_window(energy: float, window) -> bool:
     return window is None or (window[0] <= energy <= window[1])
 
 
-@dataclass(frozen=True, eq=False)
-class Resonance:
-    """A pole of the open device's Green's function.
-
-    Attributes
-    ----------
-    energy_meV : float
-        ``Re z``.
-    width_meV : float
-        ``Gamma = -2 Im z``.
-    q_factor : float
-        ``Re z / Gamma`` (inf for a vanishing width).
-    n_open : tuple of int
-        Open channels of each lead at ``Re z``.
-    in_continuum : bool
-        Whether any lead has an open channel at ``Re z`` (a zero-width pole
-        outside the continuum is an ordinary bound state, not a BIC).
-    state : (n_orbitals,) complex ndarray
-        Right eigenvector of ``H_eff`` (unit norm).
-    converged : bool
-    iterations : int
-    """
-
-    energy_meV: float
-    width_meV: float
-    q_factor: float
-    n_open: tuple
-    in_continuum: bool
-    state: np.ndarray = field(repr=False)
-    converged: bool
-    iterations: int
-
-
-def effective_hamiltonian(model: TightBindingModel, energy: float) -> sp.csr_matrix:
-    """``H + sum_p Sigma_p(E)`` as a sparse complex matrix (meV), leads evaluated at real ``energy``."""
-    sigmas, _ = lead_self_energies(model, float(energy), warn=False)
-    rows, cols, vals = [], [], []
-    for lead, sigma in zip(model.leads, sigmas):
-        r, c = np.meshgrid(lead.interface, lead.interface, indexing="ij")
-        rows.append(r.ravel())
-        cols.append(c.ravel())
-        vals.append(sigma.ravel())
-    extra = sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-                          shape=model.hamiltonian.shape)
-    return (model.hamiltonian + extra).tocsr()
-
-
-def _eig_near(h_eff: sp.csr_matrix, z: complex, count: int):
-    """Eigenpairs of a (non-Hermitian) matrix nearest to z: dense for small, shift-invert otherwise."""
-    n = h_eff.shape[0]
-    if n < DENSE_BELOW:
-        w, v = sla.eig(h_eff.toarray())
-    else:
-        k = min(count, n - 2)
-        w, v = spla.eigs(h_eff.tocsc(), k=k, sigma=z, which="LM")
-    order = np.argsort(np.abs(w - z))[:count]
-    return w[order], v[:, order]
-
-
-def resonances(model: TightBindingModel, target_meV: float, *, count: int = 3, max_iter: int = 60) -> list[Resonance]:
-    """Resonance poles nearest to a target energy, each self-consistent in ``Re z``.
-
-    Parameters
-    ----------
-    model : TightBindingModel
-    target_meV : float
-        Where to look (meV).
-    count : int
-        How many poles to return (nearest first).
-    max_iter : int
-        Self-consistency iterations per pole.
-
-    Returns
-    -------
-    list of Resonance, sorted by distance from the target.
-    """
-    scale = model.energy_scale
-    w, _ = _eig_near(effective_hamiltonian(model, target_meV), complex(target_meV), count)
-    out = []
-    for z0 in w:
-        out.append(_refine_pole(model, complex(z0), scale, max_iter))
-    out.sort(key=lambda r: abs(r.energy_meV - target_meV))
-    return out
-
-
-def _refine_pole(model, z: complex, scale: float, max_iter: int) -> Resonance:
-    converged = False
-    vec = None
-    it = 0
-    for it in range(1, max_iter + 1):
-        w, v = _eig_near(effective_hamiltonian(model, z.real), z, 1)
-        z_new, vec = complex(w[0]), v[:, 0]
-        if abs(z_new - z) < POLE_TOL * scale:
-            z = z_new
-            converged = True
-            break
-        z = z_new
-    _, modes = lead_self_energies(model, z.real, warn=False)
-    n_open = tuple(int(m.n_open) for m in modes)
-    width = -2.0 * z.imag
-    q = z.real / width if width > 0 else np.inf
-    vec = vec / np.linalg.norm(vec)
-    return Resonance(energy_meV=z.real, width_meV=width, q_factor=q, n_open=n_open, in_continuum=sum(n_open) > 0,
-                     state=vec, converged=converged, iterations=it)
-
-
 # --------------------------------------------------------------------------
 # Coupling diagnostics
 # --------------------------------------------------------------------------
@@ -253,13 +142,7 @@ def coupling_diagnostics(model: TightBindingModel, energy_meV: float, *, toleran
                          ) -> CouplingDiagnostics:
     """Two-level analysis of the closed-dot states nearest ``energy_meV`` (see the module docstring)."""
     ham = model.hamiltonian
-    n = ham.shape[0]
-    if n < DENSE_BELOW:
-        w_all, v_all = np.linalg.eigh(ham.toarray())
-        pick = np.argsort(np.abs(w_all - energy_meV))[:2]
-        evals, psi = w_all[pick], v_all[:, pick]
-    else:
-        evals, psi = spla.eigsh(ham.tocsc(), k=2, sigma=energy_meV, which="LM")
+    evals, psi = eigenvalues_near(ham, energy_meV, 2, hermitian=True)
     order = np.argsort(evals)
     evals, psi = evals[order], psi[:, order]
     sigmas, _ = lead_self_energies(model, energy_meV, warn=False)
@@ -437,28 +320,13 @@ class Track:
         return np.isfinite(self.widths_meV) & np.isfinite(self.energies_meV)
 
 
-def follow_pole(model: TightBindingModel, energy: float, state=None, count: int = 4) -> Resonance:
-    """The pole of ``model`` that continues a tracked one (best overlap with ``state``, else nearest energy).
-
-    The candidates come from one eigen-decomposition at the previous energy; only the chosen one is
-    refined to self-consistency.
-    """
-    w, v = _eig_near(effective_hamiltonian(model, energy), complex(energy), count)
-    pick = 0  # _eig_near sorts by distance in the complex plane: a broad pole is far even if Re z is close
-    if state is not None and v.shape[0] == state.shape[0]:
-        overlaps = np.abs(state.conj() @ v) / np.linalg.norm(v, axis=0)
-        if overlaps.max() > 0.5:
-            pick = int(np.argmax(overlaps))
-    return _refine_pole(model, complex(w[pick]), model.energy_scale, 60)
-
-
 def follow_at(build, p, energy, state=None, count=4):
     """:func:`follow_pole` on the model ``build(p)``."""
     return follow_pole(build(p), energy, state, count)
 
 
 #: Failures of one pole solve that leave that parameter value not computed (the track goes on).
-_SOLVE_FAILURES = (np.linalg.LinAlgError, spla.ArpackNoConvergence, spla.ArpackError, RgftransError)
+_SOLVE_FAILURES = (np.linalg.LinAlgError, EigenSolveFailed, RgftransError)
 
 
 def track_resonance(build: Callable[[float], TightBindingModel], parameters, energy_guess: float, *,
@@ -601,7 +469,92 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
 
 
 # --------------------------------------------------------------------------
-# Search over a stored sweep
+# The Fano line closing at a BIC
 # --------------------------------------------------------------------------
 
+#: Distances from the BIC at which the width is sampled: this many, log-spaced from 1e-3 to 1 times the step.
+COLLAPSE_DISTANCES = 13
+#: Each line's T(E) is sampled at this many energies (even: the centre, a real pole at p*, is not sampled) ...
+COLLAPSE_ENERGIES = 800
+#: ... across +- this many times the widest line's width around the line's own pole.
+COLLAPSE_HALF_WIDTHS = 6.0
 
+
+@dataclass(frozen=True, eq=False)
+class FanoCollapse:
+    """T(E) beside a two-parameter BIC and at it, and the pole width against the distance from it.
+
+    The first parameter is moved, ``p = p1* + shift`` with the second held at ``p2*``.
+
+    Attributes
+    ----------
+    bic_parameter : (2,) float
+        ``(p1*, p2*)``, in the caller's parameter units.
+    bic_energy_meV : float
+        Energy of the BIC.
+    shifts : (n_lines,) float
+        ``p - p1*`` of each line (parameter units); the last is 0, the BIC itself.
+    centres_meV : (n_lines,) float
+        ``Re z`` of the pole followed to each line's parameter (the BIC's energy for the last).
+    line_widths_meV : (n_lines,) float
+        Width ``Gamma = -2 Im z`` of that pole (the BIC's residual width for the last).
+    offsets_meV : (n_E,) float
+        ``E - Re z``: the energies of every line, each around its own pole.
+    transmissions : (n_lines, n_E) float
+        T(E) from the first lead to the second at ``centres_meV[k] + offsets_meV``.
+    distances : (n_d,) float
+        ``|p - p1*|`` (parameter units) at which the width was followed.
+    widths_meV : (n_d,) float
+        Pole width there; ``Gamma ~ |p - p1*|^2`` at an accidental BIC.
+    parameter_unit : str
+        Unit of ``bic_parameter[0]``, ``shifts`` and ``distances`` ("" if not given).
+    """
+
+    bic_parameter: np.ndarray
+    bic_energy_meV: float
+    shifts: np.ndarray
+    centres_meV: np.ndarray
+    line_widths_meV: np.ndarray
+    offsets_meV: np.ndarray
+    transmissions: np.ndarray
+    distances: np.ndarray
+    widths_meV: np.ndarray
+    parameter_unit: str = ""
+
+
+def fano_collapse(build: Callable[[float, float], TightBindingModel], bic, step: float,
+                  fractions=(1.0, 0.5, 0.25), *, parameter_unit: str = "") -> FanoCollapse:
+    """The Fano line narrowing as the first parameter approaches a BIC, and its width against the distance.
+
+    Parameters
+    ----------
+    build : callable ``(p1, p2) -> TightBindingModel``
+    bic : object with ``parameter`` ((2,) float), ``energy_meV``, ``width_meV`` and ``state``
+        A located two-parameter BIC (:class:`rgftrans.analysis.bic2d.Bic2D`).
+    step : float
+        Largest shift of the first parameter (its units).
+    fractions : sequence of float
+        Lines at ``p1* + f * step``; the BIC itself (``f = 0``) is added last.
+    parameter_unit : str
+        Unit of the first parameter, carried to the result for its figure.
+
+    Each pole is followed from the BIC's state (:func:`rgftrans.spectra.poles.follow_pole`);
+    T(E) comes from :func:`rgftrans.transport.rgf.transmission`.
+    """
+    p1, p2 = (float(x) for x in bic.parameter)
+    seed = np.asarray(bic.state).astype(complex)
+    fractions = [float(f) for f in fractions]
+    if not fractions or any(f == 0 for f in fractions):
+        raise RgftransError(f"fractions of the step must be non-zero (the BIC itself is added), got {fractions}")
+    poles = [follow_pole(build(p1 + f * step, p2), bic.energy_meV, seed) for f in fractions]
+    half = COLLAPSE_HALF_WIDTHS * max(r.width_meV for r in poles)
+    offsets = np.linspace(-half, half, COLLAPSE_ENERGIES)
+    shifts = np.array([f * step for f in fractions] + [0.0])
+    centres = np.array([r.energy_meV for r in poles] + [bic.energy_meV])  # each line in its own window
+    line_widths = np.array([r.width_meV for r in poles] + [bic.width_meV])
+    trans = np.array([transmission(build(p1 + x, p2), c + offsets).transmission for x, c in zip(shifts, centres)])
+    distances = abs(step) * np.geomspace(1e-3, 1.0, COLLAPSE_DISTANCES)
+    widths = np.array([follow_pole(build(p1 + x, p2), bic.energy_meV, seed).width_meV for x in distances])
+    return FanoCollapse(bic_parameter=np.array([p1, p2]), bic_energy_meV=float(bic.energy_meV), shifts=shifts,
+                        centres_meV=centres, line_widths_meV=line_widths, offsets_meV=offsets, transmissions=trans,
+                        distances=distances, widths_meV=widths, parameter_unit=parameter_unit)

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from rgftrans.analysis.darkstates import resonances
+from rgftrans.spectra.poles import resonances
 from rgftrans.errors import RgftransError
 from rgftrans.system.photonic import PhotonicModel
 from rgftrans.transport.local import scattering_states

@@ -14,7 +14,7 @@ estimates the three energies from the layout and says which regime applies:
   a uniform dielectric; common textbook estimate, no source; gates and
   reservoirs nearby raise C and lower E_C, so this is an upper bound);
 * the typical level width Γ: the median width of the resonance poles of the
-  open device in the energy window (:func:`rgftrans.analysis.resolution.window_poles`).
+  open device in the energy window (:func:`rgftrans.spectra.poles.window_poles`).
 
 Coulomb blockade dominates when E_C > Γ and E_C > k_B T, and only if the dot
 is separated from its leads by tunnel contacts: a contact conducting more than
@@ -220,7 +220,7 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     energy_window_meV : (float, float), optional
         The energies of interest (meV); without it neither is computed.
     poles : (n, 2) array_like, optional
-        :func:`rgftrans.analysis.resolution.window_poles` of the window, if already at hand.
+        :func:`rgftrans.spectra.poles.window_poles` of the window, if already at hand.
     area_nm2 : float, optional
         The dot's area if you know it better; overrides the estimate.
     warn : bool
@@ -244,7 +244,7 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     gamma, n_widths = (None, 0)
     if widths and energy_window_meV is not None:
         if poles is None:
-            from rgftrans.analysis.resolution import window_poles
+            from rgftrans.spectra.poles import window_poles
 
             poles = window_poles(model, energy_window_meV)
         gamma, n_widths = typical_level_width_meV(poles)

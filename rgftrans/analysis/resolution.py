@@ -4,12 +4,9 @@ A resonance of full width Γ sampled at spacing h > Γ / 3 is aliased: its
 height, position and line shape come out wrong, and a thermal average at
 k_B T < Γ inherits the error.  Three tools:
 
-* :func:`window_poles` lists the resonance poles of a model in an energy
-  window (eigenvalues of H + Σ(E) with the self-energy taken at the centre of
-  each of a few sub-windows: first order in the distance to that centre, which
-  is ample for telling resolved from aliased lines), and
-  :func:`warn_unresolved_resonances` warns where the grid has fewer than
-  :data:`MIN_POINTS_PER_WIDTH` points across one (run before a sweep);
+* :func:`warn_unresolved_resonances` warns where the grid has fewer than
+  :data:`MIN_POINTS_PER_WIDTH` points across a resonance pole of the window
+  (the poles from :func:`rgftrans.spectra.poles.window_poles`; run before a sweep);
 * :func:`sharp_features` finds, in computed data, samples where T(E) jumps by
   more than :data:`SPIKE_JUMP` to both neighbours: a line the grid does not
   resolve (run on every sweep point);
@@ -34,8 +31,7 @@ import numpy as np
 from rgftrans.errors import ResolutionWarning, RgftransError
 
 __all__ = ["MIN_POINTS_PER_WIDTH", "SPIKE_JUMP", "RefinedSampling", "refine", "refined_transmission",
-           "sharp_features", "warn_energies_outside_leads", "warn_sharp_features", "warn_unresolved_resonances",
-           "window_poles"]
+           "sharp_features", "warn_energies_outside_leads", "warn_sharp_features", "warn_unresolved_resonances"]
 
 #: Fewest grid points across a resonance's full width (FWHM) before it counts as resolved.
 MIN_POINTS_PER_WIDTH = 3
@@ -43,10 +39,6 @@ MIN_POINTS_PER_WIDTH = 3
 #: Lorentzian of unit height sampled at its peak and at +-h drops by 1 - 1/(1 + 4h²/Γ²), which is 0.31 at
 #: h = Γ/3, i.e. exactly at MIN_POINTS_PER_WIDTH points per width.
 SPIKE_JUMP = 0.3
-#: Sub-windows of the energy window, each with its own self-energy, and poles asked for in each when the
-#: model is too large for a dense eigenvalue solve.
-POLE_TARGETS = 3
-POLES_PER_TARGET = 8
 #: Refinement stops bisecting intervals narrower than this fraction of the window.
 _MIN_INTERVAL = 1e-9
 
@@ -57,50 +49,10 @@ def _local_spacing(energies: np.ndarray, e: float) -> float:
     return float(energies[k + 1] - energies[k])
 
 
-def window_poles(model, window_meV, *, targets: int = POLE_TARGETS, count: int = POLES_PER_TARGET) -> np.ndarray:
-    """Resonance poles ``(energy_meV, width_meV)`` of an open model with real parts in a window, by energy.
-
-    The window is cut into ``targets`` equal sub-windows; in each, the
-    eigenvalues z of H + Σ(E_c) (E_c its centre) with Re z inside it are kept
-    (all eigenvalues for small models, the ``count`` nearest E_c by
-    shift-invert for large ones).  Widths are Γ = -2 Im z; bound states
-    (Γ = 0) are left out.
-    """
-    import scipy.linalg as sla
-    import scipy.sparse.linalg as spla
-
-    from rgftrans.analysis.darkstates import DENSE_BELOW, effective_hamiltonian
-
-    lo, hi = float(window_meV[0]), float(window_meV[1])
-    edges = np.linspace(lo, hi, targets + 1)
-    found = []
-    for k, (a, b) in enumerate(zip(edges[:-1], edges[1:])):
-        centre = 0.5 * (a + b)
-        last = k == targets - 1
-        h_eff = effective_hamiltonian(model, centre)
-        n = h_eff.shape[0]
-        if n < DENSE_BELOW:
-            z = sla.eigvals(h_eff.toarray())
-        else:
-            z = spla.eigs(h_eff.tocsc(), k=min(count, n - 2), sigma=centre, which="LM", return_eigenvectors=False)
-        # Half-open sub-windows (the last one closed), so a pole on a shared edge counts once.
-        keep = (z.real >= a) & ((z.real < b) | (last & (z.real <= b))) & (-2 * z.imag > 0)
-        found.extend(zip(z.real[keep], -2 * z.imag[keep], [k] * int(np.count_nonzero(keep))))
-    # A pole near a shared edge can be seen from both sides (each with its own first-order shift): poles of
-    # neighbouring sub-windows closer than half the smaller width are one line, kept once.
-    found.sort()
-    poles = []
-    for e, w, k in found:
-        if poles and k != poles[-1][2] and e - poles[-1][0] < 0.5 * min(w, poles[-1][1]):
-            continue
-        poles.append((e, w, k))
-    return np.array([(e, w) for e, w, _ in poles], dtype=float).reshape(-1, 2)
-
-
 def warn_unresolved_resonances(model, energies, *, poles=None) -> list:
     """Warn (ResolutionWarning) about resonance poles in the grid's window narrower than 3 grid steps.
 
-    ``poles`` is :func:`window_poles` of the grid's window (computed if not
+    ``poles`` is :func:`rgftrans.spectra.poles.window_poles` of the grid's window (computed if not
     given).  Returns the offending poles as ``(energy_meV, width_meV,
     spacing_meV)``, narrowest first.  Grids of fewer than two energies are not
     checked.
@@ -109,6 +61,8 @@ def warn_unresolved_resonances(model, energies, *, poles=None) -> list:
     if e.size < 2 or not model.leads:
         return []
     if poles is None:
+        from rgftrans.spectra.poles import window_poles
+
         poles = window_poles(model, (e[0], e[-1]))
     bad = sorted(((float(en), float(w), _local_spacing(e, en)) for en, w in poles
                   if _local_spacing(e, en) > w / MIN_POINTS_PER_WIDTH), key=lambda x: x[1])

@@ -2,7 +2,9 @@
 
 Axis labels are physical names with units (:func:`rgftrans.plots.style.axis_display`),
 never config keys.  Reads result files through ``io``; computes no physics
-itself except where a figure is defined by a computation it names.
+itself (a contract in pyproject.toml forbids importing ``transport``,
+``spectra`` or ``leads``): the dark-state figures draw results computed in
+``analysis``.
 """
 
 from rgftrans._lazy import lazy_exports

@@ -769,42 +769,43 @@ def _legend_line(ls: str, label: str):
     return Line2D([], [], color="k", ls=ls, label=label)
 
 
-def plot_fano_collapse(build, bic, step: float, *, name: str = "p1", axes=None, fractions=(1.0, 0.5, 0.25)):
-    """T(E) beside a BIC (p1 = p1* + f * step) and at it, and the pole width against the distance.
+def plot_fano_collapse(collapse, *, name: str = "p1", axes=None):
+    """T(E) beside a BIC and at it, and the pole width against the distance: draws a computed collapse.
 
     Left: the Fano line narrows as ``(p - p*)^2`` and is gone at ``p*``.
     Right: pole width against ``|p - p*|`` on log-log axes with a slope-2 guide.
+
+    Parameters
+    ----------
+    collapse : rgftrans.analysis.darkstates.FanoCollapse
+        From :func:`rgftrans.analysis.darkstates.fano_collapse`.
+    name : str
+        The first parameter's sweep key (its physical name and, if the collapse carries none, its unit).
+
+    Returns
+    -------
+    fig, axes
     """
     import matplotlib.pyplot as plt
 
     from rgftrans.plots.style import parameter_name, parameter_unit, unit_text
-    from rgftrans.analysis.darkstates import follow_pole
-    from rgftrans.transport.rgf import transmission
 
-    shown = unit_text(parameter_unit(name))
+    shown = unit_text(collapse.parameter_unit or parameter_unit(name))
     long_name = parameter_name(name)
     if axes is None:
         fig, axes = plt.subplots(1, 2, figsize=(10, 4), layout="constrained")
     else:
         fig = axes[0].figure
-    p1, p2 = bic.parameter
-    seed = bic.state.astype(complex)
-    poles = [follow_pole(build(p1 + f * step, p2), bic.energy_meV, seed) for f in fractions]
-    half = 6 * max(r.width_meV for r in poles)
-    offsets = np.linspace(-half, half, 800)  # even count: the centre (a real pole at p*) is not sampled
-    for f, r in zip(list(fractions) + [0.0], poles + [None]):
-        centre = r.energy_meV if r is not None else bic.energy_meV  # each line in its own window: it moves with p
-        t = transmission(build(p1 + f * step, p2), centre + offsets).transmission
-        label = (f"p* + {f * step:.3g}{' ' + shown if shown else ''}: Γ = {r.width_meV:.2e} meV" if r is not None
+    for shift, width, t in zip(collapse.shifts, collapse.line_widths_meV, collapse.transmissions):
+        label = (f"p* + {shift:.3g}{' ' + shown if shown else ''}: Γ = {width:.2e} meV" if shift != 0
                  else "p* (BIC): no line")
-        axes[0].plot(offsets * 1e3, t, lw=1.2, label=label)
+        axes[0].plot(collapse.offsets_meV * 1e3, t, lw=1.2, label=label)
     axes[0].set_xlabel("E − Re z (µeV), z the pole at each parameter")
     axes[0].set_title(f"T(E) as the {long_name} p approaches its value p* at the BIC", fontsize="medium")
     axes[0].set_ylabel("transmission T")
     axes[0].set_ylim(-0.02, 1.02)
     axes[0].legend(fontsize="small", frameon=False)
-    d = np.abs(step) * np.geomspace(1e-3, 1.0, 13)
-    widths = np.array([follow_pole(build(p1 + x, p2), bic.energy_meV, seed).width_meV for x in d])
+    d, widths = collapse.distances, collapse.widths_meV
     axes[1].loglog(d, np.maximum(widths, 1e-300), "o", color="k", ms=4, label="pole width")
     axes[1].loglog(d, widths[-1] * (d / d[-1]) ** 2, color="tab:red", lw=0.8, ls="--", label="∝ |p − p*|²")
     axes[1].set_xlabel(f"distance from the BIC |p − p*|, p = {long_name}" + (f" ({shown})" if shown else ""))

@@ -1,0 +1,30 @@
+"""Poles and eigenstates: resonance poles of the open device and eigenvalues of any matrix near a target.
+
+One helper, :func:`eigenvalues_near` (module ``eigen``), answers "the eigenvalues
+nearest E" for every caller: dense below :data:`DENSE_BELOW` rows, shift-invert
+ARPACK above, the same answer either way, and a one-line
+:class:`rgftrans.errors.EigenSolveFailed` when the iterations do not converge.
+On it, the pole solver (module ``poles``): :class:`Resonance`,
+:func:`effective_hamiltonian` (``H + Sigma(E)``), :func:`resonances`
+(self-consistent in ``Re z``; a model without leads gives its closed levels),
+:func:`follow_pole` and :func:`window_poles`.  Sits between ``transport``
+and ``analysis`` and uses only the layers below (``leads`` for the
+self-energies, ``system`` for the model); the searches that use these poles
+(dark states, BICs, resolution checks) are ``analysis``.
+"""
+
+from rgftrans._lazy import lazy_exports
+
+#: Public name -> module of this subpackage that defines it.
+_EXPORTS = {
+    "DENSE_BELOW": "eigen",
+    "eigenvalues_near": "eigen",
+    "Resonance": "poles",
+    "effective_hamiltonian": "poles",
+    "resonances": "poles",
+    "follow_pole": "poles",
+    "window_poles": "poles",
+    "POLE_TOL": "poles",
+}
+__all__ = list(_EXPORTS)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -1,0 +1,124 @@
+"""Poles and eigenstates: the one "eigenvalues near a target" helper and the pole solver on a model without leads.
+
+The helper is checked against a full LAPACK decomposition (scipy.linalg.eig/eigh, common practice, no source) on
+random matrices below and above the dense threshold, given dense and sparse.  Tolerance: 1e-10 of the matrix's
+largest entry; both routes are backward stable, so they differ by round-off of the shift-invert solve (the LU of
+A - sigma and the Arnoldi/Lanczos iterations), at most 1e-14 here (eigenvalues and eigenvector residuals) for
+random matrices whose eigenvalues are well conditioned; 1e-10 leaves room for less favourable seeds and BLAS builds.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg as sla
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from rgftrans.errors import EigenSolveFailed, RgftransError
+from rgftrans.spectra.eigen import DENSE_BELOW, eigenvalues_near
+from rgftrans.spectra.poles import effective_hamiltonian, follow_pole, resonances, window_poles
+from rgftrans.system.device import TightBindingModel
+
+#: Agreement with the dense reference, relative to the largest matrix entry (see the module docstring).
+RTOL = 1e-10
+COUNT = 6
+
+
+def _random_matrix(n: int, hermitian: bool, seed: int) -> sp.csr_matrix:
+    """A sparse random matrix (about 8 entries a row plus the diagonal), complex; Hermitian if asked."""
+    rng = np.random.default_rng(seed)
+    a = sp.random(n, n, density=min(1.0, 8.0 / n), random_state=rng, format="csr")
+    a = a + 1j * sp.random(n, n, density=min(1.0, 8.0 / n), random_state=rng, format="csr")
+    a = a + sp.diags(rng.uniform(-4.0, 4.0, n))
+    if hermitian:
+        a = 0.5 * (a + a.conj().T)
+    return a.tocsr()
+
+
+@pytest.mark.parametrize("form", ["sparse", "dense"])
+@pytest.mark.parametrize("hermitian", [False, True], ids=["general", "hermitian"])
+@pytest.mark.parametrize("n", [DENSE_BELOW // 4, DENSE_BELOW + 100], ids=["below-threshold", "above-threshold"])
+def test_agrees_with_a_full_dense_decomposition(n, hermitian, form):
+    a = _random_matrix(n, hermitian, seed=n + hermitian)
+    target = 0.37 if hermitian else 0.37 + 0.05j
+    matrix = a if form == "sparse" else a.toarray()
+    w, v = eigenvalues_near(matrix, target, COUNT, hermitian=hermitian)
+    full = sla.eigvalsh(a.toarray()) if hermitian else sla.eigvals(a.toarray())
+    reference = full[np.argsort(np.abs(full - target))[:COUNT]]
+    scale = abs(a).max()
+    assert w.shape == (COUNT,) and v.shape == (n, COUNT)
+    assert np.all(np.diff(np.abs(w - target)) >= 0)  # nearest first
+    assert np.abs(w - reference).max() <= RTOL * scale
+    if hermitian:
+        assert np.isrealobj(w)
+    assert np.linalg.norm(a @ v - v * w, axis=0).max() <= RTOL * scale  # each column is an eigenvector
+    assert np.allclose(np.linalg.norm(v, axis=0), 1.0, atol=1e-12)
+    w_only, none = eigenvalues_near(matrix, target, COUNT, hermitian=hermitian, vectors=False)
+    assert none is None and np.abs(w_only - w).max() <= RTOL * scale
+
+
+def test_target_exactly_on_an_eigenvalue_above_the_threshold():
+    """The shifted matrix is singular there; the helper moves the shift a hair and still returns that level."""
+    levels = np.arange(DENSE_BELOW + 50, dtype=float)
+    w, v = eigenvalues_near(sp.diags(levels).tocsr(), 120.0, 3, hermitian=True)
+    assert w[0] == pytest.approx(120.0, abs=1e-9) and sorted(w[1:]) == pytest.approx([119.0, 121.0], abs=1e-9)
+    assert abs(v[120, 0]) == pytest.approx(1.0, abs=1e-9)
+
+
+@pytest.mark.parametrize("hermitian, solver", [(False, "eigs"), (True, "eigsh")])
+def test_arpack_failure_is_one_line_with_advice(monkeypatch, hermitian, solver):
+    def no_convergence(*args, **kwargs):
+        raise spla.ArpackNoConvergence("ARPACK error -1: No convergence (1201 iterations, 2/6 eigenvectors "
+                                       "converged)", np.zeros(2), np.zeros((10, 2)))
+
+    monkeypatch.setattr(spla, solver, no_convergence)
+    a = _random_matrix(DENSE_BELOW + 20, hermitian, seed=3)
+    with pytest.raises(EigenSolveFailed) as info:
+        eigenvalues_near(a, 0.5, COUNT, hermitian=hermitian)
+    message = str(info.value)
+    assert "\n" not in message
+    assert "did not converge" in message and f"{a.shape[0]} x {a.shape[0]}" in message
+    assert "2 of 6 eigenvalues found" in message and "ask for fewer eigenvalues" in message
+
+
+def test_arpack_breakdown_is_one_line(monkeypatch):
+    def breakdown(*args, **kwargs):
+        raise spla.ArpackError(-9999)
+
+    monkeypatch.setattr(spla, "eigs", breakdown)
+    with pytest.raises(EigenSolveFailed, match=r"broke down .*; move the target slightly") as info:
+        eigenvalues_near(_random_matrix(DENSE_BELOW + 20, False, seed=4), 0.5, 2)
+    assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("count, target, match", [(0, 0.0, "count of eigenvalues must be at least 1, got 0"),
+                                                  (2, np.nan, "must be a finite number, got nan")])
+def test_bad_requests_are_refused(count, target, match):
+    with pytest.raises(RgftransError, match=match):
+        eigenvalues_near(np.eye(3), target, count)
+
+
+# --- A model without leads: its poles are its closed levels (documented in rgftrans.spectra.poles) -------------
+
+def _closed_chain(n: int = 12) -> TightBindingModel:
+    """An open-ended tight-binding chain of n sites, hopping -1, no leads: levels -2 cos(k pi / (n + 1))."""
+    ham = sp.diags([-np.ones(n - 1), -np.ones(n - 1)], [-1, 1]).tocsr()
+    return TightBindingModel(ham, np.column_stack([np.arange(n, dtype=float), np.zeros(n)]), ())
+
+
+def test_no_leads_gives_the_closed_levels_as_zero_width_poles():
+    model = _closed_chain()
+    levels = -2 * np.cos(np.arange(1, 13) * np.pi / 13)  # the chain's closed form (common practice, no source)
+    found = resonances(model, 0.3, count=3)
+    expected = levels[np.argsort(np.abs(levels - 0.3))[:3]]
+    assert [r.energy_meV for r in found] == pytest.approx(sorted(expected, key=lambda e: abs(e - 0.3)), abs=1e-12)
+    for r in found:
+        assert r.width_meV == 0.0 and r.q_factor == np.inf
+        assert r.n_open == () and not r.in_continuum and r.converged and r.iterations == 0
+        h = model.hamiltonian
+        assert np.linalg.norm(h @ r.state - r.energy_meV * r.state) < 1e-12
+    assert abs(effective_hamiltonian(model, 0.3) - model.hamiltonian).max() == 0
+    followed = follow_pole(model, found[1].energy_meV, found[1].state)
+    assert followed.energy_meV == pytest.approx(found[1].energy_meV, abs=1e-12) and followed.width_meV == 0.0
+    assert window_poles(model, (-2.0, 2.0)).shape == (0, 2)  # only poles of non-zero width are listed
