@@ -24,7 +24,7 @@ _EXPORTS = {
     "read_fit": "compare",
     "read_trace": "compare",
     "remove_series_resistance": "compare",
-    "Axis": "config",
+    "Axis": "store",
     "Parameter": "config",
     "RunConfig": "config",
     "load_config": "config",
