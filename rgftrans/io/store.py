@@ -8,6 +8,12 @@
 * :func:`read_result` loads a file into a :class:`ResultData`;
 * :func:`validate` checks a file and raises :class:`StoreError` with one line;
 * :func:`summary` is the human description shown by ``rgftrans info``.
+* :func:`write_group` writes a named group of other modules (dark-state
+  searches, trace fits) into an rgftrans file or a new file of its own, and
+  :func:`write_file` a whole file of another kind (the waveguide run): with
+  :func:`ResultFile.create` the package's only ways to write HDF5 (besides the
+  sweep driver).  One policy: an existing group or file is refused unless
+  ``overwrite``; foreign files and files a running sweep holds are never written.
 
 Layout (schema version 2)
 -------------------------
