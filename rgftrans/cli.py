@@ -348,9 +348,10 @@ def _cmd_darkstates(args) -> int:
 
     from rgftrans.io.searches import search_sweep, write_search
     from rgftrans.plots.figures import plot_map, plot_track_on_map, plot_width_track
-    from rgftrans.io.store import read_result
+    from rgftrans.io.store import check_group_writable, read_result
 
     data = read_result(args.result)
+    check_group_writable(args.save or args.result, "darkstates", overwrite=args.overwrite)  # before the search
     if len(data.axes) == 2:
         return _darkstates_plane(args, data)
     search = search_sweep(args.result, energy_guess=args.energy, axis=args.axis, progress=not args.quiet)
@@ -376,7 +377,7 @@ def _cmd_darkstates(args) -> int:
               f" Gamma ~ |p - p*|^{loc.exponent:.2f}")
         print(f"    Q nearby: {', '.join(f'{v:.3g}' for v in q)}")
         print(f"    {diag.verdict}")
-    write_search(search, args.save or args.result)
+    write_search(search, args.save or args.result, overwrite=args.overwrite)
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
     # The figures mark only BICs inside the stored energies (flagged ones are in the text and the file).
@@ -441,7 +442,8 @@ def _darkstates_plane(args, data) -> int:
         print(f"    Q one grid step away (+{n1}, -{n1}, +{n2}, -{n2}): "
               + ", ".join(f"{q:.3g}" for q in bic.nearby_q))
         print(f"    why: {bic.explanation}")
-    write_grid_search(search, args.save or args.result, parameter_units=tuple(a.units for a in data.axes))
+    write_grid_search(search, args.save or args.result, parameter_units=tuple(a.units for a in data.axes),
+                      overwrite=args.overwrite)
     prefix = Path(args.out_prefix or Path(args.result).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
     keep = [k for k, b in enumerate(search.bics) if not b.outside_stored_energies]  # figures: inside ones only
@@ -522,6 +524,9 @@ def _cmd_compare(args) -> int:
         initial["lever_arm"] = args.lever_arm
     if args.offset is not None:
         initial["offset"] = args.offset
+    from rgftrans.io.store import check_group_writable
+
+    check_group_writable(args.save or args.result, args.group, overwrite=args.overwrite)  # before the fit
     with argument_names(flags):  # messages name our flags, not Python keywords
         trace = read_trace(args.trace, gate_column=_column(args.gate_column),
                            value_column=_column(args.value_column), kind=args.kind, units=args.units,
@@ -555,7 +560,12 @@ def _cmd_waveguide(args) -> int:
     from rgftrans.io.waveguide_config import load_waveguide, parameter_units, run_waveguide, write_waveguide
 
     say = (lambda *a: None) if args.quiet else print
+    from rgftrans.io.store import check_file_writable
+
     cfg, _ = load_waveguide(args.config)  # validate before any work
+    prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
+    target = Path(args.output or (cfg.output.path if cfg.output else f"{prefix}.h5"))
+    check_file_writable(target, overwrite=args.overwrite)  # refused now, not after the computation
     run = run_waveguide(args.config, progress=not args.quiet)
     pm, spectrum = run.model, run.spectrum
     freqs = spectrum.frequencies_GHz
@@ -566,7 +576,6 @@ def _cmd_waveguide(args) -> int:
     say(f"  T from {spectrum.port_names[0]!r} to {spectrum.port_names[1]!r}: {len(freqs)} frequencies "
         f"{freqs[0]:g}-{freqs[-1]:g} GHz, T between {t.min():.3g} and {t.max():.3g}; "
         f"max absorption {spectrum.absorption.max():.3g}")
-    prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
     prefix.parent.mkdir(parents=True, exist_ok=True)
     cutoffs = [f for k in range(min(2, len(spectrum.port_names))) for f in pm.cutoffs_GHz(k, 3)]
     fig, _ = plot_spectrum(spectrum, cutoffs_GHz=cutoffs, title=f"grid {pm.spacing:g} {pm.unit}")
@@ -602,8 +611,7 @@ def _cmd_waveguide(args) -> int:
             fig, _ = plot_waveguide_field(mode.model, mode.mode_field, label="|E_z| / its maximum (1)",
                                           title=f"dark mode at {mode.frequency_GHz:.6g} GHz")
             fig.savefig(f"{prefix}_dark_mode.png", dpi=150, bbox_inches="tight")
-    target = Path(args.output or (cfg.output.path if cfg.output else f"{prefix}.h5"))
-    write_waveguide(run, target)
+    write_waveguide(run, target, overwrite=args.overwrite)
     say(f"  written: {target}; figures {prefix}_*.png")
     return EXIT_OK
 
@@ -687,6 +695,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--energy", type=float, metavar="MEV", help="start near this resonance energy")
     p.add_argument("--axis", type=int, default=0, help="which sweep axis to follow (default 0; one-axis sweeps)")
     p.add_argument("--save", metavar="H5", help="write the search here instead of into the result file")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing 'darkstates' group")
     p.add_argument("--out-prefix", metavar="PATH", help="figure file prefix (default: the result path)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_darkstates)
@@ -750,6 +759,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("config", help="waveguide TOML file")
     p.add_argument("--out-prefix", metavar="PATH", help="figure prefix (default: the config path without .toml)")
     p.add_argument("--output", metavar="H5", help="result file (default: [output] path, else PREFIX.h5)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing result file of a waveguide run")
     p.add_argument("--quiet", action="store_true")
     p.set_defaults(func=_cmd_waveguide)
     return parser

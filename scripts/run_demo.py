@@ -252,7 +252,7 @@ def dark_states(out: Path) -> None:
         raise RgftransError(f"the plane sweep failed (exit status {status})")
     print(f"[dark states] sweep stored in {result} ({time.perf_counter() - start:.1f} s); "
           f"now: rgftrans darkstates {result.relative_to(ROOT) if result.is_relative_to(ROOT) else result}")
-    status = rgftrans_main(["darkstates", str(result), "--out-prefix", str(out / "dark_states")])
+    status = rgftrans_main(["darkstates", str(result), "--out-prefix", str(out / "dark_states"), "--overwrite"])
     if status != 0:
         raise RgftransError(f"the dark-state search failed (exit status {status})")
 
@@ -263,7 +263,8 @@ def microwave_cavity(out: Path) -> None:
 
     print("[microwave cavity] invented example: TM light between metal plates, ceramic puck, offset guides")
     status = rgftrans_main(["waveguide", str(ROOT / "configs" / "microwave_cavity.toml"),
-                            "--out-prefix", str(out / "microwave_cavity"), "--output", str(out / "microwave_cavity.h5")])
+                            "--out-prefix", str(out / "microwave_cavity"), "--output", str(out / "microwave_cavity.h5"),
+                            "--overwrite"])
     if status != 0:
         raise RgftransError(f"the waveguide example failed (exit status {status})")
 

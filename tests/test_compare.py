@@ -24,7 +24,7 @@ from rgftrans.analysis.thermal import thermal_average
 from rgftrans.io.compare import MeasuredTrace, add_series_resistance, fit_trace, model_conductance, read_fit, read_trace, remove_series_resistance
 from rgftrans.errors import CompareError
 from rgftrans.plots.fits import plot_fit
-from rgftrans.errors import ResolutionWarning, RgftransError
+from rgftrans.errors import ResolutionWarning, RgftransError, StoreError
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S as G0
 from rgftrans.io.store import Axis, QuantitySpec, ResultFile, read_result, validate
 from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K, thermal_conductance
@@ -369,7 +369,7 @@ def test_to_hdf5_round_trip(fits, energy_sweep, tmp_path, target):
         path.write_bytes(Path(energy_sweep).read_bytes())
     fit.to_hdf5(path, group="compare")
     assert_same_fit(read_fit(path, "compare"), fit)
-    with pytest.raises(CompareError, match="exists; pass overwrite=True"):
+    with pytest.raises(StoreError, match="group /compare exists; pass --overwrite"):
         fit.to_hdf5(path, group="compare")
     fit.to_hdf5(path, group="compare", overwrite=True)
     if target == "result file":

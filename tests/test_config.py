@@ -108,7 +108,7 @@ def test_gated_demo_new_form_sweeps_the_plunger_around_the_fermi_energy():
     path = CONFIGS / "gated_dot.toml"
     config = parse_config(demo_text(path), source=str(path))
     (plunger,) = config.axes()
-    assert plunger.name == "gates.plunger.voltage_V"
+    assert plunger.parameter == "gates.plunger.voltage_V" and plunger.name == "gates__plunger__voltage_V"
     assert plunger.units == "V" and "plunger" in plunger.long_name
     np.testing.assert_allclose(plunger.values, np.linspace(-0.056, -0.036, 41))
     np.testing.assert_allclose(config.temperatures(), [0.1, 1.0])
@@ -398,7 +398,7 @@ def test_axes_carry_units_and_long_names():
     config = parse_config(toml(gates=GATES, sweep=axis("field.tesla", "start = 0.0\nstop = 2.0\npoints = 5")
                                + axis("leads.drain.offset_nm", "values = [-4.0, 0.0, 4.0]")
                                + axis("disorder.seed", "values = [1, 2]")))
-    names = [(a.name, a.units) for a in config.axes()]
+    names = [(a.parameter, a.units) for a in config.axes()]
     assert names == [("field.tesla", "T"), ("leads.drain.offset_nm", "nm"), ("disorder.seed", "1")]
     tesla, offset, seed = config.axes()
     np.testing.assert_allclose(tesla.values, [0.0, 0.5, 1.0, 1.5, 2.0])

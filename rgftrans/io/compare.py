@@ -78,7 +78,7 @@ from scipy.optimize import least_squares
 
 from rgftrans.errors import FitWarning, ResolutionWarning, TraceFitFailed
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
-from rgftrans.io.store import ResultData, read_result
+from rgftrans.io.store import ResultData, StoredArray, StoredGroup, read_result, write_group
 from rgftrans.analysis.thermal import BOLTZMANN_MEV_PER_K, thermal_average
 from rgftrans.io.traces import _GATE_UNITS, MeasuredTrace, _arg, _unit_key, argument_names, read_trace
 from rgftrans.errors import CompareError
@@ -668,7 +668,7 @@ class TraceFit:
         return "\n".join(lines)
 
     def to_hdf5(self, path, group: str = "compare", *, overwrite: bool = False) -> None:
-        """Write the fit into ``/<group>`` of an HDF5 file (appended to an existing one, e.g. the result file).
+        """Write the fit into ``/<group>`` of an rgftrans HDF5 file (the result file, or a new file).
 
         Layout: group attributes hold the scalars and texts (``format =
         "rgftrans-trace-fit"``); datasets ``gate_voltage`` (dimension scale),
@@ -677,78 +677,60 @@ class TraceFit:
         and ``model_curve``; ``parameters/<name>`` scalars with ``stderr`` and
         ``fitted`` attributes; ``covariance`` and ``correlation`` over the
         string scales ``fitted_parameter`` and ``fitted_parameter_2``.  Every
-        dataset has ``units`` and ``long_name``.
+        dataset has ``units`` and ``long_name``.  Written by
+        :func:`rgftrans.io.store.write_group`.
 
         Raises
         ------
         CompareError
-            If the file cannot be opened as HDF5, or the group exists and
-            ``overwrite`` is False.
+            This is a failed fit attempt (never stored).
+        StoreError
+            The group exists and ``overwrite`` is False; the file is not an
+            rgftrans HDF5 file; a running sweep is writing it.
         """
         path = Path(path)
         if not self.success:
             raise CompareError(f"{path}: this is a failed fit attempt ({self.message}); it is not stored as a result")
-        try:
-            f = h5py.File(path, "a")
-        except OSError as exc:
-            raise CompareError(
-                f"{path}: cannot be opened as HDF5 for writing ({' '.join(str(exc).split())}); "
-                f"pass a new file name or an HDF5 file"
-            ) from None
-        with f:
-            if group in f:
-                if not overwrite:
-                    raise CompareError(f"{path}: group /{group} exists; pass overwrite=True or choose another group")
-                del f[group]
-            g = f.create_group(group)
-            attrs = {
-                "format": _HDF5_FORMAT, "source": self.source, "description": self.description,
-                "result_path": self.result_path, "mode": self.mode, "gate_axis": self.gate_axis,
-                "lead_in": self.lead_in, "lead_out": self.lead_out, "mu_ref_meV": self.mu_ref_meV,
-                "parameter_names": " ".join(self.parameter_names), "fitted": " ".join(self.fitted),
-                "chi_square": self.chi_square, "reduced_chi_square": self.reduced_chi_square, "dof": self.dof,
-                "n_points": self.n_points, "noise_S": self.noise_S, "noise_source": self.noise_source,
-                "success": self.success, "message": self.message, "n_evaluations": self.n_evaluations,
-                "mu_ref_source": self.mu_ref_source,
-            }
-            for key, value in attrs.items():
-                g.attrs[key] = value
-
-            def dataset(name, data, units, long_name, dims=()):
-                ds = g.create_dataset(name, data=data)
-                ds.attrs["units"], ds.attrs["long_name"] = units, long_name
-                for i, scale in enumerate(dims):
-                    ds.dims[i].attach_scale(scale)
-                return ds
-
-            gate = dataset("gate_voltage", self.gate_V, "V", "measured gate voltage")
-            gate.make_scale("gate_voltage")
-            for name, data, long_name in (
-                ("measured_conductance", self.measured_S, "measured two-terminal conductance"),
-                ("model_conductance", self.model_S, "model conductance as measured (with series resistance)"),
-                ("model_device_conductance", self.model_device_S, "model conductance of the device alone"),
-                ("residual", self.residuals_S, "residual: measured minus model conductance"),
-            ):
-                dataset(name, data, "S", long_name, (gate,))
-            curve = dataset("curve_gate_voltage", self.curve_gate_V, "V", "gate voltage of the dense model curve")
-            curve.make_scale("curve_gate_voltage")
-            dataset("model_curve", self.curve_S, "S", "model conductance as measured, dense curve", (curve,))
-            params = g.create_group("parameters")
-            for name in self.parameter_names:
-                ds = params.create_dataset(name, data=self.values[name])
-                ds.attrs["units"], ds.attrs["long_name"] = PARAMETER_UNITS[name], _PARAMETER_LONG_NAMES[name]
-                ds.attrs["stderr"], ds.attrs["fitted"] = self.stderr[name], name in self.fitted
-                if name in (self.bounds or {}):
-                    ds.attrs["bounds"] = np.asarray(self.bounds[name], dtype=float)
-            labels = np.array(self.fitted, dtype=h5py.string_dtype())
-            rows = dataset("fitted_parameter", labels, "", "fitted parameter (rows)")
-            rows.make_scale("fitted_parameter")
-            cols = dataset("fitted_parameter_2", labels, "", "fitted parameter (columns)")
-            cols.make_scale("fitted_parameter_2")
-            units = " ".join(f"[{PARAMETER_UNITS[n]}]" for n in self.fitted)
-            dataset("covariance", self.covariance, f"products of the parameter units {units}",
-                    "covariance of the fitted parameters", (rows, cols))
-            dataset("correlation", self.correlation, "1", "correlation of the fitted parameters", (rows, cols))
+        attrs = {
+            "format": _HDF5_FORMAT, "source": self.source, "description": self.description,
+            "result_path": self.result_path, "mode": self.mode, "gate_axis": self.gate_axis,
+            "lead_in": self.lead_in, "lead_out": self.lead_out, "mu_ref_meV": self.mu_ref_meV,
+            "parameter_names": " ".join(self.parameter_names), "fitted": " ".join(self.fitted),
+            "chi_square": self.chi_square, "reduced_chi_square": self.reduced_chi_square, "dof": self.dof,
+            "n_points": self.n_points, "noise_S": self.noise_S, "noise_source": self.noise_source,
+            "success": self.success, "message": self.message, "n_evaluations": self.n_evaluations,
+            "mu_ref_source": self.mu_ref_source,
+        }
+        gate = ("gate_voltage",)
+        items = {"gate_voltage": StoredArray(self.gate_V, "V", "measured gate voltage", scale=True)}
+        for name, data, long_name in (
+            ("measured_conductance", self.measured_S, "measured two-terminal conductance"),
+            ("model_conductance", self.model_S, "model conductance as measured (with series resistance)"),
+            ("model_device_conductance", self.model_device_S, "model conductance of the device alone"),
+            ("residual", self.residuals_S, "residual: measured minus model conductance"),
+        ):
+            items[name] = StoredArray(data, "S", long_name, dims=gate)
+        items["curve_gate_voltage"] = StoredArray(self.curve_gate_V, "V", "gate voltage of the dense model curve",
+                                                  scale=True)
+        items["model_curve"] = StoredArray(self.curve_S, "S", "model conductance as measured, dense curve",
+                                           dims=("curve_gate_voltage",))
+        params = {}
+        for name in self.parameter_names:
+            extra = {"stderr": self.stderr[name], "fitted": name in self.fitted}
+            if name in (self.bounds or {}):
+                extra["bounds"] = np.asarray(self.bounds[name], dtype=float)
+            params[name] = StoredArray(self.values[name], PARAMETER_UNITS[name], _PARAMETER_LONG_NAMES[name],
+                                       attrs=extra)
+        items["parameters"] = StoredGroup(params)
+        labels = np.array(self.fitted, dtype=object)
+        items["fitted_parameter"] = StoredArray(labels, "", "fitted parameter (rows)", scale=True)
+        items["fitted_parameter_2"] = StoredArray(labels, "", "fitted parameter (columns)", scale=True)
+        units = " ".join(f"[{PARAMETER_UNITS[n]}]" for n in self.fitted)
+        matrix = ("fitted_parameter", "fitted_parameter_2")
+        items["covariance"] = StoredArray(self.covariance, f"products of the parameter units {units}",
+                                          "covariance of the fitted parameters", dims=matrix)
+        items["correlation"] = StoredArray(self.correlation, "1", "correlation of the fitted parameters", dims=matrix)
+        write_group(path, group, items, attrs=attrs, overwrite=overwrite)
 
 
 def _text(value) -> str:

@@ -70,7 +70,7 @@ import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any, ClassVar, Literal, NamedTuple
+from typing import Annotated, Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import (
@@ -93,6 +93,7 @@ from rgftrans.system.lattices import Lattice, honeycomb, square, triangular
 from rgftrans.system.materials import MATERIALS, Material, fermi_energy_meV
 
 from rgftrans.errors import ConfigError
+from rgftrans.io.store import Axis, dataset_name
 from rgftrans.io.config_messages import (  # noqa: F401  (the helpers are part of this module's interface)
     RUN_ADVICE,
     _did_you_mean,
@@ -106,7 +107,6 @@ from rgftrans.io.config_messages import (  # noqa: F401  (the helpers are part o
 
 
 __all__ = [
-    "Axis",
     "Parameter",
     "RunConfig",
     "load_config",
@@ -648,15 +648,6 @@ class Parameter:
     changes_geometry: bool = False
 
 
-class Axis(NamedTuple):
-    """A sweep axis: parameter path, values, units and long name."""
-
-    name: str
-    values: np.ndarray
-    units: str
-    long_name: str
-
-
 @dataclass(frozen=True)
 class _ShiftedPotential:
     """Gate potential plus a constant (meV), picklable for worker processes."""
@@ -736,8 +727,6 @@ class RunConfig(_Table):
         return self
 
     def _check_axes(self) -> None:
-        from rgftrans.io.store import dataset_name
-
         catalogue = self.parameters()
         seen: set[str] = set()
         stored: dict[str, str] = {}
@@ -849,11 +838,17 @@ class RunConfig(_Table):
         return point
 
     def axes(self) -> list[Axis]:
-        """The sweep axes, outermost first: (name, values, units, long_name) each; [] without a sweep."""
+        """The sweep axes, outermost first, as the result file stores them; [] without a sweep.
+
+        Each :class:`rgftrans.io.store.Axis` carries the config path it sweeps
+        (``parameter``, the key of :meth:`build_device` points) and its stored
+        name (``name = dataset_name(parameter)``).
+        """
         if self.sweep is None:
             return []
         catalogue = self.parameters()
-        return [Axis(a.parameter, a.array(), catalogue[a.parameter].units, catalogue[a.parameter].long_name)
+        return [Axis.of_parameter(a.parameter, a.array(), catalogue[a.parameter].units,
+                                  catalogue[a.parameter].long_name)
                 for a in self.sweep.axis]
 
     # --- builders ---
@@ -986,10 +981,10 @@ class RunConfig(_Table):
         """One sweep point (a parameter mapping) for each distinct geometry the sweep visits, base point first."""
         from itertools import product
 
-        axes = [ax for ax in self.axes() if self.parameters()[ax.name].changes_geometry]
+        axes = [ax for ax in self.axes() if self.parameters()[ax.parameter].changes_geometry]
         points = [{}]
         for values in product(*(ax.values for ax in axes)) if axes else []:
-            points.append({ax.name: float(v) for ax, v in zip(axes, values)})
+            points.append({ax.parameter: float(v) for ax, v in zip(axes, values)})
         seen, out = set(), []
         for point in points:
             key = self.geometry_key(point)

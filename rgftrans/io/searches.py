@@ -21,7 +21,7 @@ from rgftrans.analysis.darkstates import (Track, coupling_diagnostics, find_reso
                                           locate_bic, progress_bar, track_resonance)
 from rgftrans.errors import ResolutionWarning, RgftransError, SearchFailed
 from rgftrans.io.config import parse_config
-from rgftrans.io.store import read_result
+from rgftrans.io.store import StoredArray, StoredGroup, read_result, write_group
 
 __all__ = ["SweepSearch", "search_sweep", "write_search", "stored_energy_window", "stored_plane_builder",
            "single_channel_energies", "search_sweep_plane", "write_grid_search"]
@@ -116,8 +116,8 @@ def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_
     cfg_axes = cfg.axes()
     if isinstance(axis, bool) or not isinstance(axis, (int, np.integer)) or not 0 <= axis < len(cfg_axes):
         raise RgftransError(f"{path}: axis {axis!r} does not exist; the sweep has {len(cfg_axes)} axis(es), "
-                            f"0..{len(cfg_axes) - 1} ({', '.join(a.name for a in cfg_axes)})")
-    name = cfg_axes[axis].name
+                            f"0..{len(cfg_axes) - 1} ({', '.join(a.parameter for a in cfg_axes)})")
+    name = cfg_axes[axis].parameter
     values = np.asarray(cfg_axes[axis].values, float)
     base = cfg.base_point()
     window = stored_energy_window(data)
@@ -184,47 +184,37 @@ def search_sweep(path, *, energy_guess: float | None = None, axis: int = 0, min_
                        energy_window=window, left_window=left, axis_units=str(data.axes[axis].units or ""))
 
 
-def write_search(search: SweepSearch, path, *, group: str = "darkstates") -> None:
-    """Store a search in its own group of an HDF5 file (appending to a result file is fine).
+def write_search(search: SweepSearch, path, *, group: str = "darkstates", overwrite: bool = False) -> None:
+    """Store a search in its own group of an rgftrans HDF5 file (the result file, or a new file).
 
     Track values that were not computed are NaN; the group's attributes say
     over how many values the pole was computed, the stored energy window and
     where following stopped.  A BIC outside the stored energies has
-    ``outside_stored_energies = True``.
+    ``outside_stored_energies = True``.  Written by :func:`rgftrans.io.store.write_group`:
+    an existing group is refused unless ``overwrite``.
     """
-    import h5py
-
-    with h5py.File(path, "a") as f:
-        if group in f:
-            del f[group]
-        g = f.create_group(group)
-        g.attrs["axis"] = search.axis_name
-        g.attrs["long_name"] = "dark-state (BIC) search along one sweep axis"
-        g.attrs["valid_points"] = search.valid_points
-        g.attrs["total_points"] = len(search.track.parameters)
-        g.attrs["stored_energy_window_meV"] = np.asarray(search.energy_window, float)
-        g.attrs["stopped_at"] = np.asarray([p for p, _ in search.left_window], float)
-        t = search.track
-        for key, arr, units, long in (("parameter", t.parameters, search.axis_units,
-                                       f"sweep parameter {search.axis_name}"),
-                                      ("energy", t.energies_meV, "meV", "resonance energy Re z (NaN: not computed)"),
-                                      ("width", t.widths_meV, "meV", "resonance width -2 Im z (NaN: not computed)"),
-                                      ("q_factor", t.q_factors, "1", "quality factor Re z / width")):
-            ds = g.create_dataset(f"track/{key}", data=arr)
-            ds.attrs["units"], ds.attrs["long_name"] = units, long
-        for i, (loc, diag, q) in enumerate(zip(search.bics, search.diagnostics, search.nearby_q)):
-            b = g.create_group(f"bic_{i}")
-            for key, val, units in (("parameter", loc.parameter, search.axis_units), ("energy", loc.energy_meV, "meV"),
-                                    ("width", loc.width_meV, "meV"), ("typical_width", loc.typical_width_meV, "meV"),
-                                    ("orders_of_magnitude", loc.orders_of_magnitude, "1"),
-                                    ("exponent", loc.exponent, "1"), ("nearby_q", q, "1"),
-                                    ("coupling_mismatch", diag.coupling_mismatch, "1"),
-                                    ("degeneracy_residual", diag.degeneracy_residual, "1")):
-                ds = b.create_dataset(key, data=np.asarray(val, float))
-                ds.attrs["units"], ds.attrs["long_name"] = units, key.replace("_", " ")
-            b.attrs["kind"] = loc.kind
-            b.attrs["verdict"] = diag.verdict
-            b.attrs["outside_stored_energies"] = bool(loc.outside_stored_energies)
+    t = search.track
+    track = {key: StoredArray(arr, units, long) for key, arr, units, long in (
+        ("parameter", t.parameters, search.axis_units, f"sweep parameter {search.axis_name}"),
+        ("energy", t.energies_meV, "meV", "resonance energy Re z (NaN: not computed)"),
+        ("width", t.widths_meV, "meV", "resonance width -2 Im z (NaN: not computed)"),
+        ("q_factor", t.q_factors, "1", "quality factor Re z / width"))}
+    items = {"track": StoredGroup(track)}
+    for i, (loc, diag, q) in enumerate(zip(search.bics, search.diagnostics, search.nearby_q)):
+        items[f"bic_{i}"] = StoredGroup(
+            {key: StoredArray(np.asarray(val, float), units, key.replace("_", " ")) for key, val, units in (
+                ("parameter", loc.parameter, search.axis_units), ("energy", loc.energy_meV, "meV"),
+                ("width", loc.width_meV, "meV"), ("typical_width", loc.typical_width_meV, "meV"),
+                ("orders_of_magnitude", loc.orders_of_magnitude, "1"), ("exponent", loc.exponent, "1"),
+                ("nearby_q", q, "1"), ("coupling_mismatch", diag.coupling_mismatch, "1"),
+                ("degeneracy_residual", diag.degeneracy_residual, "1"))},
+            attrs={"kind": loc.kind, "verdict": diag.verdict,
+                   "outside_stored_energies": bool(loc.outside_stored_energies)})
+    attrs = {"axis": search.axis_name, "long_name": "dark-state (BIC) search along one sweep axis",
+             "valid_points": search.valid_points, "total_points": len(search.track.parameters),
+             "stored_energy_window_meV": np.asarray(search.energy_window, float),
+             "stopped_at": np.asarray([p for p, _ in search.left_window], float)}
+    write_group(path, group, items, attrs=attrs, overwrite=overwrite)
 
 
 def stored_plane_builder(path, data=None):
@@ -239,7 +229,7 @@ def stored_plane_builder(path, data=None):
                             "(sweep two gate voltages, say, or use the search along one axis)")
     cfg = parse_config(data.config_text, source=str(path))
     axes = cfg.axes()
-    names = (axes[0].name, axes[1].name)
+    names = (axes[0].parameter, axes[1].parameter)
     base = cfg.base_point()
 
     def build(a, b):
@@ -385,56 +375,45 @@ def search_sweep_plane(path, *, energy_guess: float | None = None, rtol: float =
 
 
 def write_grid_search(search: GridSearch, path, *, group: str = "darkstates", energy_units: str = "meV",
-                      energy_name: str = "energy", parameter_units: tuple[str, str] = ("", "")) -> None:
-    """Store a plane search in its own group of an HDF5 file (appending to a result file is fine).
+                      energy_name: str = "energy", parameter_units: tuple[str, str] = ("", ""),
+                      overwrite: bool = False) -> None:
+    """Store a plane search in its own group of an rgftrans HDF5 file (the result file, or a new file).
 
     ``energy_units`` and ``energy_name`` label the eigenvalue axis (energies,
     widths) and ``parameter_units`` the two parameters; they come from the
     caller: meV for an electronic device, ``"1"`` for the dimensionless
     ``lambda = (k0 a)^2`` of a waveguide.  Residuals not computed are NaN;
     ``valid_points`` (per seed) counts the rest.  A BIC outside the stored
-    energies has ``outside_stored_energies = True``.
+    energies has ``outside_stored_energies = True``.  Written by
+    :func:`rgftrans.io.store.write_group`: an existing group is refused unless ``overwrite``.
     """
-    import h5py
-
-    with h5py.File(path, "a") as f:
-        if group in f:
-            del f[group]
-        g = f.create_group(group)
-        g.attrs["kind"] = "plane"
-        g.attrs["axes"] = " ".join(search.names)
-        g.attrs["long_name"] = "dark-state (BIC) search over a plane of two sweep parameters"
-        g.attrs["channels"] = " ".join(f"{lead}:{c}" for lead, c in search.channels)
-        if search.energy_window is not None:
-            g.attrs["stored_energy_window"] = np.asarray(search.energy_window, float)
-        g.attrs["notes"] = " | ".join(search.notes)
-        for key, arr, units, long in (
-                ("p1", search.p1, parameter_units[0], f"sweep parameter {search.names[0]}"),
-                ("p2", search.p2, parameter_units[1], f"sweep parameter {search.names[1]}"),
-                ("seed_energy", search.seeds_meV, energy_units,
-                 f"{energy_name} of each followed dot state at the grid centre"),
-                ("residuals", search.residuals, "1",
-                 "signed unit-normalised coupling of the followed state to each open channel (seed, p1, p2, channel);"
-                 " NaN: not computed"),
-                ("valid_points", search.valid_points, "1", "grid points with computed residuals, per seed"),
-                ("energy", search.energies_meV, energy_units,
-                 f"self-consistent {energy_name} of the followed state (seed, p1, p2)")):
-            ds = g.create_dataset(key, data=arr)
-            ds.attrs["units"], ds.attrs["long_name"] = units, long
-        p_units = parameter_units[0] if parameter_units[0] == parameter_units[1] else ", ".join(parameter_units)
-        for i, (bic, seed) in enumerate(zip(search.bics, search.seed_of_bic)):
-            b = g.create_group(f"bic_{i}")
-            for key, val, units, long in (
-                    ("parameter", bic.parameter, p_units, f"({search.names[0]}, {search.names[1]})"),
-                    ("energy", bic.energy_meV, energy_units, energy_name),
-                    ("width", bic.width_meV, energy_units, f"pole width (in {energy_name})"),
-                    ("typical_width", bic.typical_width_meV, energy_units, "typical width one grid step away"),
-                    ("orders_of_magnitude", bic.orders_of_magnitude, "1", "orders of magnitude"),
-                    ("exponent", bic.exponent, "1", "exponent"), ("nearby_q", bic.nearby_q, "1", "nearby q"),
-                    ("residual", bic.residual, "1", "residual"), ("state", bic.state, "1", "state")):
-                ds = b.create_dataset(key, data=np.asarray(val, float))
-                ds.attrs["units"], ds.attrs["long_name"] = units, long
-            b.attrs["kind"] = bic.kind
-            b.attrs["seed"] = int(seed)
-            b.attrs["explanation"] = bic.explanation
-            b.attrs["outside_stored_energies"] = bool(bic.outside_stored_energies)
+    attrs = {"kind": "plane", "axes": " ".join(search.names),
+             "long_name": "dark-state (BIC) search over a plane of two sweep parameters",
+             "channels": " ".join(f"{lead}:{c}" for lead, c in search.channels),
+             "notes": " | ".join(search.notes)}
+    if search.energy_window is not None:
+        attrs["stored_energy_window"] = np.asarray(search.energy_window, float)
+    items = {key: StoredArray(arr, units, long) for key, arr, units, long in (
+        ("p1", search.p1, parameter_units[0], f"sweep parameter {search.names[0]}"),
+        ("p2", search.p2, parameter_units[1], f"sweep parameter {search.names[1]}"),
+        ("seed_energy", search.seeds_meV, energy_units, f"{energy_name} of each followed dot state at the grid centre"),
+        ("residuals", search.residuals, "1",
+         "signed unit-normalised coupling of the followed state to each open channel (seed, p1, p2, channel);"
+         " NaN: not computed"),
+        ("valid_points", search.valid_points, "1", "grid points with computed residuals, per seed"),
+        ("energy", search.energies_meV, energy_units,
+         f"self-consistent {energy_name} of the followed state (seed, p1, p2)"))}
+    p_units = parameter_units[0] if parameter_units[0] == parameter_units[1] else ", ".join(parameter_units)
+    for i, (bic, seed) in enumerate(zip(search.bics, search.seed_of_bic)):
+        items[f"bic_{i}"] = StoredGroup(
+            {key: StoredArray(np.asarray(val, float), units, long) for key, val, units, long in (
+                ("parameter", bic.parameter, p_units, f"({search.names[0]}, {search.names[1]})"),
+                ("energy", bic.energy_meV, energy_units, energy_name),
+                ("width", bic.width_meV, energy_units, f"pole width (in {energy_name})"),
+                ("typical_width", bic.typical_width_meV, energy_units, "typical width one grid step away"),
+                ("orders_of_magnitude", bic.orders_of_magnitude, "1", "orders of magnitude"),
+                ("exponent", bic.exponent, "1", "exponent"), ("nearby_q", bic.nearby_q, "1", "nearby q"),
+                ("residual", bic.residual, "1", "residual"), ("state", bic.state, "1", "state"))},
+            attrs={"kind": bic.kind, "seed": int(seed), "explanation": bic.explanation,
+                   "outside_stored_energies": bool(bic.outside_stored_energies)})
+    write_group(path, group, items, attrs=attrs, overwrite=overwrite)

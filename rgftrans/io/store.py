@@ -8,6 +8,12 @@
 * :func:`read_result` loads a file into a :class:`ResultData`;
 * :func:`validate` checks a file and raises :class:`StoreError` with one line;
 * :func:`summary` is the human description shown by ``rgftrans info``.
+* :func:`write_group` writes a named group of other modules (dark-state
+  searches, trace fits) into an rgftrans file or a new file of its own, and
+  :func:`write_file` a whole file of another kind (the waveguide run): with
+  :func:`ResultFile.create` the package's only ways to write HDF5 (besides the
+  sweep driver).  One policy: an existing group or file is refused unless
+  ``overwrite``; foreign files and files a running sweep holds are never written.
 
 Layout (schema version 2)
 -------------------------
@@ -64,7 +70,7 @@ import os
 import platform
 import re
 import socket
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
@@ -78,8 +84,9 @@ from rgftrans import __version__
 from rgftrans.errors import StoreError
 
 
-__all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "Axis", "QuantitySpec", "ResultData", "ResultFile",
-           "OutputLock", "dataset_name", "is_own_file", "lock_owner", "printable", "read_result", "summary", "validate"]
+__all__ = ["FORMAT_NAME", "GROUPS_FORMAT", "SCHEMA_VERSION", "Axis", "QuantitySpec", "ResultData", "ResultFile",
+           "StoredArray", "StoredGroup", "OutputLock", "check_file_writable", "check_group_writable", "dataset_name", "is_own_file",
+           "lock_owner", "printable", "read_result", "summary", "validate", "write_file", "write_group"]
 
 
 def dataset_name(parameter: str) -> str:
@@ -141,29 +148,48 @@ def _check_text(value, what: str) -> str:
 
 @dataclass(frozen=True, eq=False)
 class Axis:
-    """One parameter axis of a sweep (the energy axis is handled separately, always last).
+    """One axis with values and units: a sweep parameter, or the values of a trailing dimension.
+
+    The one axis type of the package: the run config's sweep axes
+    (:meth:`rgftrans.io.config.RunConfig.axes`) are these, stored as they are.
+    The energy axis of a result is handled separately, always last.
 
     Attributes
     ----------
     name : str
-        Dimension name, an identifier (``vg_plunger``); not ``energy``.
+        Dimension name, an identifier (``gates__plunger__voltage_V``); not ``energy``.
     values : (n,) float ndarray
         Finite axis values, stored read-only as float64.
     units : str
         Units of the values (``"V"``, ``"T"``; ``"1"`` when dimensionless).
     long_name : str
         Human description (``"plunger gate voltage"``).
+    parameter : str
+        The config path the axis sweeps (``gates.plunger.voltage_V``; then ``name``
+        is ``dataset_name(parameter)``), or ``""`` for an axis of no config
+        parameter.  Stored as the axis dataset's ``parameter`` attribute.
     """
 
     name: str
     values: np.ndarray
     units: str
     long_name: str
+    parameter: str = ""
+
+    @classmethod
+    def of_parameter(cls, parameter: str, values, units: str, long_name: str) -> "Axis":
+        """The axis sweeping config path ``parameter``, named ``dataset_name(parameter)``."""
+        _check_text(parameter, "parameter of an axis")
+        return cls(dataset_name(parameter), values, units, long_name, parameter)
 
     def __post_init__(self):
         _check_name(self.name, "axis")
         _check_text(self.units, f"units of axis {self.name!r}")
         _check_text(self.long_name, f"long_name of axis {self.name!r}")
+        _check_text(self.parameter, f"parameter of axis {self.name!r}")
+        if self.parameter and dataset_name(self.parameter) != self.name:
+            raise StoreError(f"axis {self.name!r} sweeps parameter {self.parameter!r}, which is stored as "
+                             f"{dataset_name(self.parameter)!r}; build it with Axis.of_parameter")
         try:
             values = np.array(self.values, dtype=np.float64)
         except (TypeError, ValueError) as exc:
@@ -181,7 +207,8 @@ class Axis:
         if not isinstance(other, Axis):
             return NotImplemented
         return (
-            (self.name, self.units, self.long_name) == (other.name, other.units, other.long_name)
+            (self.name, self.units, self.long_name, self.parameter)
+            == (other.name, other.units, other.long_name, other.parameter)
             and np.array_equal(self.values, other.values)
         )
 
@@ -338,7 +365,8 @@ def _read_layout(f: h5py.File, path) -> _Layout:
     def text(ds, key):
         return _attr_text(ds, key) or ""
     axes = tuple(
-        _rebuilt(path, Axis, name, g[name][()], text(g[name], "units"), text(g[name], "long_name"))
+        _rebuilt(path, Axis, name, g[name][()], text(g[name], "units"), text(g[name], "long_name"),
+                 text(g[name], "parameter"))
         for name in axis_names
     )
     energies = np.asarray(g[ENERGY_NAME][()], dtype=np.float64)
@@ -688,6 +716,9 @@ def _build(path: Path, *, config_text, config_hash, axes, energies, lead_names, 
         g.attrs["quantities"] = " ".join(quantities)
         g.attrs["coordinates"] = LEAD_NAME  # xarray: lead_name is a coordinate, not a data variable
         axis_scales = [_scale(g, a.name, a.values, a.units, a.long_name) for a in axes]
+        for scale, axis in zip(axis_scales, axes):
+            if axis.parameter:
+                scale.attrs["parameter"] = axis.parameter
         energy = _scale(g, ENERGY_NAME, energies, ENERGY_UNITS, "energy")
         lead = _index_scale(g, LEAD_DIM, len(lead_names))
         # (variable-length strings take no filters: the lead names go without a checksum)
@@ -1055,6 +1086,338 @@ def _describe_existing(path: Path, config_hash: str) -> str:
         return (f"exists and holds this sweep (config hash {str(old)[:12]}); resume it with "
                 f"ResultFile.open_for_resume, or {fix}")
     return f"exists and holds a different sweep (config hash {str(old)[:12]}); {fix}"
+
+
+# --- groups of other writers (searches, fits) and whole files of other kinds -------------------
+
+
+#: Prefix of the root ``format`` attribute of every file rgftrans writes (result files, standalone groups,
+#: waveguide runs); the only files :func:`write_group` writes into.
+OWN_FORMAT_PREFIX = "rgftrans-"
+#: Root ``format`` of a file made by :func:`write_group` to hold groups saved away from a result file.
+GROUPS_FORMAT = "rgftrans-groups"
+#: Suffix of the name a group is built under before it is moved into place (hidden: leading dot).
+_PARTIAL_GROUP = ".partial"
+#: The fix every refused overwrite ends with.
+_OVERWRITE_FIX = "pass --overwrite (overwrite=True) to replace it, or write elsewhere (--save NEW.h5)"
+
+
+@dataclass(frozen=True, eq=False)
+class StoredArray:
+    """One dataset of a group written by :func:`write_group`: values with their units and description.
+
+    Attributes
+    ----------
+    values : array_like or str
+        Numbers (any shape; stored as given), booleans, or text (a str or an
+        array of str, stored as UTF-8 strings).
+    units : str
+        CF style: ``"1"`` dimensionless, ``""`` for text.
+    long_name : str
+    dims : tuple of str, optional
+        For each dimension, the key of a dataset of the same group that is a
+        dimension scale (``scale=True``), or ``""`` for none.
+    scale : bool
+        Make this 1D dataset a dimension scale named by its key.
+    attrs : dict of str to str, bool, int, float or 1D float array, optional
+        Further attributes of the dataset.
+    """
+
+    values: object
+    units: str
+    long_name: str
+    dims: tuple = ()
+    scale: bool = False
+    attrs: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        _check_text(self.units, "units of a dataset")
+        _check_text(self.long_name, "long_name of a dataset")
+        values = self.values
+        if isinstance(values, str):
+            values = np.array(values, dtype=object)
+        else:
+            values = np.asarray(values)
+            if values.dtype.kind in "USO":
+                if not all(isinstance(v, (str, np.str_)) for v in values.flat):
+                    raise StoreError(f"dataset {self.long_name!r}: values of dtype {values.dtype} are neither numbers "
+                                     "nor text; pass numbers or strings")
+                values = np.array([str(v) for v in values.flat], dtype=object).reshape(values.shape)
+            elif values.dtype.kind not in "biufc":
+                raise StoreError(f"dataset {self.long_name!r}: values of dtype {values.dtype} cannot be stored; "
+                                 "pass numbers, booleans or strings")
+        dims = tuple(self.dims)
+        if dims and len(dims) != values.ndim:
+            raise StoreError(f"dataset {self.long_name!r}: {len(dims)} dims for {values.ndim} dimension(s); "
+                             "give one scale name (or '') per dimension")
+        if self.scale and values.ndim != 1:
+            raise StoreError(f"dataset {self.long_name!r}: a dimension scale must be 1D, got shape {values.shape}")
+        object.__setattr__(self, "values", values)
+        object.__setattr__(self, "dims", dims)
+        object.__setattr__(self, "attrs", _check_group_attrs(self.attrs, f"dataset {self.long_name!r}"))
+
+
+@dataclass(frozen=True, eq=False)
+class StoredGroup:
+    """A group of :class:`StoredArray` (and nested :class:`StoredGroup`) keyed by name, with its attributes."""
+
+    items: Mapping
+    attrs: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        items = dict(self.items)
+        for key, item in items.items():
+            _check_key(key)
+            if not isinstance(item, (StoredArray, StoredGroup)):
+                raise StoreError(f"{key!r}: expected a StoredArray or StoredGroup, got {type(item).__name__}")
+            if isinstance(item, StoredArray):
+                for dim in item.dims:
+                    scale = items.get(dim)
+                    if dim and not (isinstance(scale, StoredArray) and scale.scale):
+                        raise StoreError(f"dataset {key!r}: dimension scale {dim!r} is not a dataset of the same "
+                                         "group made with scale=True; add it or drop the dim")
+                    if dim and scale.values.shape[0] != item.values.shape[item.dims.index(dim)]:
+                        raise StoreError(f"dataset {key!r}: scale {dim!r} has {scale.values.shape[0]} values for a "
+                                         f"dimension of size {item.values.shape[item.dims.index(dim)]}")
+        object.__setattr__(self, "items", items)
+        object.__setattr__(self, "attrs", _check_group_attrs(self.attrs, "group"))
+
+
+def _check_key(key) -> str:
+    """An HDF5 link name of our own: non-empty text, no '/', not hidden (a leading '.' marks partial groups)."""
+    if not isinstance(key, str) or not key or "/" in key or key.startswith(".") or not key.isprintable():
+        raise StoreError(f"name {key!r} is not usable in a file; use printable text without '/' or a leading '.'")
+    return key
+
+
+def _check_group_path(group) -> tuple[str, ...]:
+    if not isinstance(group, str) or not group.strip("/"):
+        raise StoreError(f"group {group!r} is not usable; pass a name such as 'darkstates'")
+    return tuple(_check_key(part) for part in group.strip("/").split("/"))
+
+
+def _check_group_attrs(attrs, what: str) -> dict:
+    """Attributes of a group or dataset: str, bool, int, float (NaN allowed) or a 1D float array."""
+    out = {}
+    for key, value in dict(attrs or {}).items():
+        if not isinstance(key, str) or not key:
+            raise StoreError(f"{what}: attribute name {key!r} must be a non-empty str")
+        if isinstance(value, (bool, np.bool_)):
+            value = bool(value)
+        elif isinstance(value, (int, np.integer)):
+            value = np.int64(value)
+        elif isinstance(value, (float, np.floating)):
+            value = float(value)
+        elif isinstance(value, (list, tuple, np.ndarray)):
+            try:
+                value = np.asarray(value, dtype=np.float64)
+            except (TypeError, ValueError):
+                raise StoreError(f"{what}: attribute {key!r} = {value!r} is not a list of numbers") from None
+            if value.ndim != 1:
+                raise StoreError(f"{what}: attribute {key!r} has shape {value.shape}; pass a 1D list of numbers")
+        elif not isinstance(value, str):
+            raise StoreError(f"{what}: attribute {key!r} = {value!r} must be a str, bool, int, float or list of floats")
+        out[key] = value
+    return out
+
+
+def _write_items(g, contents: StoredGroup) -> None:
+    """Fill the empty h5py group ``g``: attributes, datasets (checksummed when chunked), scales, subgroups."""
+    for key, value in contents.attrs.items():
+        g.attrs[key] = value
+    made = {}
+    for key, item in contents.items.items():
+        if isinstance(item, StoredGroup):
+            _write_items(g.create_group(key), item)
+            continue
+        values = item.values
+        if values.dtype == object:  # text: variable-length strings take no filters, so no checksum
+            ds = g.create_dataset(key, data=values, dtype=h5py.string_dtype("utf-8"))
+        else:
+            ds = g.create_dataset(key, data=values, **_checksummed(values.shape))
+        _annotate(ds, item.units, item.long_name)
+        for name, value in item.attrs.items():
+            ds.attrs[name] = value
+        if item.scale:
+            ds.make_scale(key)
+        made[key] = ds
+    for key, item in contents.items.items():
+        if isinstance(item, StoredArray):
+            for i, dim in enumerate(item.dims):
+                if dim:
+                    made[key].dims[i].attach_scale(made[dim])
+                    made[key].dims[i].label = dim
+
+
+def _root_format(path: Path) -> str | None:
+    """The root ``format`` attribute of an HDF5 file h5py can open, else None (one StoreError if not HDF5)."""
+    if path.is_dir():
+        raise StoreError(f"{path}: is a directory; pass the path of an .h5 file")
+    if path.stat().st_size == 0 or not h5py.is_hdf5(path):
+        raise StoreError(f"{path}: exists and is not an HDF5 file; rgftrans writes only into its own files -- "
+                         "choose another path or move the file away")
+    with _open_h5(path, "r") as f:
+        return _attr_text(f, "format")
+
+
+def _check_own(path: Path) -> None:
+    fmt = _root_format(path)
+    if fmt is None or not fmt.startswith(OWN_FORMAT_PREFIX):
+        found = "no 'format' attribute" if fmt is None else f"format {printable(fmt)!r}"
+        raise StoreError(f"{path}: is not a file written by rgftrans ({found}); rgftrans writes only into its own "
+                         "files -- write elsewhere (--save NEW.h5) or move the file away")
+
+
+@contextmanager
+def _no_other_writer(path: Path):
+    """Hold the output lock of ``path`` while writing, if a sweep ever wrote it; refuse if a run holds it now."""
+    lock_path = path.with_name(path.name + ".lock")
+    if os.path.abspath(lock_path) in _HELD_LOCKS:
+        raise StoreError(f"{path}: this process is writing it as a sweep; write the group after the sweep ends")
+    if not lock_path.exists():
+        yield
+        return
+    with OutputLock(path):  # one line naming the running sweep if it holds the lock
+        yield
+
+
+def check_group_writable(path, group: str, *, overwrite: bool = False) -> None:
+    """Refuse now what :func:`write_group` would refuse later (before a long computation): one StoreError line.
+
+    A missing file is fine (it will be made); an existing one must be an
+    rgftrans file, not written by a running sweep, and without ``group`` unless
+    ``overwrite``.
+    """
+    path = Path(path)
+    parts = _check_group_path(group)
+    if not path.exists():
+        if not path.parent.is_dir():
+            raise StoreError(f"{path}: directory {path.parent} does not exist; create it or choose another path")
+        return
+    _check_own(path)
+    owner = lock_owner(path)
+    if owner:
+        raise StoreError(f"{path}: is being written by {owner}; wait for that run to finish, or write elsewhere")
+    if not overwrite:
+        with _open_h5(path, "r") as f:
+            if "/".join(parts) in f:
+                raise StoreError(f"{path}: group /{'/'.join(parts)} exists; {_OVERWRITE_FIX}")
+
+
+def check_file_writable(path, *, overwrite: bool = False) -> None:
+    """Refuse now what :func:`write_file` would refuse later (before a long computation): one StoreError line."""
+    path = Path(path)
+    if path.is_dir():
+        raise StoreError(f"{path}: is a directory; choose a file name for the output")
+    if not path.exists():
+        return
+    _check_own(path)
+    if not overwrite:
+        raise StoreError(f"{path}: exists; pass --overwrite (overwrite=True) to replace it, or choose another path")
+    owner = lock_owner(path)
+    if owner:
+        raise StoreError(f"{path}: is being written by {owner}; wait for that run to finish, or choose another path")
+
+
+def write_group(path, group: str, datasets: Mapping, *, attrs: Mapping | None = None,
+                overwrite: bool = False) -> None:
+    """Write a named group of datasets into an rgftrans HDF5 file, or into a new file of its own.
+
+    The one way rgftrans writes a group beside a result's own layout (dark-state
+    searches, trace fits).  Into an existing file: the group is built under a
+    hidden temporary name (``.<group>.partial``) and moved into place when
+    complete, so a killed write never leaves a half group under the real name
+    (a stale partial group is removed by the next write).  Into a new path: a
+    file with root ``format = "rgftrans-groups"``, ``created`` and
+    ``/provenance``, built beside the target and renamed.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    group : str
+        Group path in the file (``"darkstates"``, ``"fits/compare"``).
+    datasets : dict of str to StoredArray or StoredGroup
+    attrs : dict, optional
+        Attributes of the group (str, bool, int, float or 1D float list).
+    overwrite : bool
+        Replace an existing group of that name; otherwise it is refused.
+
+    Raises
+    ------
+    StoreError
+        One line: the group exists (and ``overwrite`` is False); the file is
+        not HDF5 or not written by rgftrans; a running sweep holds its output
+        lock; the file cannot be opened for writing.
+    """
+    path = Path(path)
+    parts = _check_group_path(group)
+    contents = StoredGroup(datasets, attrs or {})
+    if not path.exists():
+        nested = contents
+        for part in reversed(parts[1:]):
+            nested = StoredGroup({part: nested})
+        write_file(path, StoredGroup({parts[0]: nested}), kind=GROUPS_FORMAT)
+        return
+    _check_own(path)
+    name = "/".join(parts)
+    with _no_other_writer(path), _open_h5(path, "r+") as f:
+        parent = f.require_group("/".join(parts[:-1])) if len(parts) > 1 else f
+        leaf = parts[-1]
+        if leaf in parent and not overwrite:
+            raise StoreError(f"{path}: group /{name} exists; {_OVERWRITE_FIX}")
+        partial = f".{leaf}{_PARTIAL_GROUP}"
+        if partial in parent:  # left by a killed write
+            del parent[partial]
+        _write_items(parent.create_group(partial), contents)
+        f.flush()  # the whole group reaches the file before it takes the real name
+        if leaf in parent:
+            del parent[leaf]
+        parent.move(partial, leaf)
+        f.flush()
+
+
+def write_file(path, contents: StoredGroup, *, kind: str, overwrite: bool = False) -> None:
+    """Write a whole HDF5 file of ``contents`` (its root), atomically: built beside ``path``, then renamed.
+
+    The root gets ``format = kind`` (which must start with ``"rgftrans-"``),
+    ``created`` and ``/provenance`` besides ``contents.attrs``.  An existing
+    file is refused unless ``overwrite``; a file not written by rgftrans is never
+    replaced; nor one a running sweep holds.
+    """
+    path = Path(path)
+    if not isinstance(contents, StoredGroup):
+        raise StoreError(f"{path}: contents must be a StoredGroup, got {type(contents).__name__}")
+    if not isinstance(kind, str) or not kind.startswith(OWN_FORMAT_PREFIX):
+        raise StoreError(f"{path}: file kind {kind!r} must start with {OWN_FORMAT_PREFIX!r}")
+    for key in ("format", "created"):
+        if key in contents.attrs or key in contents.items:
+            raise StoreError(f"{path}: {key!r} is written by the file layout itself; choose another name")
+    if "provenance" in contents.items:
+        raise StoreError(f"{path}: 'provenance' is written by the file layout itself; choose another name")
+    if not path.parent.is_dir():
+        raise StoreError(f"{path}: directory {path.parent} does not exist; create it or choose another path")
+    if path.is_dir():
+        raise StoreError(f"{path}: is a directory; choose a file name for the output")
+    lock = nullcontext()
+    if path.exists():
+        _check_own(path)
+        if not overwrite:
+            raise StoreError(f"{path}: exists; pass --overwrite (overwrite=True) to replace it, or choose another "
+                             "path")
+        lock = _no_other_writer(path)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.partial")
+    try:
+        with lock:
+            with h5py.File(tmp, "w") as f:
+                f.attrs["format"] = kind
+                f.attrs["created"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
+                prov = f.create_group("provenance")
+                for key, value in _provenance().items():
+                    prov.attrs[key] = value
+                _write_items(f, contents)
+            os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)
 
 
 # --- reading ---------------------------------------------------------------------------------

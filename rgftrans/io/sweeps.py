@@ -67,7 +67,7 @@ def grid_points(cfg: RunConfig) -> Iterator[tuple[tuple[int, ...], dict[str, flo
     """All grid points as (index tuple, {parameter: value}), outermost axis first."""
     axes = cfg.axes()
     for index in itertools.product(*(range(len(ax.values)) for ax in axes)):
-        yield index, {ax.name: float(ax.values[i]) for ax, i in zip(axes, index)}
+        yield index, {ax.parameter: float(ax.values[i]) for ax, i in zip(axes, index)}
 
 
 def axis_dataset_name(parameter: str) -> str:
@@ -304,8 +304,7 @@ def _drop_entry(f: Path, exc: BaseException) -> None:
 # --------------------------------------------------------------------------
 
 def _open_result(cfg: RunConfig, path: Path, overwrite: bool, journal: _Journal, model) -> ResultFile:
-    axes = [Axis(axis_dataset_name(ax.name), np.asarray(ax.values, float), ax.units, ax.long_name)
-            for ax in cfg.axes()]
+    axes = cfg.axes()
     temps = sweep_temperatures(cfg)
     fermi = cfg.fermi_energy_meV
     create = dict(config_text=cfg.source_text or cfg.canonical_json(), config_hash=cfg.config_hash(), axes=axes,

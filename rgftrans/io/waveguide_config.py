@@ -37,7 +37,6 @@ Layout (lengths in the ``unit`` of ``[waveguide]``, mm or um; frequencies in GHz
 
 from __future__ import annotations
 
-import os
 import tomllib
 from pathlib import Path
 from dataclasses import dataclass
@@ -57,7 +56,10 @@ from rgftrans.analysis.light import (DarkMode, FieldMap, PhotonicResonance, Spec
 from rgftrans.system.photonic import Dielectric, PhotonicModel, Port, Waveguide
 
 __all__ = ["WaveguideConfig", "WaveguideRun", "load_waveguide", "parse_waveguide", "is_waveguide_config",
-           "run_waveguide", "write_waveguide"]
+           "run_waveguide", "write_waveguide", "WAVEGUIDE_FORMAT"]
+
+#: Root ``format`` attribute of the file :func:`write_waveguide` writes.
+WAVEGUIDE_FORMAT = "rgftrans-waveguide"
 
 
 class _Shape(_Table):
@@ -338,8 +340,10 @@ def parameter_units(names, unit: str) -> tuple[str, ...]:
     return tuple("1" if n.endswith("permittivity") else unit for n in names)
 
 
-def write_waveguide(run: WaveguideRun, path) -> None:
-    """Everything into one HDF5 file, written beside the target and renamed over it (never half-written).
+def write_waveguide(run: WaveguideRun, path, *, overwrite: bool = False) -> None:
+    """Everything into one HDF5 file (root ``format = "rgftrans-waveguide"``), written beside the target and
+    renamed over it (never half-written) by :func:`rgftrans.io.store.write_file`; an existing file is refused
+    unless ``overwrite``.
 
     Layout: ``/config`` (TOML text); ``/waveguide`` with ``frequency`` (GHz, dimension scale),
     ``transmission``, ``n_open``, ``absorption`` and ``cutoffs/<port>`` (GHz); with a search,
@@ -347,64 +351,53 @@ def write_waveguide(run: WaveguideRun, path) -> None:
     followed modes, the coupling ``residuals``, and per BIC ``bic_<k>/``: ``parameter``, ``frequency`` (GHz),
     ``lam`` ((k0 a)^2), ``width`` (GHz), ``nearby_q``, ``orders_of_magnitude``, ``exponent``, ``state``.
     """
-    import h5py
+    from rgftrans.io.store import StoredArray, StoredGroup, write_file
 
     path = Path(path)
     pm, spectrum = run.model, run.spectrum
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".partial")
-
-    def put(group, key, data, units, long_name):
-        ds = group.create_dataset(key, data=data)
-        ds.attrs["units"], ds.attrs["long_name"] = units, long_name
-        return ds
-
-    with h5py.File(tmp, "w") as f:
-        f.attrs["format"] = "rgftrans-waveguide"
-        f.create_dataset("config", data=run.config_text)
-        g = f.create_group("waveguide")
-        g.attrs["ports"] = " ".join(spectrum.port_names)
-        g.attrs["spacing"], g.attrs["unit"] = pm.spacing, pm.unit
-        freq = put(g, "frequency", spectrum.frequencies_GHz, "GHz", "frequency")
-        freq.make_scale("frequency")
-        for key, data, units, long in (
-                ("transmission", spectrum.transmission, "1",
-                 "power transmission [frequency, port_out, port_in]; diagonal: reflection"),
-                ("n_open", spectrum.n_open, "1", "propagating modes of each port"),
-                ("absorption", spectrum.absorption, "1", "absorbed fraction per input port: N - sum_out T")):
-            put(g, key, data, units, long).dims[0].attach_scale(freq)
-        for k, name in enumerate(spectrum.port_names):
-            put(g, f"cutoffs/{name}", pm.cutoffs_GHz(k, 4), "GHz", f"cutoff frequencies of port {name} on this grid")
-        if run.search is not None:
-            s = run.search
-            d = g.create_group("darkstates")
-            d.attrs["kind"] = "plane"
-            d.attrs["axes"] = " ".join(s.names)
-            d.attrs["long_name"] = "dark-mode (BIC) search over a plane of two dielectric parameters"
-            d.attrs["channels"] = " ".join(f"{lead}:{c}" for lead, c in s.channels)
-            u1, u2 = parameter_units(s.names, pm.unit)
-            put(d, "p1", s.p1, u1, f"search parameter {s.names[0]}")
-            put(d, "p2", s.p2, u2, f"search parameter {s.names[1]}")
-            put(d, "seed_frequency", pm.frequency_GHz(np.maximum(s.seeds_meV, 0.0)), "GHz",
-                "frequency of each followed cavity mode at the grid centre")
-            put(d, "frequency", pm.frequency_GHz(np.abs(s.energies_meV)), "GHz",
-                "self-consistent frequency of the followed mode (seed, p1, p2)")
-            put(d, "residuals", s.residuals, "1",
-                "signed unit-normalised coupling of the followed mode to each open channel (seed, p1, p2, channel)")
-            for i, (mode, seed) in enumerate(zip(run.dark_modes, s.seed_of_bic)):
-                b = d.create_group(f"bic_{i}")
-                for key, val, units, long in (
-                        ("parameter", mode.parameter, "", f"({s.names[0]}, {s.names[1]}) at the BIC"),
-                        ("frequency", mode.frequency_GHz, "GHz", "frequency of the dark mode"),
-                        ("lam", mode.lam, "1", "(k0 a)^2 of the dark mode"),
-                        ("width", mode.width_GHz, "GHz", "width of the pole at the BIC"),
-                        ("orders_of_magnitude", mode.orders_of_magnitude, "1",
-                         "log10(width one grid step away / width at the BIC)"),
-                        ("exponent", mode.exponent, "1", "n in width ~ |p - p*|^n"),
-                        ("nearby_q", mode.nearby_q, "1", "Q = f / width one grid step away (+p1, -p1, +p2, -p2)"),
-                        ("state", s.bics[i].state, "1", "the dark mode, phi = sqrt(eps) E_z, unit norm")):
-                    put(b, key, np.asarray(val, float), units, long)
-                b.attrs["kind"] = mode.kind
-                b.attrs["seed"] = int(seed)
-                b.attrs["explanation"] = mode.explanation
-    os.replace(tmp, path)
+    freq = ("frequency",)
+    g = {"frequency": StoredArray(spectrum.frequencies_GHz, "GHz", "frequency", scale=True)}
+    for key, data, long in (
+            ("transmission", spectrum.transmission,
+             "power transmission [frequency, port_out, port_in]; diagonal: reflection"),
+            ("n_open", spectrum.n_open, "propagating modes of each port"),
+            ("absorption", spectrum.absorption, "absorbed fraction per input port: N - sum_out T")):
+        data = np.asarray(data)
+        g[key] = StoredArray(data, "1", long, dims=freq + ("",) * (data.ndim - 1))
+    g["cutoffs"] = StoredGroup({name: StoredArray(pm.cutoffs_GHz(k, 4), "GHz",
+                                                  f"cutoff frequencies of port {name} on this grid")
+                                for k, name in enumerate(spectrum.port_names)})
+    if run.search is not None:
+        s = run.search
+        u1, u2 = parameter_units(s.names, pm.unit)
+        d = {"p1": StoredArray(s.p1, u1, f"search parameter {s.names[0]}"),
+             "p2": StoredArray(s.p2, u2, f"search parameter {s.names[1]}"),
+             "seed_frequency": StoredArray(pm.frequency_GHz(np.maximum(s.seeds_meV, 0.0)), "GHz",
+                                           "frequency of each followed cavity mode at the grid centre"),
+             "frequency": StoredArray(pm.frequency_GHz(np.abs(s.energies_meV)), "GHz",
+                                      "self-consistent frequency of the followed mode (seed, p1, p2)"),
+             "residuals": StoredArray(s.residuals, "1", "signed unit-normalised coupling of the followed mode to "
+                                                        "each open channel (seed, p1, p2, channel)")}
+        for i, (mode, seed) in enumerate(zip(run.dark_modes, s.seed_of_bic)):
+            d[f"bic_{i}"] = StoredGroup(
+                {key: StoredArray(np.asarray(val, float), units, long) for key, val, units, long in (
+                    ("parameter", mode.parameter, "", f"({s.names[0]}, {s.names[1]}) at the BIC"),
+                    ("frequency", mode.frequency_GHz, "GHz", "frequency of the dark mode"),
+                    ("lam", mode.lam, "1", "(k0 a)^2 of the dark mode"),
+                    ("width", mode.width_GHz, "GHz", "width of the pole at the BIC"),
+                    ("orders_of_magnitude", mode.orders_of_magnitude, "1",
+                     "log10(width one grid step away / width at the BIC)"),
+                    ("exponent", mode.exponent, "1", "n in width ~ |p - p*|^n"),
+                    ("nearby_q", mode.nearby_q, "1", "Q = f / width one grid step away (+p1, -p1, +p2, -p2)"),
+                    ("state", s.bics[i].state, "1", "the dark mode, phi = sqrt(eps) E_z, unit norm"))},
+                attrs={"kind": mode.kind, "seed": int(seed), "explanation": mode.explanation})
+        g["darkstates"] = StoredGroup(d, attrs={
+            "kind": "plane", "axes": " ".join(s.names),
+            "long_name": "dark-mode (BIC) search over a plane of two dielectric parameters",
+            "channels": " ".join(f"{lead}:{c}" for lead, c in s.channels)})
+    contents = StoredGroup({
+        "config": StoredArray(run.config_text, "", "waveguide configuration (TOML)", attrs={"media_type": "application/toml"}),
+        "waveguide": StoredGroup(g, attrs={"ports": " ".join(spectrum.port_names), "spacing": pm.spacing,
+                                           "unit": pm.unit})})
+    write_file(path, contents, kind=WAVEGUIDE_FORMAT, overwrite=overwrite)
