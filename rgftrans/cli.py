@@ -389,11 +389,10 @@ def _cmd_darkstates(args) -> int:
     fig, ax = plot_track_on_map(args.result, shown)
     fig.savefig(f"{prefix}_track.png", dpi=150)
     if inside and np.ndim(inside[0].parameter) == 0:
-        from rgftrans.io.config import parse_config
+        from rgftrans.io.searches import stored_model
 
         loc = inside[0]
-        cfg = parse_config(data.config_text)
-        model = cfg.build_device({**cfg.base_point(), search.axis_name: float(loc.parameter)}).discretise()
+        model = stored_model(data, {search.axis_name: float(loc.parameter)})
         density = model.per_site(np.abs(loc.resonance.state) ** 2)
         q_near = search.nearby_q[search.bics.index(loc)][0]
         fig, ax = plot_map(model, density, label="|ψ|² (per site)",

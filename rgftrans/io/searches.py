@@ -23,8 +23,18 @@ from rgftrans.errors import ResolutionWarning, RgftransError, SearchFailed
 from rgftrans.io.config import parse_config
 from rgftrans.io.store import StoredArray, StoredGroup, read_result, write_group
 
-__all__ = ["SweepSearch", "search_sweep", "write_search", "stored_energy_window", "stored_plane_builder",
+__all__ = ["stored_model", "SweepSearch", "search_sweep", "write_search", "stored_energy_window", "stored_plane_builder",
            "single_channel_energies", "search_sweep_plane", "write_grid_search"]
+
+def stored_model(data, point: dict[str, float]):
+    """The discretised device of a stored sweep at one parameter point (config paths to values; others as stored).
+
+    The result file's own config text rebuilds the device, so a figure or a check at a found parameter value
+    uses exactly the model the sweep computed.
+    """
+    cfg = parse_config(data.config_text, source=str(data.path))
+    return cfg.build_device({**cfg.base_point(), **point}).discretise()
+
 
 def stored_energy_window(data) -> tuple[float, float]:
     """``(lo, hi)`` meV: the stored energies of a result (a search trusts nothing outside them)."""
