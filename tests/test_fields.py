@@ -105,11 +105,11 @@ def test_zeeman_splits_the_spins_rigidly():
 
 def test_disorder_is_reproducible_per_site_and_box_distributed():
     dis = Disorder(4.0, seed=12)
-    tags = np.array([[i, j, 0] for i in range(100) for j in range(100)])
-    v = dis.values(tags)
-    assert np.array_equal(v, Disorder(4.0, seed=12).values(tags))            # same seed, same values
-    assert np.array_equal(v[5000:5100], dis.values(tags[5000:5100]))        # keyed by site, not by order
-    assert not np.allclose(v, Disorder(4.0, seed=13).values(tags))          # another seed differs
+    cells = np.array([[i, j, 0] for i in range(100) for j in range(100)])
+    v = dis.values(cells)
+    assert np.array_equal(v, Disorder(4.0, seed=12).values(cells))            # same seed, same values
+    assert np.array_equal(v[5000:5100], dis.values(cells[5000:5100]))        # keyed by site, not by order
+    assert not np.allclose(v, Disorder(4.0, seed=13).values(cells))          # another seed differs
     assert v.min() >= -2.0 and v.max() < 2.0
     # Box distribution of width W: mean 0, variance W^2/12 (common practice); 1e4 samples -> ~3 % on the variance.
     assert abs(v.mean()) < 0.05

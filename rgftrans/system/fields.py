@@ -95,13 +95,13 @@ class Disorder:
                 f"disorder width must be a finite non-negative energy, got {self.width_meV} meV; e.g. width_meV = 1.0"
             )
 
-    def values(self, tags: np.ndarray) -> np.ndarray:
-        """Onsite disorder (meV) of the sites with the given (n, 3) lattice tags."""
-        tags = np.asarray(tags, dtype=np.int64).reshape(-1, 3).astype(np.uint64)
+    def values(self, cells: np.ndarray) -> np.ndarray:
+        """Onsite disorder (meV) of the sites with the given (n, 3) lattice cells."""
+        cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3).astype(np.uint64)
         with np.errstate(over="ignore"):
             h = np.uint64(self.seed % (1 << 63)) * np.uint64(0x9E3779B97F4A7C15)
             for col in range(3):
-                h = _splitmix64(h ^ (tags[:, col] + np.uint64(0x632BE59BD9B4E019) * np.uint64(col + 1)))
+                h = _splitmix64(h ^ (cells[:, col] + np.uint64(0x632BE59BD9B4E019) * np.uint64(col + 1)))
         uniform = (h >> np.uint64(11)).astype(np.float64) / float(1 << 53)
         return self.width_meV * (uniform - 0.5)
 
