@@ -10,7 +10,7 @@ would write by hand.
 of all leads by the Fisher-Lee relation (Fisher & Lee, Phys. Rev. B 23, 6851
 (1981), from memory) written for general leads: an incoming Bloch mode
 ``phi_in`` of lead q drives the device through the source
-``V_q (phi_in - g_q h_hop_q^dag phi_in / lam_in)``; the outgoing wave in lead
+``V_q (phi_in - g_q h_hop_q^dag phi_in / bloch_in)``; the outgoing wave in lead
 p at its cell 0 is ``g_p V_p^dag psi`` (minus the incoming part when p = q),
 expanded in lead p's outgoing modes; amplitudes are flux-normalised by
 ``sqrt(|v_out| / |v_in|)``.
