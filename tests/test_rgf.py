@@ -268,7 +268,7 @@ def test_conductance_in_siemens_uses_codata_quantum():
     assert g0 == pytest.approx(7.748091729864e-5, rel=1e-12)  # exact 2019 SI e and h; 13 digits -> 1e-12
     case = random_device(7)
     result = transmission(case.model, in_band_energies(np.random.default_rng(7), 6))
-    np.testing.assert_allclose(result.conductance_siemens, result.transmission * g0, rtol=1e-15, atol=0)
+    np.testing.assert_allclose(result.conductance_S, result.transmission * g0, rtol=1e-15, atol=0)
     np.testing.assert_array_equal(result.conductance_g0, result.transmission)
 
 
