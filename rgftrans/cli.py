@@ -603,8 +603,9 @@ def _cmd_waveguide(args) -> int:
         if not run.dark_modes:
             say("  no BIC in this plane (no cell where both port couplings vanish together); widen the ranges")
         else:
-            fig, _ = plot_bic_plane(s, units=units,
-                                    state_text=lambda lam: f"f = {float(pm.frequency_GHz(max(lam, 0.0))):.6g} GHz")
+            fig, _ = plot_bic_plane(
+                s, units=units,
+                state_text=lambda k0a_squared: f"f = {float(pm.frequency_GHz(max(k0a_squared, 0.0))):.6g} GHz")
             fig.savefig(f"{prefix}_plane.png", dpi=150, bbox_inches="tight")
             mode = run.dark_modes[0]
             fig, _ = plot_waveguide_field(mode.model, mode.mode_field, label="|E_z| / its maximum (1)",

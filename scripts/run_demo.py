@@ -99,7 +99,7 @@ def asymmetric_dot(out: Path) -> None:
               "energy_meV, transmission, conductance_2e2_over_h, conductance_S, open_channels_source, "
               "open_channels_drain")
     table = np.column_stack([result.energies, result.transmission, result.conductance_g0,
-                             result.conductance_siemens, result.n_open])
+                             result.conductance_S, result.n_open])
     np.savetxt(f"{stem}_transmission.csv", table, delimiter=",", header=header,
                fmt=["%.6f", "%.10f", "%.10f", "%.6e", "%d", "%d"])
     fig, ax = plot_device(model, device=device)

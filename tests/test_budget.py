@@ -46,8 +46,8 @@ def test_honeycomb_density_counts_both_sublattices():
 
 def test_disk_area_enters_not_its_bounding_box():
     region, lattice = disk((50, 50), 40), square(2.0)
-    tags = lattice.tags_in_box(*region.bounds)
-    n_sites = int(region.contains(lattice.positions(tags)).sum())  # the lattice fill discretise does
+    cells = lattice.cells_in_box(*region.bounds)
+    n_sites = int(region.contains(lattice.positions(cells)).sum())  # the lattice fill discretise does
     assert device_size(region, lattice, ["left"], 1).sites == pytest.approx(n_sites, rel=0.1)
 
 

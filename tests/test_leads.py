@@ -217,7 +217,7 @@ def test_open_channel_count_of_strip(width):
         modes = lead_modes(h_cell, h_hop, energy)
         assert modes.n_open == expected, f"W = {width}, E = {energy}"
         assert np.count_nonzero(modes.propagating_out) == expected
-        assert len(modes.lam_in) == expected
+        assert len(modes.bloch_in) == expected
         assert not modes.at_threshold
 
 
@@ -237,9 +237,9 @@ def test_velocities_of_strip_channels(width):
         np.testing.assert_allclose(np.sort(v_out), speeds, rtol=1e-9)
         np.testing.assert_allclose(np.sort(-modes.velocity_in), speeds, rtol=1e-9)
         # Propagating Bloch factors on the unit circle, evanescent ones strictly inside.
-        assert np.allclose(np.abs(modes.lam_out[modes.propagating_out]), 1.0, atol=1e-12)
-        assert np.all(np.abs(modes.lam_out[~modes.propagating_out]) < 1.0)
-        np.testing.assert_allclose(np.abs(modes.lam_in), 1.0, atol=1e-12)
+        assert np.allclose(np.abs(modes.bloch_out[modes.propagating_out]), 1.0, atol=1e-12)
+        assert np.all(np.abs(modes.bloch_out[~modes.propagating_out]) < 1.0)
+        np.testing.assert_allclose(np.abs(modes.bloch_in), 1.0, atol=1e-12)
 
 
 # --- retarded, self-consistent surface Green's functions ---------------------------------------

@@ -84,7 +84,7 @@ def test_multiterminal_sum_rules(seed, n_leads):
     # Reflection independently from the flux-normalised Fisher-Lee S matrix (sparse LU).
     smat = scattering_matrix(model, energy)
     for p in range(n_leads):
-        assert t[p, p] == pytest.approx(smat.transmission(p, p), abs=1e-9)
+        assert t[p, p] == pytest.approx(smat.transmission(source=p, drain=p), abs=1e-9)
 
 
 @pytest.mark.parametrize("seed,n_leads", CASES[::2])

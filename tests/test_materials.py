@@ -39,7 +39,7 @@ from rgftrans.system.materials import (
     CONDUCTANCE_QUANTUM_S,
     MATERIALS,
     Material,
-    conductance_siemens,
+    conductance_S,
     fermi_energy_meV,
     fermi_wavelength_nm,
     hopping_meV,
@@ -118,9 +118,9 @@ def test_resistance_quantum():
 def test_conductance_siemens_of_scalar_and_array():
     # G = (2e^2/h) T (Landauer, IBM J. Res. Dev. 1, 223 (1957), from memory) with 2e^2/h exact in the
     # 2019 SI = 7.748091729864e-5 S per unit transmission; REL_EXACT.
-    assert conductance_siemens(3.0) == pytest.approx(3 * 7.748091729864e-5, rel=REL_EXACT)
+    assert conductance_S(3.0) == pytest.approx(3 * 7.748091729864e-5, rel=REL_EXACT)
     transmission = np.array([0.0, 0.5, 2.0])
-    conductance = conductance_siemens(transmission)
+    conductance = conductance_S(transmission)
     assert conductance.shape == transmission.shape
     np.testing.assert_allclose(conductance, transmission * 7.748091729864e-5, rtol=REL_EXACT)
 

@@ -29,11 +29,11 @@ def quiet(fn, *args):
 
 
 def test_frequency_conversion_uses_codata_c():
-    # lambda = (k0 a)^2 with k0 = 2 pi f / c (definition; c exact in the SI); 1e-15 / 1e-14: rounding only.
+    # k0a_squared = (k0 a)^2 with k0 = 2 pi f / c (definition; c exact in the SI); 1e-15 / 1e-14: rounding only.
     pm = straight(0.5)
     f = 12.5
-    assert pm.lam(f) == pytest.approx((2 * np.pi * f * 1e9 * 0.5e-3 / const.c) ** 2, rel=1e-15)
-    assert pm.frequency_GHz(pm.lam(f)) == pytest.approx(f, rel=1e-14)
+    assert pm.k0a_squared(f) == pytest.approx((2 * np.pi * f * 1e9 * 0.5e-3 / const.c) ** 2, rel=1e-15)
+    assert pm.frequency_GHz(pm.k0a_squared(f)) == pytest.approx(f, rel=1e-14)
 
 
 @pytest.mark.parametrize("eps", [1.0, 2.25])
@@ -80,15 +80,15 @@ def test_flux_conservation_without_losses():
 def test_rgf_matches_sparse_direct_solve_with_losses():
     pm = cavity(loss_tangent=0.02)
     for f in (22.0, 28.0):
-        lam = pm.lam(f)
+        k0a_squared = pm.k0a_squared(f)
         s = quiet(waveguide_spectrum, pm, [f])
-        direct = transmission_direct(pm.model_at(lam), [lam])[0, 1, 0]
+        direct = transmission_direct(pm.model_at(k0a_squared), [k0a_squared])[0, 1, 0]
         # Two independent solvers of the same lossy model: round-off, 1e-9 relative.
         assert s.transmission[0, 1, 0] == pytest.approx(direct, rel=1e-9)
 
 
 def test_absorbed_power_equals_one_minus_t_minus_r():
-    """With eps = eps' (1 + i tan d) the power lost in the dielectric, 2 lambda sum tan(d) |phi|^2 for unit incident
+    """With eps = eps' (1 + i tan d) the power lost in the dielectric, 2 k0a_squared sum tan(d) |phi|^2 for unit incident
     flux (Poynting's theorem on the grid, our derivation), equals 1 - T - R from the scattering matrix, to 1e-10."""
     pm = cavity(loss_tangent=0.02)
     freqs = np.array([22.0, 25.0, 28.0])
@@ -196,9 +196,9 @@ def test_command_line_cavity_spectrum_field_and_bic(tmp_path, capsys):
         for b in bics:
             eps, shift = b["parameter"][()]
             model = cfg.build({"dielectric.puck.permittivity": eps, "dielectric.puck.shift_x": shift}).discretise()
-            assert b["frequency"].attrs["units"] == "GHz" and b["lam"].attrs["units"] == "1"
-            assert float(model.frequency_GHz(b["lam"][()])) == pytest.approx(float(b["frequency"][()]), rel=1e-12)
-            pole = resonances(model.model, float(b["lam"][()]), count=1)[0]  # the engine works in lambda
+            assert b["frequency"].attrs["units"] == "GHz" and b["k0a_squared"].attrs["units"] == "1"
+            assert float(model.frequency_GHz(b["k0a_squared"][()])) == pytest.approx(float(b["frequency"][()]), rel=1e-12)
+            pole = resonances(model.model, float(b["k0a_squared"][()]), count=1)[0]  # the engine works in (k0 a)^2
             assert abs(pole.width_meV) < 1e-12 * pole.energy_meV and pole.n_open == (1, 1)
         units = {k: f["waveguide/darkstates"][k].attrs["units"] for k in ("p1", "p2", "frequency", "seed_frequency")}
         assert units == {"p1": "1", "p2": "mm", "frequency": "GHz", "seed_frequency": "GHz"}

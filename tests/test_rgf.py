@@ -136,10 +136,10 @@ def test_unitarity_t_plus_r_equals_channels(device, energy):
     n_left = transmission(model, [energy]).n_open[0, 0]
     smat = scattering_matrix(model, energy)
     t_direct = transmission_direct(model, [energy])[0, 1, 0]
-    reflection = smat.transmission(0, 0)
+    reflection = smat.transmission(source=0, drain=0)
     assert abs(t_direct + reflection - n_left) <= TOL_INVARIANT * max(n_left, 1)
     # The S-matrix transmission block agrees with Caroli's trace formula.
-    assert abs(smat.transmission(1, 0) - t_direct) <= TOL_INVARIANT * max(t_direct, 1)
+    assert abs(smat.transmission(source=0, drain=1) - t_direct) <= TOL_INVARIANT * max(t_direct, 1)
     # And the S matrix is unitary as a whole.
     if smat.s.size:
         np.testing.assert_allclose(smat.s.conj().T @ smat.s, np.eye(len(smat.s)), atol=TOL_INVARIANT)
@@ -268,7 +268,7 @@ def test_conductance_in_siemens_uses_codata_quantum():
     assert g0 == pytest.approx(7.748091729864e-5, rel=1e-12)  # exact 2019 SI e and h; 13 digits -> 1e-12
     case = random_device(7)
     result = transmission(case.model, in_band_energies(np.random.default_rng(7), 6))
-    np.testing.assert_allclose(result.conductance_siemens, result.transmission * g0, rtol=1e-15, atol=0)
+    np.testing.assert_allclose(result.conductance_S, result.transmission * g0, rtol=1e-15, atol=0)
     np.testing.assert_array_equal(result.conductance_g0, result.transmission)
 
 

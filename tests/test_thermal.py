@@ -149,7 +149,7 @@ def test_conductance_vectorised_over_mu(no_warnings):
     singles = [float(thermal_conductance(GRID, TRANS, m, T_K).conductance_g0) for m in mu.ravel()]
     np.testing.assert_array_equal(result.conductance_g0.ravel(), singles)  # same arithmetic, exact
     # siemens: G0 = 2e²/h from materials (definition, exact multiplication)
-    np.testing.assert_array_equal(result.conductance_siemens, result.conductance_g0 * G0)
+    np.testing.assert_array_equal(result.conductance_S, result.conductance_g0 * G0)
     assert result.kT_meV == pytest.approx(KT, rel=1e-15)
 
 
@@ -175,7 +175,7 @@ def second_derivative_bound():
 def test_current_linear_response_symmetric(bias_V, no_warnings):
     mu = 0.05
     i = float(landauer_current(GRID, TRANS, mu, bias_V, T_K).current_A)
-    g = float(thermal_conductance(GRID, TRANS, mu, T_K).conductance_siemens)
+    g = float(thermal_conductance(GRID, TRANS, mu, T_K).conductance_S)
     # Landauer: I = (G0/e) ∫_{mu-eV/2}^{mu+eV/2} G(m) dm = G0 V [G(mu) + (eV)²/24 G''(ξ)] (midpoint rule
     # remainder), so the linear-response error is bounded by (eV)²/24 max|G''|, plus rounding.
     ev = bias_V * 1e3
@@ -186,7 +186,7 @@ def test_current_linear_response_symmetric(bias_V, no_warnings):
 def test_current_linear_response_source(bias_V, no_warnings):
     mu = 0.05
     i = float(landauer_current(GRID, TRANS, mu, bias_V, T_K, drop="source").current_A)
-    g = float(thermal_conductance(GRID, TRANS, mu, T_K).conductance_siemens)
+    g = float(thermal_conductance(GRID, TRANS, mu, T_K).conductance_S)
     # Landauer, one-sided: I/V = G0 [G(mu) + (eV/2) G'(ξ)], |G'| <= max|T| ∫|w'| = max|T|/(2kT).
     ev = bias_V * 1e3
     assert abs(i / bias_V - g) <= G0 * ev / 2 * np.max(TRANS) / (2 * KT) + 1e-12 * abs(g)
@@ -217,7 +217,7 @@ def test_current_constant_transmission_ohmic(drop, temperature_K, no_warnings):
     result = landauer_current(e, np.full(e.size, 0.6), 0.2, bias, temperature_K, drop=drop)
     # Landauer with energy-independent T: I = (2e²/h) T V exactly (common practice); rounding only.
     np.testing.assert_allclose(result.current_A, G0 * 0.6 * bias, rtol=1e-13)
-    np.testing.assert_allclose(result.conductance_siemens, G0 * 0.6, rtol=1e-13)
+    np.testing.assert_allclose(result.conductance_S, G0 * 0.6, rtol=1e-13)
 
 
 @pytest.mark.parametrize("drop", ["symmetric", "source"])

@@ -127,8 +127,8 @@ def _real_part(model: TightBindingModel, energy: float):
             full[lead.interface] = vecs[:, k]
             chans.append(full)
             names.append((lead.name, k))
-    lam = sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
-    h_real = (model.hamiltonian.real + lam).tocsr()
+    sigma_hermitian = sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
+    h_real = (model.hamiltonian.real + sigma_hermitian).tocsr()
     w_mat = np.array(chans).T if chans else np.zeros((n, 0))
     return h_real, w_mat, tuple(names), tuple(int(m.n_open) for m in modes), np.array(gammas)
 
@@ -153,13 +153,13 @@ def coupling_residuals(model: TightBindingModel, energy_guess: float, *, referen
             k = int(np.argmax(np.abs(ref @ v)))
         else:
             k = 0
-        lam, psi = float(w[k]), v[:, k].real
+        level, psi = float(w[k]), v[:, k].real
         if ref is None:
             ref = psi  # later iterations follow this state, not merely the nearest eigenvalue
-        gap = lam - energy
+        gap = level - energy
         if abs(gap) < ENERGY_TOL * scale:
             break  # w_mat, names, n_open belong to an energy within ENERGY_TOL of the final one
-        # Secant on lambda(E) - E = 0 (plain iteration E <- lambda(E) stalls where Lambda(E) is steep, near a
+        # Secant on level(E) - E = 0 (plain iteration E <- level(E) stalls where Lambda(E) is steep, near a
         # threshold); the first step is a plain iteration.
         step = gap
         if prev is not None and gap != prev[1]:
@@ -169,7 +169,7 @@ def coupling_residuals(model: TightBindingModel, energy_guess: float, *, referen
     else:
         raise RgftransError(f"the state near {energy_guess:.6g} meV did not settle to a self-consistent energy in "
                             f"{max_iter} iterations; start nearer to it")
-    energy = lam
+    energy = level
     overlap = 1.0
     if reference is not None and len(reference) == len(psi):
         dot = float(np.asarray(reference, float) @ psi)

@@ -1,6 +1,6 @@
 """Light in metal-walled waveguides: spectra, field maps and resonances, in GHz.
 
-The waveguide is gridded into a tight-binding model in ``lambda = (k0 a)^2`` by
+The waveguide is gridded into a tight-binding model in ``k0a_squared = (k0 a)^2`` by
 :class:`rgftrans.system.photonic.PhotonicModel`; here the transport engine runs
 on it and its results are converted back to the waveguide's own quantities:
 frequencies and widths in GHz, Q factors, fields normalised to the incident
@@ -63,7 +63,7 @@ class FieldMap:
     enhancement : float
         ``max |E_z|`` over the dielectric pieces (or the whole enclosure without any) over the incident peak.
     absorbed : float
-        Fraction of the incident power absorbed (``2 lambda sum tan(delta) |phi|^2``).
+        Fraction of the incident power absorbed (``2 k0a_squared sum tan(delta) |phi|^2``).
     """
 
     frequency_GHz: float
@@ -82,7 +82,7 @@ class PhotonicResonance:
     width_GHz: float
     q_factor: float
     n_open: tuple
-    lam: complex
+    k0a_squared: complex
 
 
 @dataclass(frozen=True)
@@ -117,7 +117,7 @@ class DarkMode:
         Their parameter paths (``dielectric.<name>.permittivity`` / ``shift_x`` / ``shift_y``).
     frequency_GHz : float
         Frequency of the dark mode.
-    lam : float
+    k0a_squared : float
         The same as ``(k0 a)^2`` (dimensionless), the engine's energy variable.
     width_GHz : float
         Width of the pole found there (zero to round-off at a BIC).
@@ -138,7 +138,7 @@ class DarkMode:
     parameter: np.ndarray
     names: tuple
     frequency_GHz: float
-    lam: float
+    k0a_squared: float
     width_GHz: float
     orders_of_magnitude: float
     exponent: float
@@ -157,13 +157,13 @@ def waveguide_spectrum(pm: PhotonicModel, frequencies_GHz) -> Spectrum:
     if not np.all(np.isfinite(freqs)) or np.any(freqs <= 0):
         raise RgftransError("frequencies must be positive finite numbers in GHz")
     pm.check_resolution(freqs)
-    lams = pm.lam(freqs)
+    values = pm.k0a_squared(freqs)
     if pm.is_lossy:
-        parts = [transmission_matrix(pm.model_at(lam), [lam]) for lam in lams]
+        parts = [transmission_matrix(pm.model_at(k), [k]) for k in values]
         tmat = np.concatenate([p.matrix for p in parts])
         n_open = np.concatenate([p.n_open for p in parts])
     else:
-        res = transmission_matrix(pm.model, lams)
+        res = transmission_matrix(pm.model, values)
         tmat, n_open = res.matrix, res.n_open
     absorption = n_open - tmat.sum(axis=1)
     names = tuple(lead.name for lead in pm.model.leads)
@@ -174,21 +174,21 @@ def waveguide_spectrum(pm: PhotonicModel, frequencies_GHz) -> Spectrum:
 def waveguide_field(pm: PhotonicModel, frequency_GHz: float, port: int | str = 0, mode: int = 0) -> FieldMap:
     """``E_z`` of the scattering state of one incident mode, normalised to the incident wave's peak."""
     q = pm.port_index(port)
-    lam = float(pm.lam(frequency_GHz))
-    model = pm.model_at(lam)
-    states = scattering_states(model, lam, q)
+    k0a_squared = float(pm.k0a_squared(frequency_GHz))
+    model = pm.model_at(k0a_squared)
+    states = scattering_states(model, k0a_squared, q)
     if mode >= states.wavefunctions.shape[1]:
         raise RgftransError(f"port {q} has {states.wavefunctions.shape[1]} open mode(s) at {frequency_GHz:g} "
                             f"GHz; mode {mode} is not one of them")
     phi = states.wavefunctions[:, mode]
-    _, modes = lead_self_energies(model, lam, warn=False)
+    _, modes = lead_self_energies(model, k0a_squared, warn=False)
     m = modes[q]
     incident = np.abs(m.phi_in[:, mode]).max() / np.sqrt(abs(m.velocity_in[mode]))
     incident /= np.sqrt(pm.port_permittivity[q])  # phi = sqrt(eps) E in the port
     e_z = phi / np.sqrt(pm.permittivity.real) / incident
     inside = pm.permittivity.real > pm.permittivity.real.min() + 1e-12
     region = inside if inside.any() else np.ones(len(e_z), bool)
-    absorbed = float(2 * lam * np.sum(pm.loss_tangent * np.abs(phi) ** 2))
+    absorbed = float(2 * k0a_squared * np.sum(pm.loss_tangent * np.abs(phi) ** 2))
     return FieldMap(frequency_GHz=float(frequency_GHz), port=q, mode=mode, field=e_z,
                     enhancement=float(np.abs(e_z[region]).max()), absorbed=absorbed)
 
@@ -199,10 +199,10 @@ def waveguide_resonances(pm: PhotonicModel, target_GHz: float, count: int = 3) -
         raise RgftransError("resonances are computed for lossless dielectrics (set loss_tangent = 0); with "
                             "losses the Q of a mode is limited by absorption as well")
     out = []
-    for r in resonances(pm.model, float(pm.lam(target_GHz)), count=count):
+    for r in resonances(pm.model, float(pm.k0a_squared(target_GHz)), count=count):
         z = complex(r.energy_meV, -0.5 * r.width_meV)
         f = complex(pm.frequency_GHz(z))
         width = -2 * f.imag
         out.append(PhotonicResonance(frequency_GHz=f.real, width_GHz=width,
-                                     q_factor=f.real / width if width > 0 else np.inf, n_open=r.n_open, lam=z))
+                                     q_factor=f.real / width if width > 0 else np.inf, n_open=r.n_open, k0a_squared=z))
     return out

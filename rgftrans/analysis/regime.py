@@ -234,7 +234,7 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     model = device.discretise() if model is None else model
     material = device.material_data
     lattice = device.lattice
-    site_area = abs(float(np.linalg.det(lattice.prim_vecs))) / len(lattice.basis)
+    site_area = abs(float(np.linalg.det(lattice.vectors))) / len(lattice.basis)
     if area_nm2 is None:
         area, source = dot_area_nm2(model, site_area_nm2=site_area, fermi_energy_meV=fermi_energy_meV)
     else:

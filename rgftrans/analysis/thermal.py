@@ -417,7 +417,7 @@ class ThermalConductanceResult:
         return BOLTZMANN_MEV_PER_K * self.temperature_K
 
     @property
-    def conductance_siemens(self) -> np.ndarray:
+    def conductance_S(self) -> np.ndarray:
         """G in siemens (2e²/h from scipy.constants)."""
         return self.conductance_g0 * CONDUCTANCE_QUANTUM_S
 
@@ -635,7 +635,7 @@ class CurrentResult:
     current_A: np.ndarray
 
     @property
-    def conductance_siemens(self) -> np.ndarray:
+    def conductance_S(self) -> np.ndarray:
         """Chord conductance I/V in siemens (NaN at zero bias)."""
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(self.bias_V != 0.0, self.current_A / self.bias_V, np.nan)

@@ -29,6 +29,7 @@ _EXPORTS = {
     "load_config": "config",
     "parse_config": "config",
     "validate_config": "config",
+    "stored_model": "searches",
     "SweepSearch": "searches",
     "search_sweep": "searches",
     "write_search": "searches",

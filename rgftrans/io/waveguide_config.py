@@ -251,7 +251,7 @@ class WaveguideRun:
     field_map : FieldMap or None
         ``E_z`` at that pole's frequency, sent in from the first port.
     search : GridSearch or None
-        The plane search (its energies are lambda = (k0 a)^2, dimensionless; use ``dark_modes`` for frequencies).
+        The plane search (its energies are k0a_squared = (k0 a)^2, dimensionless; use ``dark_modes`` for frequencies).
     seeds : int
         Cavity modes followed over the plane.
     dark_modes : list of DarkMode
@@ -318,20 +318,20 @@ def _search(cfg, pm, freqs, progress=True):
         return cfg.build({n1: a, n2: b}).discretise().model
 
     centre = cfg.build({n1: v1[len(v1) // 2], n2: v2[len(v2) // 2]}).discretise()
-    seeds = plane_seeds(centre.model, float(pm.lam(freqs[0])), float(pm.lam(freqs[-1])))
+    seeds = plane_seeds(centre.model, float(pm.k0a_squared(freqs[0])), float(pm.k0a_squared(freqs[-1])))
     return search_grid(build, v1, v2, seeds, names=(n1, n2), progress=progress), len(seeds)
 
 
 def _dark_mode(cfg, pm, search, bic) -> DarkMode:
     """A BIC of the plane search in the waveguide's own units (GHz; Q of the frequency)."""
-    lam = float(bic.energy_meV)  # the engine's energy variable is lambda = (k0 a)^2 here
+    k0a_squared = float(bic.energy_meV)  # the engine's energy variable is (k0 a)^2 here
     pmb = cfg.build(dict(zip(search.names, bic.parameter))).discretise()
     e_z = np.abs(bic.state / np.sqrt(pmb.permittivity.real))
     return DarkMode(parameter=np.asarray(bic.parameter, float), names=tuple(search.names),
-                    frequency_GHz=float(pm.frequency_GHz(lam)), lam=lam,
-                    width_GHz=float(pm.width_GHz(lam, bic.width_meV)),
+                    frequency_GHz=float(pm.frequency_GHz(k0a_squared)), k0a_squared=k0a_squared,
+                    width_GHz=float(pm.width_GHz(k0a_squared, bic.width_meV)),
                     orders_of_magnitude=float(bic.orders_of_magnitude), exponent=float(bic.exponent),
-                    nearby_q=2 * np.asarray(bic.nearby_q, float),  # Q in f = 2 Q in lambda (f ~ sqrt(lambda))
+                    nearby_q=2 * np.asarray(bic.nearby_q, float),  # Q in f = 2 Q in (k0 a)^2 (f ~ k0 a)
                     kind=bic.kind, explanation=bic.explanation, mode_field=e_z / e_z.max(), model=pmb)
 
 
@@ -349,7 +349,7 @@ def write_waveguide(run: WaveguideRun, path, *, overwrite: bool = False) -> None
     ``transmission``, ``n_open``, ``absorption`` and ``cutoffs/<port>`` (GHz); with a search,
     ``/waveguide/darkstates`` with ``p1``, ``p2`` (their units), ``seed_frequency`` and ``frequency`` (GHz) of the
     followed modes, the coupling ``residuals``, and per BIC ``bic_<k>/``: ``parameter``, ``frequency`` (GHz),
-    ``lam`` ((k0 a)^2), ``width`` (GHz), ``nearby_q``, ``orders_of_magnitude``, ``exponent``, ``state``.
+    ``k0a_squared`` ((k0 a)^2), ``width`` (GHz), ``nearby_q``, ``orders_of_magnitude``, ``exponent``, ``state``.
     """
     from rgftrans.io.store import StoredArray, StoredGroup, write_file
 
@@ -384,7 +384,7 @@ def write_waveguide(run: WaveguideRun, path, *, overwrite: bool = False) -> None
                 {key: StoredArray(np.asarray(val, float), units, long) for key, val, units, long in (
                     ("parameter", mode.parameter, "", f"({s.names[0]}, {s.names[1]}) at the BIC"),
                     ("frequency", mode.frequency_GHz, "GHz", "frequency of the dark mode"),
-                    ("lam", mode.lam, "1", "(k0 a)^2 of the dark mode"),
+                    ("k0a_squared", mode.k0a_squared, "1", "(k0 a)^2 of the dark mode"),
                     ("width", mode.width_GHz, "GHz", "width of the pole at the BIC"),
                     ("orders_of_magnitude", mode.orders_of_magnitude, "1",
                      "log10(width one grid step away / width at the BIC)"),

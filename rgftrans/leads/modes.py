@@ -9,11 +9,11 @@ Two independent routes give the retarded surface Green's function ``g_surface``
 of cell 0 (the lead on its own):
 
 * :func:`lead_modes` / :func:`surface_green_modes` -- the mode method.  Bloch
-  solutions ``psi_j = lam**j phi`` solve the quadratic eigenproblem
-  ``h_hop^dag phi + (h_cell - E) lam phi + h_hop lam^2 phi = 0``, linearised
+  solutions ``psi_j = bloch**j phi`` solve the quadratic eigenproblem
+  ``h_hop^dag phi + (h_cell - E) bloch phi + h_hop bloch^2 phi = 0``, linearised
   as a generalised eigenproblem so that a singular ``h_hop`` (zero and
-  infinite ``lam``) is handled.  The outgoing solutions (``|lam| < 1``, or
-  ``|lam| = 1`` with positive velocity) give the transfer matrix
+  infinite ``bloch``) is handled.  The outgoing solutions (``|bloch| < 1``, or
+  ``|bloch| = 1`` with positive velocity) give the transfer matrix
   ``F = Phi Lam Phi^-1`` and ``g_surface = (E - h_cell - h_hop F)^-1``.
   This is the default: it is exact at real energies and it also classifies the
   open channels (count, velocities, wave functions) that the Fisher-Lee
@@ -52,7 +52,7 @@ __all__ = [
     "outgoing_amplitudes",
 ]
 
-#: A Bloch factor with ``| |lam| - 1 | <`` this counts as propagating (at real energy).
+#: A Bloch factor with ``| |bloch| - 1 | <`` this counts as propagating (at real energy).
 #: The eigen-solver resolves a double root near a band edge only to about
 #: sqrt(machine epsilon) ~ 1e-8, so the window must be wider than that.
 PROPAGATING_TOL = 1e-6
@@ -81,7 +81,7 @@ class LeadModes:
     energy : complex
         Energy used (meV); it has an imaginary part if the requested energy sat
         on a channel threshold.
-    lam_out, phi_out : (m,) complex, (m_cell, m) complex
+    bloch_out, phi_out : (m,) complex, (m_cell, m) complex
         Bloch factors and cell wave functions of the ``m`` outgoing solutions
         (propagating away from the device, or decaying away from it).
     velocity_out : (m,) float
@@ -89,7 +89,7 @@ class LeadModes:
         solution; zero for evanescent ones.
     propagating_out : (m,) bool
         Which outgoing solutions are open channels.
-    lam_in, phi_in, velocity_in : arrays
+    bloch_in, phi_in, velocity_in : arrays
         The incoming open channels (propagating towards the device); the
         velocity is negative.  Same count as open outgoing channels.
     g_surface : (m_cell, m_cell) complex
@@ -102,11 +102,11 @@ class LeadModes:
     """
 
     energy: complex
-    lam_out: np.ndarray
+    bloch_out: np.ndarray
     phi_out: np.ndarray
     velocity_out: np.ndarray
     propagating_out: np.ndarray
-    lam_in: np.ndarray
+    bloch_in: np.ndarray
     phi_in: np.ndarray
     velocity_in: np.ndarray
     g_surface: np.ndarray
@@ -137,7 +137,7 @@ def _digest(*arrays: np.ndarray) -> bytes:
 
 
 def _nbytes(modes: LeadModes) -> int:
-    return sum(getattr(modes, f).nbytes for f in ("phi_out", "phi_in", "g_surface", "lam_out", "lam_in"))
+    return sum(getattr(modes, f).nbytes for f in ("phi_out", "phi_in", "g_surface", "bloch_out", "bloch_in"))
 
 
 def clear_lead_cache() -> None:
@@ -275,9 +275,9 @@ def _modes_separable(h_cell, tau: complex, energy: complex, scale: float):
 
     In the eigenbasis ``h_cell U = U diag(eps)`` every transverse channel is a
     chain with onsite ``eps_n`` and hopping ``tau``: its Bloch factors solve
-    ``tau^* + (eps_n - E) lam + tau lam^2 = 0``, its velocity is
-    ``-2 Im(lam tau)``, and ``g_surface = U diag(1 / (E - eps_n - tau lam_n)) U^dag``
-    with ``lam_n`` the outgoing root (Datta 1995, ch. 3, from memory, for the
+    ``tau^* + (eps_n - E) bloch + tau bloch^2 = 0``, its velocity is
+    ``-2 Im(bloch tau)``, and ``g_surface = U diag(1 / (E - eps_n - tau bloch_n)) U^dag``
+    with ``bloch_n`` the outgoing root (Datta 1995, ch. 3, from memory, for the
     strip; the closed form of reference-checks §1 channel by channel).
     """
     key = _digest(h_cell)
@@ -290,36 +290,36 @@ def _modes_separable(h_cell, tau: complex, energy: complex, scale: float):
     eps, u = hit
     z = energy - eps
     root = np.sqrt(z * z - 4 * abs(tau) ** 2 + 0j)
-    lam_a = (z + root) / (2 * tau)
-    lam_b = (z - root) / (2 * tau)
+    bloch_a = (z + root) / (2 * tau)
+    bloch_b = (z - root) / (2 * tau)
     real_energy = energy.imag == 0.0
     if real_energy:
         inside = np.abs(z.real) < 2 * abs(tau)
-        vel_a = -2 * np.imag(lam_a * tau)
+        vel_a = -2 * np.imag(bloch_a * tau)
         if np.any(inside & (np.abs(vel_a) < THRESHOLD_VELOCITY * scale)) or np.any(
                 np.abs(np.abs(z.real) - 2 * abs(tau)) < 1e-14 * scale):
             raise _OnThreshold(int(np.count_nonzero(inside & (np.abs(vel_a) >= THRESHOLD_VELOCITY * scale))))
         # Inside the band the roots are conj pairs on the unit circle; pick the positive velocity.
-        out_is_a = np.where(inside, vel_a > 0, np.abs(lam_a) < 1)
+        out_is_a = np.where(inside, vel_a > 0, np.abs(bloch_a) < 1)
     else:
         inside = np.zeros(len(eps), dtype=bool)
-        out_is_a = np.abs(lam_a) < np.abs(lam_b)
-    lam_out = np.where(out_is_a, lam_a, lam_b)
-    lam_in = np.where(out_is_a, lam_b, lam_a)
+        out_is_a = np.abs(bloch_a) < np.abs(bloch_b)
+    bloch_out = np.where(out_is_a, bloch_a, bloch_b)
+    bloch_in = np.where(out_is_a, bloch_b, bloch_a)
     if real_energy:
-        lam_out[inside] /= np.abs(lam_out[inside])
-        lam_in[inside] /= np.abs(lam_in[inside])
-    vel_out = np.where(inside, -2 * np.imag(lam_out * tau), 0.0)
-    g_surface = (u / (energy - eps - tau * lam_out)) @ u.conj().T
+        bloch_out[inside] /= np.abs(bloch_out[inside])
+        bloch_in[inside] /= np.abs(bloch_in[inside])
+    vel_out = np.where(inside, -2 * np.imag(bloch_out * tau), 0.0)
+    g_surface = (u / (energy - eps - tau * bloch_out)) @ u.conj().T
     return LeadModes(
         energy=energy,
-        lam_out=lam_out,
+        bloch_out=bloch_out,
         phi_out=u,
         velocity_out=vel_out,
         propagating_out=inside.copy(),
-        lam_in=lam_in[inside],
+        bloch_in=bloch_in[inside],
         phi_in=u[:, inside],
-        velocity_in=-2 * np.imag(lam_in[inside] * tau),
+        velocity_in=-2 * np.imag(bloch_in[inside] * tau),
         g_surface=g_surface,
         n_open=int(np.count_nonzero(inside)),
         at_threshold=False,
@@ -331,42 +331,42 @@ def _modes_generalised(h_cell, h_hop, energy, scale):
     m = h_cell.shape[0]
     eye = np.eye(m)
     zero = np.zeros((m, m))
-    # Linearisation with x = [phi; lam phi]:  A x = lam B x.
+    # Linearisation with x = [phi; bloch phi]:  A x = bloch B x.
     a_mat = np.block([[zero, eye], [-h_hop.conj().T, energy * eye - h_cell]])
     b_mat = np.block([[eye, zero], [zero, h_hop]])
     (alpha, beta), vecs = sla.eig(a_mat, b_mat, homogeneous_eigvals=True)
     finite = np.abs(beta) > _INFINITE_TOL * np.abs(alpha)
-    lam = np.full(alpha.shape, np.inf, dtype=complex)
-    lam[finite] = alpha[finite] / beta[finite]
+    bloch = np.full(alpha.shape, np.inf, dtype=complex)
+    bloch[finite] = alpha[finite] / beta[finite]
     phi = vecs[:m]
-    # Normalise the cell part; for infinite lam the lower block carries the vector.
+    # Normalise the cell part; for infinite bloch the lower block carries the vector.
     norms = np.linalg.norm(phi, axis=0)
     norms[norms == 0] = 1.0
     phi = phi / norms
 
     real_energy = abs(energy.imag) == 0.0
-    absl = np.abs(lam)
+    absl = np.abs(bloch)
     if real_energy:
         prop = finite & (np.abs(absl - 1.0) < PROPAGATING_TOL)
     else:
-        prop = np.zeros(lam.shape, dtype=bool)
+        prop = np.zeros(bloch.shape, dtype=bool)
     decaying = finite & ~prop & (absl < 1.0)
 
     out_idx = list(np.flatnonzero(decaying))
     in_idx: list[int] = []
     velocities = {}
     on_threshold = False
-    lam = lam.copy()
+    bloch = bloch.copy()
     if np.any(prop):
         idx = np.flatnonzero(prop)
-        lam[idx] = lam[idx] / absl[idx]  # put them exactly on the unit circle
-        for group in _degenerate_groups(lam[idx]):
+        bloch[idx] = bloch[idx] / absl[idx]  # put them exactly on the unit circle
+        for group in _degenerate_groups(bloch[idx]):
             members = idx[group]
             if len(members) > 1 and np.linalg.svd(phi[:, members], compute_uv=False)[-1] < _DEFECTIVE_TOL:
                 # Two Bloch solutions merging into one (a Jordan block): a band edge.
                 on_threshold = True
                 continue
-            new_phi, vel = _velocity_basis(phi[:, members], lam[members[0]], h_hop)
+            new_phi, vel = _velocity_basis(phi[:, members], bloch[members[0]], h_hop)
             if np.any(np.abs(vel) < THRESHOLD_VELOCITY * scale):
                 on_threshold = True
             phi[:, members] = new_phi
@@ -377,7 +377,7 @@ def _modes_generalised(h_cell, h_hop, energy, scale):
         raise _OnThreshold(sum(1 for v in velocities.values() if v > THRESHOLD_VELOCITY * scale))
     out_idx = np.array(out_idx, dtype=int)
     in_idx = np.array(in_idx, dtype=int)
-    lam_out = lam[out_idx]
+    bloch_out = bloch[out_idx]
     phi_out = phi[:, out_idx]
     vel_out = np.array([velocities.get(k, 0.0) for k in out_idx])
     prop_out = np.array([k in velocities for k in out_idx], dtype=bool)
@@ -385,17 +385,17 @@ def _modes_generalised(h_cell, h_hop, energy, scale):
     # g_s = (E - h_cell - h_hop F)^-1 with F = Phi Lam Phi^-1 (outgoing transfer matrix).
     # Phi may be rectangular if h_hop is singular and modes are missing; lstsq copes.
     if phi_out.shape[1] == m:
-        h_f = h_hop @ np.linalg.solve(phi_out.T, (phi_out * lam_out).T).T
+        h_f = h_hop @ np.linalg.solve(phi_out.T, (phi_out * bloch_out).T).T
     else:  # pragma: no cover - defensive; a well-posed lead has m outgoing solutions
-        h_f = h_hop @ (phi_out * lam_out) @ np.linalg.pinv(phi_out)
+        h_f = h_hop @ (phi_out * bloch_out) @ np.linalg.pinv(phi_out)
     g_surface = np.linalg.inv(energy * np.eye(m) - h_cell - h_f)
     return LeadModes(
         energy=energy,
-        lam_out=lam_out,
+        bloch_out=bloch_out,
         phi_out=phi_out,
         velocity_out=vel_out,
         propagating_out=prop_out,
-        lam_in=lam[in_idx],
+        bloch_in=bloch[in_idx],
         phi_in=phi[:, in_idx],
         velocity_in=np.array([velocities[k] for k in in_idx]),
         g_surface=g_surface,
@@ -404,30 +404,30 @@ def _modes_generalised(h_cell, h_hop, energy, scale):
     )
 
 
-def _degenerate_groups(lams: np.ndarray) -> list[np.ndarray]:
+def _degenerate_groups(factors: np.ndarray) -> list[np.ndarray]:
     """Group indices of (unit-modulus) Bloch factors that coincide."""
-    remaining = list(range(len(lams)))
+    remaining = list(range(len(factors)))
     groups = []
     while remaining:
         k = remaining.pop(0)
-        same = [j for j in remaining if abs(lams[j] - lams[k]) < _DEGENERATE_TOL]
+        same = [j for j in remaining if abs(factors[j] - factors[k]) < _DEGENERATE_TOL]
         for j in same:
             remaining.remove(j)
         groups.append(np.array([k] + same))
     return groups
 
 
-def _velocity_basis(phis: np.ndarray, lam: complex, h_hop: np.ndarray):
+def _velocity_basis(phis: np.ndarray, bloch: complex, h_hop: np.ndarray):
     """Orthonormal basis of a degenerate propagating group diagonalising the current.
 
-    The current carried from cell j to j+1 by ``psi_j = lam**j phi`` is
-    ``v = -2 Im(lam phi^dag h_hop phi)`` (hbar = 1, one cell per unit length);
+    The current carried from cell j to j+1 by ``psi_j = bloch**j phi`` is
+    ``v = -2 Im(bloch phi^dag h_hop phi)`` (hbar = 1, one cell per unit length);
     within a degenerate group the current operator
-    ``J = i (lam Phi^dag h_hop Phi - conj(lam) Phi^dag h_hop^dag Phi)`` is
+    ``J = i (bloch Phi^dag h_hop Phi - conj(bloch) Phi^dag h_hop^dag Phi)`` is
     diagonalised so that every mode has a definite velocity.
     """
     q, _ = np.linalg.qr(phis)
-    j_mat = 1j * (lam * q.conj().T @ h_hop @ q - np.conj(lam) * q.conj().T @ h_hop.conj().T @ q)
+    j_mat = 1j * (bloch * q.conj().T @ h_hop @ q - np.conj(bloch) * q.conj().T @ h_hop.conj().T @ q)
     vel, u = np.linalg.eigh(0.5 * (j_mat + j_mat.conj().T))
     return q @ u, vel
 
@@ -462,9 +462,9 @@ def require_off_threshold(modes: list, energy: float, what: str) -> None:
 def incoming_sources(h_hop, coupling, modes: LeadModes) -> tuple[np.ndarray, np.ndarray]:
     """Device sources of the lead's incoming open channels (flux-normalised).
 
-    An incoming Bloch wave ``psi_j = lam_in**j phi_in`` drives the device
+    An incoming Bloch wave ``psi_j = bloch_in**j phi_in`` drives the device
     through the interface with the source
-    ``coupling (phi_in - g_surface h_hop^dag phi_in / lam_in)``; the
+    ``coupling (phi_in - g_surface h_hop^dag phi_in / bloch_in)``; the
     scattering state inside the device is ``G_{device, interface} @ source``
     (our derivation from the Dyson equation; it reproduces the Fisher-Lee
     relation, Phys. Rev. B 23, 6851 (1981), from memory).  Dividing by
@@ -475,11 +475,11 @@ def incoming_sources(h_hop, coupling, modes: LeadModes) -> tuple[np.ndarray, np.
     sources : (k, n_in) complex ndarray
         One column per incoming channel, on the device interface sites.
     back : (m, n_in) complex ndarray
-        ``g_surface h_hop^dag phi_in / lam_in`` on cell 0, needed to separate
+        ``g_surface h_hop^dag phi_in / bloch_in`` on cell 0, needed to separate
         the reflected wave from the incoming one.
     """
     phi = modes.phi_in / np.sqrt(np.abs(modes.velocity_in))
-    back = modes.g_surface @ (h_hop.conj().T @ phi) / modes.lam_in
+    back = modes.g_surface @ (h_hop.conj().T @ phi) / modes.bloch_in
     return coupling @ (phi - back), back
 
 
@@ -519,7 +519,7 @@ def surface_green_decimation(h_cell, h_hop, energy, *, eta: float = 1e-12, tol: 
 
     until ``|alpha|, |beta| < tol * scale``; then
     ``g_surface = (E + i eta - eps_s)^-1``.  Each step doubles the range of
-    the renormalised coupling, so the error falls like ``|lam|^(2^n)``; inside
+    the renormalised coupling, so the error falls like ``|bloch|^(2^n)``; inside
     the band that needs about ``log2(1/eta)`` steps.
 
     The result is the surface Green's function at the complex energy

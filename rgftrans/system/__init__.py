@@ -58,7 +58,7 @@ _EXPORTS = {
     "MATERIALS": "materials",
     "Material": "materials",
     "conductance_g0": "materials",
-    "conductance_siemens": "materials",
+    "conductance_S": "materials",
     "fermi_energy_meV": "materials",
     "fermi_wavelength_nm": "materials",
     "hopping_meV": "materials",

@@ -133,14 +133,14 @@ def device_size(region, lattice, lead_sides, orbitals_per_site: int) -> DeviceSi
     """Estimate the size and cost of a device from its region, lattice and the sides its leads sit on.
 
     ``region`` needs ``area`` (nm^2) and ``bounds`` (nm); ``lattice`` needs
-    ``prim_vecs`` (nm) and ``n_basis``.  Layers run across the transport
+    ``vectors`` (nm) and ``n_basis``.  Layers run across the transport
     direction: leads only on left/right give layers of the region's height,
     only on bottom/top of its width, and leads on adjacent sides diagonal
     layers up to the sum of both.
     """
     import numpy as np
 
-    cell = abs(float(np.linalg.det(np.asarray(lattice.prim_vecs, dtype=float))))
+    cell = abs(float(np.linalg.det(np.asarray(lattice.vectors, dtype=float))))
     density = lattice.n_basis / cell  # sites per nm^2
     sites = max(float(region.area) * density, 1.0)
     xmin, ymin, xmax, ymax = region.bounds

@@ -413,38 +413,38 @@ class Device:
         return self.lattice.mass_factor * hopping_meV(self.material_data.m_eff, self.lattice.spacing)
 
 
-class _TagIndex:
-    """Vectorised lookup of site tags (n1, n2, b) -> row index (or -1)."""
+class _CellIndex:
+    """Vectorised lookup of sites by their cells (n1, n2, b) -> row index (or -1)."""
 
     _OFF = 1 << 20
 
-    def __init__(self, tags: np.ndarray):
-        self.keys = self._encode(tags)
+    def __init__(self, cells: np.ndarray):
+        self.keys = self._encode(cells)
         self.order = np.argsort(self.keys, kind="stable")
         self.sorted = self.keys[self.order]
 
     @classmethod
-    def _encode(cls, tags: np.ndarray) -> np.ndarray:
-        tags = np.asarray(tags, dtype=np.int64).reshape(-1, 3)
-        return (((tags[:, 0] + cls._OFF) << 21) + (tags[:, 1] + cls._OFF)) * 16 + tags[:, 2]
+    def _encode(cls, cells: np.ndarray) -> np.ndarray:
+        cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
+        return (((cells[:, 0] + cls._OFF) << 21) + (cells[:, 1] + cls._OFF)) * 16 + cells[:, 2]
 
-    def find(self, tags: np.ndarray) -> np.ndarray:
-        keys = self._encode(tags)
+    def find(self, cells: np.ndarray) -> np.ndarray:
+        keys = self._encode(cells)
         if len(self.sorted) == 0:
             return np.full(len(keys), -1)
         pos = np.minimum(np.searchsorted(self.sorted, keys), len(self.sorted) - 1)
         return np.where(self.sorted[pos] == keys, self.order[pos], -1)
 
 
-def _bond_pairs(lattice: Lattice, tags_a: np.ndarray, index_b: _TagIndex):
+def _bond_pairs(lattice: Lattice, cells_a: np.ndarray, index_b: _CellIndex):
     """All (i, j) with site i of set A bonded to site j of set B (both directions)."""
     rows, cols = [], []
     for b_from, b_to, (n1, n2) in lattice.bonds:
         for sign, (src, dst) in ((1, (b_from, b_to)), (-1, (b_to, b_from))):
-            sel = np.flatnonzero(tags_a[:, 2] == src)
+            sel = np.flatnonzero(cells_a[:, 2] == src)
             if sel.size == 0:
                 continue
-            target = tags_a[sel].copy()
+            target = cells_a[sel].copy()
             target[:, 0] += sign * n1
             target[:, 1] += sign * n2
             target[:, 2] = dst
@@ -558,13 +558,13 @@ class _Terms:
 @dataclass
 class _LeadGeometry:
     lead: Lead
-    cell_tags: np.ndarray       # cell 0
-    shift: np.ndarray           # tag shift from cell j to j+1 (n1, n2, 0)
+    cell_sites: np.ndarray      # cells (n1, n2, b) of the sites of lead cell 0
+    shift: np.ndarray           # cell shift from lead cell j to j+1 (n1, n2, 0)
     period: np.ndarray          # nm
     along_x: bool
 
     def cell(self, j: int) -> np.ndarray:
-        return self.cell_tags + j * self.shift
+        return self.cell_sites + j * self.shift
 
 
 def discretise(device: Device) -> TightBindingModel:
@@ -588,13 +588,13 @@ def discretise(device: Device) -> TightBindingModel:
     terms = _Terms(device)
     t = terms.t
     refuse_oversized_device(estimate_size(device))
-    tags, xy, index, rows, cols = _sites(device)
-    geoms = _lead_geometries(device, tags, xy, index)
-    n = len(tags)
+    cells, xy, index, rows, cols = _sites(device)
+    geoms = _lead_geometries(device, cells, xy, index)
+    n = len(cells)
     potential = _evaluate_potential(device.potential, xy)
     scalar_onsite = lattice.onsite_in_t * t + potential
     if device.disorder is not None:
-        scalar_onsite = scalar_onsite + device.disorder.values(tags)
+        scalar_onsite = scalar_onsite + device.disorder.values(cells)
 
     # Gauge switch f: 0 on leads along x, 1 on leads along y (see rgftrans.system.fields).
     cells_x = [lattice.positions(np.vstack([g.cell(j) for j in range(3)])) for g in geoms if g.along_x]
@@ -626,29 +626,29 @@ def check_geometry(device: Device) -> int:
     computing anything.  Raises what :func:`discretise` raises for geometry.
     """
     refuse_oversized_device(estimate_size(device))
-    tags, xy, index, _, _ = _sites(device)
-    _lead_geometries(device, tags, xy, index)
-    return len(tags)
+    cells, xy, index, _, _ = _sites(device)
+    _lead_geometries(device, cells, xy, index)
+    return len(cells)
 
 
 def _sites(device: Device):
-    """Lattice sites of the region (tags, positions, index) and their bonds; one connected piece."""
+    """Lattice sites of the region (cells, positions, index) and their bonds; one connected piece."""
     lattice = device.lattice
     region = device.region
-    all_tags = lattice.tags_in_box(*region.bounds)
-    xy_all = lattice.positions(all_tags)
+    all_cells = lattice.cells_in_box(*region.bounds)
+    xy_all = lattice.positions(all_cells)
     inside = region.contains(xy_all)
-    tags = all_tags[inside]
+    cells = all_cells[inside]
     xy = xy_all[inside]
-    if len(tags) == 0:
+    if len(cells) == 0:
         xmin, ymin, xmax, ymax = region.bounds
         raise GeometryError(
             f"the region ({xmax - xmin:.3g} x {ymax - ymin:.3g} nm) holds no lattice site at spacing "
             f"a = {lattice.spacing:.3g} nm; enlarge the region or refine the lattice (lengths are in nm)"
         )
-    index = _TagIndex(tags)
-    rows, cols = _bond_pairs(lattice, tags, index)
-    n = len(tags)
+    index = _CellIndex(cells)
+    rows, cols = _bond_pairs(lattice, cells, index)
+    n = len(cells)
     pattern = sp.coo_matrix((np.ones(len(rows), bool), (rows, cols)), shape=(n, n)).tocsr()
     n_pieces, labels = connected_components(pattern, directed=False)
     if n_pieces > 1:
@@ -663,7 +663,7 @@ def _sites(device: Device):
         warnings.warn(
             f"the device has {n} site(s) at spacing a = {lattice.spacing:.3g} nm: are the lengths in nm? A "
             "continuum model needs many sites per Fermi wavelength", ValidityWarning, stacklevel=4)
-    return tags, xy, index, rows, cols
+    return cells, xy, index, rows, cols
 
 
 #: Fewer sites than this in a continuum (effective-mass) device earn a warning: a real dot or wire
@@ -671,7 +671,7 @@ def _sites(device: Device):
 FEW_SITES = 10
 
 
-def _lead_geometries(device: Device, tags, xy, index) -> list:
+def _lead_geometries(device: Device, cells, xy, index) -> list:
     """Where each lead attaches; one-line LeadErrors for leads that miss, overlap or run alongside the device."""
     lattice = device.lattice
     if not device.leads:
@@ -682,13 +682,13 @@ def _lead_geometries(device: Device, tags, xy, index) -> list:
         raise LeadError(f"lead names must be unique, {sorted(dup)} appear more than once; rename them")
     bounds = np.array(device.region.bounds)
     extent = max(bounds[2] - bounds[0], bounds[3] - bounds[1], np.ptp(xy[:, 0]), np.ptp(xy[:, 1]))
-    geoms = [_lead_geometry(lead, lattice, tags, xy, index) for lead in device.leads]
+    geoms = [_lead_geometry(lead, lattice, cells, xy, index) for lead in device.leads]
     deep_sites = []
     for geo in geoms:
         period_len = np.linalg.norm(geo.period)
         depth = int(np.ceil(extent / period_len)) + 3
         deep = np.vstack([geo.cell(j) for j in range(depth)])
-        _check_lead_clear(geo, lattice, deep, index, len(geo.cell_tags))
+        _check_lead_clear(geo, lattice, deep, index, len(geo.cell_sites))
         deep_sites.append(deep)
     _check_leads_apart(device.leads, lattice, deep_sites)
     return geoms
@@ -720,7 +720,7 @@ def _warn_lead_steps(specs, leads, potential, norbs, xy) -> None:
             )
 
 
-def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> _LeadGeometry:
+def _lead_geometry(lead: Lead, lattice: Lattice, cells, xy, index: _CellIndex) -> _LeadGeometry:
     direction = np.array(_SIDES[lead.side], dtype=float)
     along_x = lead.side in ("left", "right")
     across = 1 if along_x else 0
@@ -743,7 +743,7 @@ def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> 
     box_lo = np.minimum(xy[in_span].min(axis=0), xy[in_span].min(axis=0) + 2 * period) - 2 * length
     box_hi = np.maximum(xy[in_span].max(axis=0), xy[in_span].max(axis=0) + 2 * period) + 2 * length
     box_lo[across], box_hi[across] = lo - lattice.spacing, hi + lattice.spacing
-    cand = lattice.tags_in_box(box_lo[0], box_lo[1], box_hi[0], box_hi[1])
+    cand = lattice.cells_in_box(box_lo[0], box_lo[1], box_hi[0], box_hi[1])
     cxy = lattice.positions(cand)
     cand_in = (cxy[:, across] >= lo - tol) & (cxy[:, across] <= hi + tol)
     cand, cxy = cand[cand_in], cxy[cand_in]
@@ -770,10 +770,10 @@ def _lead_geometry(lead: Lead, lattice: Lattice, tags, xy, index: _TagIndex) -> 
         )
     if len(cell0) == 0:  # pragma: no cover - a non-empty span always has a slab
         raise LeadError(f"lead '{lead.name}': no lattice site in its cross-section; widen the span")
-    return _LeadGeometry(lead=lead, cell_tags=cell0, shift=np.array([p1, p2, 0]), period=period, along_x=along_x)
+    return _LeadGeometry(lead=lead, cell_sites=cell0, shift=np.array([p1, p2, 0]), period=period, along_x=along_x)
 
 
-def _check_lead_clear(geo: _LeadGeometry, lattice, deep, index: _TagIndex, m: int) -> None:
+def _check_lead_clear(geo: _LeadGeometry, lattice, deep, index: _CellIndex, m: int) -> None:
     """Only cell 0 may touch the device: deeper cells must not neighbour or overlap it."""
     overlap = index.find(deep) >= 0
     r_deep, _ = _bond_pairs(lattice, deep[m:], index)
@@ -792,12 +792,12 @@ def _lead_model(geo: _LeadGeometry, terms: _Terms, lattice: Lattice, xy, f_dev, 
     m = len(cell0)
     pos0, pos1 = lattice.positions(cell0), lattice.positions(cell1)
     f_lead = np.full(m, 0.0 if geo.along_x else 1.0)
-    idx0 = _TagIndex(cell0)
+    idx0 = _CellIndex(cell0)
     r, c = _bond_pairs(lattice, cell0, idx0)
     h_cell = terms.dense(r, c, terms.hop(pos0[r], pos0[c], f_lead[r], f_lead[c]), (m, m))
     onsite = np.full(m, lattice.onsite_in_t * t + geo.lead.potential)
     h_cell += terms.dense(np.arange(m), np.arange(m), terms.onsite(onsite), (m, m))
-    r, c = _bond_pairs(lattice, cell0, _TagIndex(cell1))
+    r, c = _bond_pairs(lattice, cell0, _CellIndex(cell1))
     h_hop = terms.dense(r, c, terms.hop(pos0[r], pos1[c], f_lead[r], f_lead[c]), (m, m))
     # Device sites bonded to cell 0 form the interface: <interface|H|cell 0>.
     r, c = _bond_pairs(lattice, cell0, index)
@@ -818,7 +818,7 @@ def _lead_model(geo: _LeadGeometry, terms: _Terms, lattice: Lattice, xy, f_dev, 
 
 def _check_leads_apart(leads: Sequence[Lead], lattice: Lattice, lead_sites: list[np.ndarray]) -> None:
     for i in range(len(leads)):
-        index = _TagIndex(lead_sites[i])
+        index = _CellIndex(lead_sites[i])
         for j in range(i + 1, len(leads)):
             hit = index.find(lead_sites[j]) >= 0
             r, _ = _bond_pairs(lattice, lead_sites[j], index)

@@ -18,9 +18,11 @@
   matrix ``i alpha / (2 a^2) (d_x sigma_y - d_y sigma_x)``, which gives the
   bulk bands ``E = 2t (2 - cos k_x a - cos k_y a) +- (alpha/a) sqrt(sin^2 k_x a
   + sin^2 k_y a)`` on the square lattice.
-* Anderson disorder: onsite energies uniform in ``[-W/2, W/2]``, drawn from a
-  counter-based hash of the site's lattice tag and the seed, so a site keeps
-  its value when the region around it changes.
+* Anderson disorder: onsite energies uniform in ``[-W/2, W/2)``, drawn from
+  numpy's counter-based Philox generator (Salmon et al., SC'11, "Parallel
+  random numbers: as easy as 1, 2, 3", from memory) keyed by the seed and
+  counting over the site's cell ``(n1, n2, b)``, so a site keeps its value
+  when the region around it changes (see :class:`Disorder`).
 """
 
 from __future__ import annotations
@@ -84,7 +86,31 @@ class MagneticField:
 
 @dataclass(frozen=True)
 class Disorder:
-    """Anderson disorder: onsite energies uniform in [-width/2, width/2] meV, reproducible from ``seed``."""
+    """Anderson disorder: onsite energies uniform in [-width/2, width/2) meV, reproducible from ``seed``.
+
+    Reproducibility guarantee: the value of a site depends only on ``seed``,
+    ``width_meV`` and the site's cell ``(n1, n2, b)`` -- not on the device's
+    shape, its slicing, the order of the sites or which other sites are
+    asked for, and not on the numpy version as long as numpy's ``Philox`` and
+    ``SeedSequence`` keep their documented streams.  Explicitly, with
+    ``key = np.random.SeedSequence(seed).generate_state(2, np.uint64)``, the
+    site ``(n1, n2, b)`` gets ``width_meV * (u - 1/2)`` where ::
+
+        u = np.random.Generator(np.random.Philox(
+                key=key, counter=[n1 + 2**63 - 1, n2 + 2**63, b, 0])).random()
+
+    (Philox produces the block of counter + 1 first, hence the ``- 1``; the
+    offset ``2**63`` keeps negative cell indices from wrapping.)  Sites of one
+    row ``(n2, b)`` are consecutive counters, so a row is drawn by one
+    generator: the cost is one generator per row plus one word per cell.
+
+    Parameters
+    ----------
+    width_meV : float, meV
+        W, the full width of the box distribution (>= 0).
+    seed : int
+        Whole number >= 0.
+    """
 
     width_meV: float
     seed: int = 0
@@ -94,23 +120,31 @@ class Disorder:
             raise PotentialError(
                 f"disorder width must be a finite non-negative energy, got {self.width_meV} meV; e.g. width_meV = 1.0"
             )
+        if isinstance(self.seed, (bool, np.bool_)) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
+            raise PotentialError(f"disorder seed must be a whole number >= 0, got {self.seed!r}; e.g. seed = 1")
 
-    def values(self, tags: np.ndarray) -> np.ndarray:
-        """Onsite disorder (meV) of the sites with the given (n, 3) lattice tags."""
-        tags = np.asarray(tags, dtype=np.int64).reshape(-1, 3).astype(np.uint64)
-        with np.errstate(over="ignore"):
-            h = np.uint64(self.seed % (1 << 63)) * np.uint64(0x9E3779B97F4A7C15)
-            for col in range(3):
-                h = _splitmix64(h ^ (tags[:, col] + np.uint64(0x632BE59BD9B4E019) * np.uint64(col + 1)))
-        uniform = (h >> np.uint64(11)).astype(np.float64) / float(1 << 53)
+    def values(self, cells: np.ndarray) -> np.ndarray:
+        """Onsite disorder (meV) of the sites with the given cells, an (n, 3) int array of rows ``(n1, n2, b)``."""
+        cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
+        raw = np.empty(len(cells), dtype=np.uint64)
+        if len(cells):
+            key = np.random.SeedSequence(int(self.seed)).generate_state(2, np.uint64)
+            order = np.lexsort((cells[:, 0], cells[:, 1], cells[:, 2]))  # rows (b, n2), n1 ascending within
+            s = cells[order]
+            new_row = np.flatnonzero((s[1:, 1] != s[:-1, 1]) | (s[1:, 2] != s[:-1, 2])) + 1
+            for start, stop in zip(np.r_[0, new_row], np.r_[new_row, len(s)]):
+                n1 = s[start:stop, 0]
+                first = int(n1[0])
+                counter = np.array([first + _CELL_OFFSET - 1, int(s[start, 1]) + _CELL_OFFSET, int(s[start, 2]), 0],
+                                   dtype=np.uint64)
+                words = np.random.Philox(key=key, counter=counter).random_raw(4 * (int(n1[-1]) - first + 1))
+                raw[order[start:stop]] = words[4 * (n1 - first)]  # first word of each cell's block
+        uniform = (raw >> np.uint64(11)).astype(np.float64) * 2.0 ** -53  # as Generator.random()
         return self.width_meV * (uniform - 0.5)
 
 
-def _splitmix64(x):
-    """The splitmix64 finaliser (Steele, Lea & Flood, OOPSLA 2014, from memory): a good 64-bit mix."""
-    x = (x ^ (x >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-    x = (x ^ (x >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-    return x ^ (x >> np.uint64(31))
+#: Added to the cell indices n1, n2 in the Philox counter so negative cells do not wrap (uint64 words).
+_CELL_OFFSET = 1 << 63
 
 
 def gauge_weight(points: np.ndarray, along_x: list[np.ndarray], along_y: list[np.ndarray]) -> np.ndarray:

@@ -1,6 +1,6 @@
 """Bravais lattices with a basis, in nm.
 
-A :class:`Lattice` carries its primitive vectors, the positions of the sites
+A :class:`Lattice` carries its lattice vectors ``a1, a2``, the positions of the sites
 of one unit cell (the basis) and the list of nearest-neighbour bonds, each
 written once as ``(sublattice_from, sublattice_to, (n1, n2))``: the bond joins
 site ``sublattice_from`` of cell ``R`` to site ``sublattice_to`` of cell
@@ -8,7 +8,10 @@ site ``sublattice_from`` of cell ``R`` to site ``sublattice_to`` of cell
 works from these three pieces, so new lattices slot in without touching the
 builders.
 
-A site is labelled by an integer *tag* ``(n1, n2, b)``.
+A site is named by three integers ``(n1, n2, b)``: its cell ``n1 a1 + n2 a2``
+and its place ``b`` in the basis.  An ``(n, 3)`` int array of such rows is
+called ``cells`` throughout the package (``Lattice.cells_in_box``,
+``Lattice.positions(cells)``, ``Disorder.values(cells)``).
 """
 
 from __future__ import annotations
@@ -30,8 +33,8 @@ class Lattice:
     ----------
     name : str
         Short name, e.g. ``"square"``.
-    prim_vecs : (2, 2) float ndarray, nm
-        Primitive vectors as rows.
+    vectors : (2, 2) float ndarray, nm
+        The lattice vectors ``a1, a2`` (primitive: they span one cell) as rows.
     basis : (n_b, 2) float ndarray, nm
         Positions of the sites of one cell, relative to the cell origin.
     bonds : tuple of (int, int, (int, int))
@@ -39,7 +42,7 @@ class Lattice:
     coordination : int
         Number of nearest neighbours of a bulk site.
     origin : (2,) float ndarray, nm
-        Position of the cell with tag ``(0, 0)``.
+        Position of the cell ``(n1, n2) = (0, 0)``.
     onsite_in_t : float
         Onsite energy in units of the hopping: ``coordination`` for the
         effective-mass lattices (band bottom at zero), 0 for honeycomb (Dirac
@@ -51,7 +54,7 @@ class Lattice:
     """
 
     name: str
-    prim_vecs: np.ndarray
+    vectors: np.ndarray
     basis: np.ndarray
     bonds: tuple
     coordination: int
@@ -60,12 +63,12 @@ class Lattice:
     mass_factor: float | None = None
 
     def __post_init__(self):
-        vecs = np.asarray(self.prim_vecs, dtype=float)
+        vecs = np.asarray(self.vectors, dtype=float)
         if vecs.shape != (2, 2) or not np.all(np.isfinite(vecs)):
-            raise LatticeError(f"primitive vectors must be a finite 2x2 array in nm, got {self.prim_vecs!r}")
+            raise LatticeError(f"primitive vectors must be a finite 2x2 array in nm, got {self.vectors!r}")
         if np.abs(vecs).max() == 0 or abs(np.linalg.det(vecs)) < 1e-12 * np.abs(vecs).max() ** 2:
             raise LatticeError(f"primitive vectors {vecs.tolist()} nm are parallel; give two independent vectors")
-        object.__setattr__(self, "prim_vecs", vecs)
+        object.__setattr__(self, "vectors", vecs)
         object.__setattr__(self, "basis", np.atleast_2d(np.asarray(self.basis, dtype=float)))
         object.__setattr__(self, "origin", np.asarray(self.origin, dtype=float).reshape(2))
 
@@ -77,21 +80,21 @@ class Lattice:
     def spacing(self) -> float:
         """Nearest-neighbour distance in nm."""
         b1, b2, (n1, n2) = self.bonds[0]
-        d = self.basis[b2] - self.basis[b1] + n1 * self.prim_vecs[0] + n2 * self.prim_vecs[1]
+        d = self.basis[b2] - self.basis[b1] + n1 * self.vectors[0] + n2 * self.vectors[1]
         return float(np.hypot(*d))
 
-    def positions(self, tags: np.ndarray) -> np.ndarray:
-        """Positions in nm of sites given as an (n, 3) int array of tags."""
-        tags = np.asarray(tags, dtype=np.int64).reshape(-1, 3)
-        return self.origin + tags[:, :2] @ self.prim_vecs + self.basis[tags[:, 2]]
+    def positions(self, cells: np.ndarray) -> np.ndarray:
+        """Positions in nm of sites given by their cells, an (n, 3) int array of rows ``(n1, n2, b)``."""
+        cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
+        return self.origin + cells[:, :2] @ self.vectors + self.basis[cells[:, 2]]
 
     def cell_coordinates(self, xy: np.ndarray) -> np.ndarray:
         """Fractional cell coordinates (n1, n2) of points given in nm."""
-        return (np.atleast_2d(xy) - self.origin) @ np.linalg.inv(self.prim_vecs)
+        return (np.atleast_2d(xy) - self.origin) @ np.linalg.inv(self.vectors)
 
     def bond_vectors(self) -> np.ndarray:
         """(n_bonds, 2) nm: the vector of each listed bond, from ``b_from`` to ``b_to``."""
-        return np.array([self.basis[b2] - self.basis[b1] + n1 * self.prim_vecs[0] + n2 * self.prim_vecs[1]
+        return np.array([self.basis[b2] - self.basis[b1] + n1 * self.vectors[0] + n2 * self.vectors[1]
                          for b1, b2, (n1, n2) in self.bonds])
 
     def period_along(self, direction) -> tuple[np.ndarray, tuple[int, int]]:
@@ -106,7 +109,7 @@ class Lattice:
             for n2 in range(-6, 7):
                 if n1 == 0 and n2 == 0:
                     continue
-                v = n1 * self.prim_vecs[0] + n2 * self.prim_vecs[1]
+                v = n1 * self.vectors[0] + n2 * self.vectors[1]
                 length = np.linalg.norm(v)
                 if abs(v @ d - length) < 1e-9 * length and (best is None or length < best[0] - 1e-12):
                     best = (length, v, (n1, n2))
@@ -115,8 +118,8 @@ class Lattice:
                                "leads must run along a lattice direction")
         return best[1], best[2]
 
-    def tags_in_box(self, xmin: float, ymin: float, xmax: float, ymax: float) -> np.ndarray:
-        """All tags whose site lies in the box (plus a margin of one cell)."""
+    def cells_in_box(self, xmin: float, ymin: float, xmax: float, ymax: float) -> np.ndarray:
+        """Cells ``(n1, n2, b)`` of all sites in the box (plus a margin of one cell), as an (n, 3) int array."""
         corners = np.array([[xmin, ymin], [xmin, ymax], [xmax, ymin], [xmax, ymax]])
         frac = self.cell_coordinates(corners)
         lo = np.floor(frac.min(axis=0)).astype(int) - 1
@@ -139,7 +142,7 @@ def square(a: float, *, origin=(0.0, 0.0)) -> Lattice:
     a = _check_spacing(a)
     return Lattice(
         name="square",
-        prim_vecs=np.array([[a, 0.0], [0.0, a]]),
+        vectors=np.array([[a, 0.0], [0.0, a]]),
         basis=np.zeros((1, 2)),
         bonds=((0, 0, (1, 0)), (0, 0, (0, 1))),
         coordination=4,
@@ -186,7 +189,7 @@ def honeycomb(a: float, *, origin=(0.0, 0.0)) -> Lattice:
     r3 = np.sqrt(3.0)
     return Lattice(
         name="honeycomb",
-        prim_vecs=np.array([[r3 * a, 0.0], [r3 * a / 2, 1.5 * a]]),
+        vectors=np.array([[r3 * a, 0.0], [r3 * a / 2, 1.5 * a]]),
         basis=np.array([[0.0, 0.0], [0.0, a]]),
         bonds=((0, 1, (0, 0)), (0, 1, (1, -1)), (0, 1, (0, -1))),
         coordination=3,
@@ -206,7 +209,7 @@ def triangular(a: float, *, origin=(0.0, 0.0)) -> Lattice:
     a = _check_spacing(a)
     return Lattice(
         name="triangular",
-        prim_vecs=np.array([[a, 0.0], [a / 2, np.sqrt(3.0) * a / 2]]),
+        vectors=np.array([[a, 0.0], [a / 2, np.sqrt(3.0) * a / 2]]),
         basis=np.zeros((1, 2)),
         bonds=((0, 0, (1, 0)), (0, 0, (0, 1)), (0, 0, (-1, 1))),
         coordination=6,

@@ -11,7 +11,7 @@ tight-binding model needs:
 * :func:`fermi_energy_meV` and :func:`fermi_wavelength_nm` for a
   spin-degenerate 2DEG of given sheet density;
 * :data:`CONDUCTANCE_QUANTUM_S`, :func:`conductance_g0` and
-  :func:`conductance_siemens`: G = (g_s e²/h) T with g_s = 2 for a spinless
+  :func:`conductance_S`: G = (g_s e²/h) T with g_s = 2 for a spinless
   model and 1 when the spin orbitals are explicit.
 
 All physical constants come from :mod:`scipy.constants` (CODATA; e and h are
@@ -37,7 +37,7 @@ __all__ = [
     "MATERIALS",
     "Material",
     "conductance_g0",
-    "conductance_siemens",
+    "conductance_S",
     "fermi_energy_meV",
     "fermi_wavelength_nm",
     "hopping_meV",
@@ -296,7 +296,7 @@ def conductance_g0(transmission, spin_degeneracy: int = 2):
     return np.multiply(transmission, 0.5 * _check_spin_degeneracy(spin_degeneracy))
 
 
-def conductance_siemens(transmission: float | np.ndarray, spin_degeneracy: int = 2) -> float | np.ndarray:
+def conductance_S(transmission: float | np.ndarray, spin_degeneracy: int = 2) -> float | np.ndarray:
     """Landauer conductance G = (g_s e²/h) T in siemens (see :func:`conductance_g0`).
 
     Parameters

@@ -4,26 +4,26 @@ A TM field ``E_z(x, y)`` between perfectly conducting walls obeys
 ``nabla^2 E + k0^2 eps(r) E = 0`` with ``E = 0`` on the metal.  On a square
 grid of spacing ``a`` (five-point Laplacian, common practice, no source)
 
-    (4 E_i - sum_{j nn i} E_j) = lambda eps_i E_i,      lambda = (k0 a)^2,
+    (4 E_i - sum_{j nn i} E_j) = k0a_squared eps_i E_i,      k0a_squared = (k0 a)^2,
 
-i.e. ``H0 E = lambda M E`` with ``H0`` the tight-binding Hamiltonian of
+i.e. ``H0 E = k0a_squared M E`` with ``H0`` the tight-binding Hamiltonian of
 hopping 1 and onsite 4 (nodes on the metal are simply absent: Dirichlet walls)
 and ``M = diag(eps)``.  With ``D = M^(-1/2)`` (real part of eps) the problem
-becomes an ordinary one, ``lambda phi = D H0 D phi`` with ``phi = M^(1/2) E``:
-a frequency-independent tight-binding model whose "energy" is ``lambda``.
+becomes an ordinary one, ``k0a_squared phi = D H0 D phi`` with ``phi = M^(1/2) E``:
+a frequency-independent tight-binding model whose "energy" is ``k0a_squared``.
 Port waveguides filled with ``eps_p`` become leads with cell Hamiltonians
 ``h / eps_p``.  Everything the electron engine does (transmission, reflection,
-scattering states, poles, dark-state search) then works unchanged in lambda;
+scattering states, poles, dark-state search) then works unchanged in k0a_squared;
 this module converts to and from frequency:
 
-    f = c sqrt(lambda) / (2 pi a).
+    f = c sqrt(k0a_squared) / (2 pi a).
 
 The bond flux ``2 Im(phi_i^* H_ij phi_j)`` equals ``2 Im(E_i^* H0_ij E_j)``, so
 transmissions are power transmissions.  A lossy dielectric
 ``eps = eps' (1 + i tan delta)`` (time dependence exp(-i omega t)) adds the
-onsite term ``-i lambda tan delta`` -- an absorbing, frequency-dependent
+onsite term ``-i k0a_squared tan delta`` -- an absorbing, frequency-dependent
 diagonal; the absorbed fraction of the incident power is
-``A = 2 lambda sum_i tan(delta_i) |phi_i|^2`` for unit incident flux.
+``A = 2 k0a_squared sum_i tan(delta_i) |phi_i|^2`` for unit incident flux.
 
 Permittivity on the grid: each node takes the area-weighted mean of eps over
 its cell (sub-cell averaging; for E parallel to every interface, as E_z is
@@ -186,7 +186,7 @@ def cell_permittivity(positions: np.ndarray, spacing: float, dielectrics: Sequen
 
 @dataclass(frozen=True, eq=False)
 class PhotonicModel:
-    """The gridded waveguide: a tight-binding model in ``lambda = (k0 a)^2`` plus what converts it back."""
+    """The gridded waveguide: a tight-binding model in ``k0a_squared = (k0 a)^2`` plus what converts it back."""
 
     model: TightBindingModel
     permittivity: np.ndarray
@@ -199,19 +199,19 @@ class PhotonicModel:
     def spacing_m(self) -> float:
         return self.spacing * LENGTH_UNITS[self.unit]
 
-    def lam(self, frequency_GHz):
+    def k0a_squared(self, frequency_GHz):
         """``(k0 a)^2`` at the given frequencies (GHz); k0 = 2 pi f / c with c from scipy.constants."""
         k0a = 2 * np.pi * np.asarray(frequency_GHz, dtype=float) * 1e9 * self.spacing_m / const.c
         return k0a**2
 
-    def frequency_GHz(self, lam):
-        """Inverse of :meth:`lam` (complex lambda gives a complex frequency)."""
-        return const.c * np.sqrt(np.asarray(lam)) / (2 * np.pi * self.spacing_m) / 1e9
+    def frequency_GHz(self, k0a_squared):
+        """Inverse of :meth:`k0a_squared` (a complex value gives a complex frequency)."""
+        return const.c * np.sqrt(np.asarray(k0a_squared)) / (2 * np.pi * self.spacing_m) / 1e9
 
-    def width_GHz(self, lam, width_lam):
-        """A width in lambda (dimensionless) as a width in frequency: ``df = f dlambda / (2 lambda)``."""
-        lam = np.asarray(lam, dtype=float)
-        return self.frequency_GHz(lam) * np.asarray(width_lam, dtype=float) / (2 * lam)
+    def width_GHz(self, k0a_squared, width):
+        """A width in ``(k0 a)^2`` (dimensionless) as a width in frequency: ``df = f dK / (2 K)``, ``K = (k0 a)^2``."""
+        k0a_squared = np.asarray(k0a_squared, dtype=float)
+        return self.frequency_GHz(k0a_squared) * np.asarray(width, dtype=float) / (2 * k0a_squared)
 
     @property
     def loss_tangent(self) -> np.ndarray:
@@ -221,11 +221,11 @@ class PhotonicModel:
     def is_lossy(self) -> bool:
         return bool(np.any(self.loss_tangent > 0))
 
-    def model_at(self, lam: float) -> TightBindingModel:
-        """The model at one lambda: with losses, the absorbing diagonal ``-i lambda tan(delta)`` is added."""
+    def model_at(self, k0a_squared: float) -> TightBindingModel:
+        """The model at one ``k0a_squared``: with losses, the absorbing diagonal ``-i k0a_squared tan(delta)`` is added."""
         if not self.is_lossy:
             return self.model
-        return replace(self.model, hamiltonian=self.model.hamiltonian - sp.diags(1j * lam * self.loss_tangent))
+        return replace(self.model, hamiltonian=self.model.hamiltonian - sp.diags(1j * k0a_squared * self.loss_tangent))
 
     # --- checks ---------------------------------------------------------------------------------------
     def check_resolution(self, frequencies_GHz) -> None:
@@ -246,8 +246,8 @@ class PhotonicModel:
     def cutoffs_GHz(self, port: int | str = 0, count: int | None = None) -> np.ndarray:
         """Cutoff frequencies of a port's modes on this grid (band bottoms of its lead: ``h_cell + h_hop + h_hop^T``)."""
         lead = self.model.leads[self.port_index(port)]
-        lam_c = np.sort(np.linalg.eigvalsh(lead.h_cell + lead.h_hop + lead.h_hop.conj().T))
-        f = self.frequency_GHz(np.maximum(lam_c, 0.0))
+        cutoffs = np.sort(np.linalg.eigvalsh(lead.h_cell + lead.h_hop + lead.h_hop.conj().T))
+        f = self.frequency_GHz(np.maximum(cutoffs, 0.0))
         return f if count is None else f[:count]
 
     def port_index(self, port) -> int:

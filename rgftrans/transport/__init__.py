@@ -16,6 +16,7 @@ _EXPORTS = {
     "interface_green": "direct",
     "transmission_direct": "direct",
     "ScatteringMatrix": "direct",
+    "LeadAmplitudes": "direct",
     "scattering_matrix": "direct",
     "LocalResult": "local",
     "local_quantities": "local",

@@ -10,7 +10,7 @@ would write by hand.
 of all leads by the Fisher-Lee relation (Fisher & Lee, Phys. Rev. B 23, 6851
 (1981), from memory) written for general leads: an incoming Bloch mode
 ``phi_in`` of lead q drives the device through the source
-``V_q (phi_in - g_q h_hop_q^dag phi_in / lam_in)``; the outgoing wave in lead
+``V_q (phi_in - g_q h_hop_q^dag phi_in / bloch_in)``; the outgoing wave in lead
 p at its cell 0 is ``g_p V_p^dag psi`` (minus the incoming part when p = q),
 expanded in lead p's outgoing modes; amplitudes are flux-normalised by
 ``sqrt(|v_out| / |v_in|)``.
@@ -18,18 +18,20 @@ expanded in lead p's outgoing modes; amplitudes are flux-normalised by
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from rgftrans.errors import LeadError
 from rgftrans.system.device import TightBindingModel
 from rgftrans.leads.modes import incoming_sources, outgoing_amplitudes, require_off_threshold
 from rgftrans.system.inputs import check_energies, check_eta, check_model
 from rgftrans.leads.embedding import device_energy, lead_self_energies
 
-__all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "scattering_matrix"]
+__all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "LeadAmplitudes", "scattering_matrix"]
 
 
 def interface_green(model: TightBindingModel, energy: float, *, eta: float = 0.0, warn: bool = True):
@@ -84,8 +86,35 @@ def transmission_direct(model: TightBindingModel, energies, *, eta: float = 0.0)
 
 
 @dataclass(frozen=True, eq=False)
+class LeadAmplitudes:
+    """Scattering amplitudes from the open channels of one lead into those of another, at one energy.
+
+    Attributes
+    ----------
+    source, drain : str
+        Lead names: the wave comes in from ``source`` and goes out into
+        ``drain`` (the same lead for reflection).
+    matrix : (n_drain, n_source) complex ndarray
+        ``matrix[a, b]``: flux-normalised amplitude into outgoing channel a of
+        the drain from incoming channel b of the source.
+    """
+
+    source: str
+    drain: str
+    matrix: np.ndarray
+
+    @property
+    def transmission(self) -> float:
+        """``T = sum |matrix|^2``, from source into drain (the reflection ``R`` when they are one lead)."""
+        return float(np.sum(np.abs(self.matrix) ** 2))
+
+
+@dataclass(frozen=True, eq=False)
 class ScatteringMatrix:
     """Scattering matrix between the open channels of all leads at one energy.
+
+    Ask for a part of it by lead name (or index): ``s.amplitudes(source="left",
+    drain="right")``, ``s.transmission(source="left", drain="right")``.
 
     Attributes
     ----------
@@ -95,19 +124,37 @@ class ScatteringMatrix:
         flux-normalised, so that ``s`` is unitary.
     channel_lead : (N,) int ndarray
         Lead index of each channel (same ordering for rows and columns).
+    lead_names : tuple of str
+        Name of each lead, in the model's order.
     """
 
     energy: float
     s: np.ndarray
     channel_lead: np.ndarray
+    lead_names: tuple
 
-    def block(self, p: int, q: int) -> np.ndarray:
-        """Sub-matrix of amplitudes from lead q into lead p."""
-        return self.s[np.ix_(self.channel_lead == p, self.channel_lead == q)]
+    def _lead_index(self, role: str, lead) -> int:
+        if isinstance(lead, (int, np.integer)) and not isinstance(lead, (bool, np.bool_)):
+            if 0 <= lead < len(self.lead_names):
+                return int(lead)
+            raise LeadError(f"{role}={lead!r}: no lead with that index; the leads are "
+                            f"{', '.join(f'{i} {n!r}' for i, n in enumerate(self.lead_names))}")
+        if isinstance(lead, str) and lead in self.lead_names:
+            return self.lead_names.index(lead)
+        close = difflib.get_close_matches(str(lead), self.lead_names, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise LeadError(f"{role}={lead!r}: no such lead; {hint}the leads are "
+                        f"{', '.join(map(repr, self.lead_names))} (names or indices 0..{len(self.lead_names) - 1})")
 
-    def transmission(self, p: int, q: int) -> float:
-        """``T_pq = sum |s_{p<-q}|^2`` (for p = q this is the reflection ``R_pp``)."""
-        return float(np.sum(np.abs(self.block(p, q)) ** 2))
+    def amplitudes(self, *, source, drain) -> LeadAmplitudes:
+        """Amplitudes from lead ``source`` into lead ``drain`` (names, or indices in the model's order)."""
+        q, p = self._lead_index("source", source), self._lead_index("drain", drain)
+        block = self.s[np.ix_(self.channel_lead == p, self.channel_lead == q)]
+        return LeadAmplitudes(source=self.lead_names[q], drain=self.lead_names[p], matrix=block)
+
+    def transmission(self, *, source, drain) -> float:
+        """``T = sum |s_{drain<-source}|^2`` (for source = drain this is the reflection ``R``)."""
+        return self.amplitudes(source=source, drain=drain).transmission
 
 
 def scattering_matrix(model: TightBindingModel, energy: float) -> ScatteringMatrix:
@@ -130,4 +177,5 @@ def _assemble_smatrix(model, modes, g_block, energy) -> ScatteringMatrix:
             psi = g_block(p, q) @ sources
             amp = outgoing_amplitudes(lead_p.coupling, mp, psi, back if p == q else None)
             s[offs[p]:offs[p + 1], offs[q]:offs[q + 1]] = amp
-    return ScatteringMatrix(energy=float(energy), s=s, channel_lead=channel_lead)
+    return ScatteringMatrix(energy=float(energy), s=s, channel_lead=channel_lead,
+                            lead_names=tuple(lead.name for lead in model.leads))

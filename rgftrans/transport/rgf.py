@@ -76,7 +76,7 @@ class TransmissionResult:
         return conductance_g0(self.transmission, self.spin_degeneracy)
 
     @property
-    def conductance_siemens(self) -> np.ndarray:
+    def conductance_S(self) -> np.ndarray:
         """Zero-temperature conductance in siemens, ``(g_s e^2/h) T`` (e, h from scipy.constants)."""
         return self.conductance_g0 * CONDUCTANCE_QUANTUM_S
 

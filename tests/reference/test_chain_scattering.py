@@ -94,8 +94,8 @@ def test_single_impurity_table(energy, v, t_table, r_table):
     # Fisher-Lee reflection (Fisher & Lee 1981, from memory): R = |r|^2, r = V/(2i t sin k - V) (Economou
     # 2006, from memory); R table at 12 decimals -> TOL_TABLE_12.
     smat = scattering_matrix(model, e_pkg)
-    assert abs(smat.transmission(0, 0) - r_table) < TOL_TABLE_12
-    assert abs(smat.transmission(1, 1) - r_table) < TOL_TABLE_12
+    assert abs(smat.transmission(source="L", drain="L") - r_table) < TOL_TABLE_12
+    assert abs(smat.transmission(source="R", drain="R") - r_table) < TOL_TABLE_12
 
 
 @pytest.mark.parametrize("energy, v", [(-1.9, -0.7), (0.2, 5.0), (1.3, -2.2), (-0.8, 0.05)])
@@ -107,9 +107,9 @@ def test_single_impurity_amplitudes_closed_form(energy, v, site):
     t_amp, r_amp = s2ik / (s2ik - v), v / (s2ik - v)  # Economou 2006 (from memory)
     # |t|, |r| are free of the lead-dependent phases (Fisher & Lee 1981: S is fixed only up to lead phases,
     # from memory); TOL_T (round-off).
-    assert abs(abs(smat.block(1, 0)[0, 0]) - abs(t_amp)) < TOL_T
-    assert abs(abs(smat.block(0, 0)[0, 0]) - abs(r_amp)) < TOL_T
-    assert abs(abs(smat.block(1, 1)[0, 0]) - abs(r_amp)) < TOL_T
+    assert abs(abs(smat.amplitudes(source="L", drain="R").matrix[0, 0]) - abs(t_amp)) < TOL_T
+    assert abs(abs(smat.amplitudes(source="L", drain="L").matrix[0, 0]) - abs(r_amp)) < TOL_T
+    assert abs(abs(smat.amplitudes(source="R", drain="R").matrix[0, 0]) - abs(r_amp)) < TOL_T
     # The impurity position does not change T (translation invariance of the clean chain; common practice,
     # no source); TOL_T.
     t_rgf = transmission(model, [energy + ONSITE_SHIFT]).transmission[0]
@@ -279,7 +279,7 @@ def test_potential_step_table(energy, u, t_table):
     # Unitarity with different leads (different velocities): R + T = 1 (Fisher & Lee 1981, Buttiker 1986,
     # from memory); TOL_T.
     smat = scattering_matrix(model, e_pkg)
-    assert abs(smat.transmission(0, 0) + smat.transmission(1, 0) - 1) < TOL_T
+    assert abs(smat.transmission(source="L", drain="L") + smat.transmission(source="L", drain="R") - 1) < TOL_T
 
 
 @pytest.mark.parametrize("energy, u", [(-0.9, 0.9), (0.3, -1.5), (1.5, 1.0), (-1.95, -0.04)])
@@ -296,7 +296,7 @@ def test_potential_step_closed_channel(energy, u):
     result = transmission(model, [energy + ONSITE_SHIFT])
     assert list(result.n_open[0]) == [1, 0]
     assert abs(result.transmission[0]) < TOL_T
-    assert abs(scattering_matrix(model, energy + ONSITE_SHIFT).transmission(0, 0) - 1) < TOL_T
+    assert abs(scattering_matrix(model, energy + ONSITE_SHIFT).transmission(source="L", drain="L") - 1) < TOL_T
 
 
 @pytest.mark.parametrize("e_em, u_em", [(1e-3, 5e-4), (4e-3, 1e-3)])

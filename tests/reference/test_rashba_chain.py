@@ -35,7 +35,7 @@ def test_bloch_phases_of_the_rashba_wire(alpha, energy):
     theta = np.arctan(alpha / 2)
     k0 = np.arccos((4 - energy) / (2 * t_prime))
     expected = np.sort(np.mod([k0 + theta, k0 - theta, -k0 + theta, -k0 - theta], 2 * np.pi))
-    got = np.sort(np.mod(np.angle(np.concatenate([modes.lam_out[modes.propagating_out], modes.lam_in])), 2 * np.pi))
+    got = np.sort(np.mod(np.angle(np.concatenate([modes.bloch_out[modes.propagating_out], modes.bloch_in])), 2 * np.pi))
     assert modes.n_open == 2
     assert np.allclose(got, expected, atol=1e-10)  # eigen-solver round-off only
 

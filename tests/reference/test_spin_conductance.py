@@ -86,12 +86,12 @@ def test_clean_wire_same_conductance_with_and_without_spin_orbitals():
     # T counts both spins with explicit spin orbitals: twice the spinless T (exact up to roundoff).
     assert np.allclose(spinful.transmission, 2 * plain.transmission, rtol=0, atol=TOL_SAME)
     assert np.allclose(spinful.conductance_g0, plain.conductance_g0, rtol=0, atol=TOL_SAME)
-    assert np.allclose(spinful.conductance_siemens, plain.conductance_siemens, rtol=0,
+    assert np.allclose(spinful.conductance_S, plain.conductance_S, rtol=0,
                        atol=TOL_SAME * CONDUCTANCE_QUANTUM_S)
     # Both equal the channel count N(E) in units of 2e^2/h, i.e. 2 N e^2/h in siemens.
     n = np.array([spin_resolved_count(x - ONSITE_SHIFT, 0.0) for x in e]) / 2
     assert np.allclose(plain.conductance_g0, n, rtol=0, atol=TOL_PLATEAU)
-    assert np.allclose(spinful.conductance_siemens, 2 * n * E2_OVER_H_S, rtol=1e-12, atol=TOL_PLATEAU * 1e-4)
+    assert np.allclose(spinful.conductance_S, 2 * n * E2_OVER_H_S, rtol=1e-12, atol=TOL_PLATEAU * 1e-4)
 
 
 def test_zeeman_split_wire_steps_by_half_a_quantum():

@@ -158,5 +158,5 @@ def test_conductance_on_a_plateau(strip_w10, energy, n_table):
     # G = (2e^2/h) T with spin degeneracy (Landauer 1957, from memory) and 2e^2/h = 7.748091729864e-5 S
     # (exact 2019 SI e and h, 13 digits).
     # Relative tolerance: 1e-8 from T (|T - N| < 1e-8 over N >= 1) plus the table's rounding (7e-14).
-    assert result.conductance_siemens[0] == pytest.approx(n_table * CONDUCTANCE_QUANTUM_S, rel=1e-8)
+    assert result.conductance_S[0] == pytest.approx(n_table * CONDUCTANCE_QUANTUM_S, rel=1e-8)
     assert result.conductance_g0[0] == pytest.approx(n_table, abs=TOL_T)

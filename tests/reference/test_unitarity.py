@@ -134,7 +134,7 @@ def test_cluster_caroli_equals_s_matrix(cluster_s):
             if p != q:
                 # Caroli T_pq = Tr[Gamma_p G Gamma_q G^dag] (Caroli et al. 1971) equals sum |S_pq|^2 (Fisher
                 # & Lee 1981), both from memory; TOL.
-                assert abs(t_caroli[p, q] - smat.transmission(p, q)) < TOL
+                assert abs(t_caroli[p, q] - smat.transmission(source=q, drain=p)) < TOL
 
 
 @pytest.mark.parametrize("sign", [+1, -1])
@@ -231,13 +231,13 @@ def test_strip_fisher_lee(disordered_strip, energy, n_expected):
     # from memory); TOL.
     smat = scattering_matrix(model, e_pkg)
     assert unitarity_residual(smat.s) < TOL
-    t_pkg = smat.block(1, 0)
+    t_pkg = smat.amplitudes(source="L", drain="R").matrix
     assert t_pkg.shape == (n, n)
     tau_pkg = np.sort(np.linalg.eigvalsh(t_pkg.conj().T @ t_pkg))
     tau_fl = np.sort(np.linalg.eigvalsh(t.conj().T @ t))
     assert np.abs(tau_pkg - tau_fl).max() < TOL
-    assert abs(smat.transmission(1, 0) + smat.transmission(0, 0) - n) < TOL
-    assert abs(smat.transmission(0, 1) + smat.transmission(1, 1) - n) < TOL
+    assert abs(smat.transmission(source="L", drain="R") + smat.transmission(source="L", drain="L") - n) < TOL
+    assert abs(smat.transmission(source="R", drain="L") + smat.transmission(source="R", drain="R") - n) < TOL
 
 
 @pytest.mark.parametrize("energy", [-3.0, -1.0, 0.1, 2.2])
@@ -284,14 +284,15 @@ def test_unitarity_in_field(energy):
     # S unitary with magnetic leads (Fisher & Lee 1981, from memory); TOL.
     assert unitarity_residual(s_plus.s) < TOL
     n_left = int(np.count_nonzero(s_plus.channel_lead == 0))
-    assert abs(s_plus.transmission(1, 0) + s_plus.transmission(0, 0) - n_left) < TOL  # T + R = N (unitarity)
+    t_plus, r_plus = s_plus.transmission(source="L", drain="R"), s_plus.transmission(source="L", drain="L")
+    assert abs(t_plus + r_plus - n_left) < TOL  # T + R = N (unitarity)
     # Reciprocity S(phi) = S(-phi)^T (Buttiker 1988, from memory) in a form free of the leads' mode phases
     # and channel order (TOL):
     # t_{RL}(phi) and t_{LR}(-phi) have the same singular values, R_LL(phi) = R_LL(-phi) by the same token.
-    sv_plus = np.linalg.svd(s_plus.block(1, 0), compute_uv=False)
-    sv_minus = np.linalg.svd(s_minus.block(0, 1), compute_uv=False)
+    sv_plus = np.linalg.svd(s_plus.amplitudes(source="L", drain="R").matrix, compute_uv=False)
+    sv_minus = np.linalg.svd(s_minus.amplitudes(source="R", drain="L").matrix, compute_uv=False)
     assert np.abs(np.sort(sv_plus) - np.sort(sv_minus)).max() < TOL
-    assert abs(s_plus.transmission(0, 0) - s_minus.transmission(0, 0)) < TOL
+    assert abs(s_plus.transmission(source="L", drain="L") - s_minus.transmission(source="L", drain="L")) < TOL
 
 
 # --- Multi-terminal device with multichannel leads (zero field) -------------------------------------
@@ -322,14 +323,14 @@ def test_multiterminal_sum_rules(three_lead_device, energy):
     for p in range(3):
         # Sum rules from unitarity: sum_q T_pq = N_p and sum_q T_qp = N_p (R included) (Buttiker 1986, from
         # memory); TOL.
-        assert abs(sum(smat.transmission(p, q) for q in range(3)) - n_open[p]) < TOL
-        assert abs(sum(smat.transmission(q, p) for q in range(3)) - n_open[p]) < TOL
+        assert abs(sum(smat.transmission(source=q, drain=p) for q in range(3)) - n_open[p]) < TOL
+        assert abs(sum(smat.transmission(source=p, drain=q) for q in range(3)) - n_open[p]) < TOL
         for q in range(3):
             if p != q:
                 # Caroli equals sum |S_pq|^2 (Caroli et al. 1971; Fisher & Lee 1981), and at zero field
                 # T_pq = T_qp (Buttiker 1986), all from memory; TOL.
-                assert abs(t_caroli[p, q] - smat.transmission(p, q)) < TOL
-                assert abs(smat.transmission(p, q) - smat.transmission(q, p)) < TOL
+                assert abs(t_caroli[p, q] - smat.transmission(source=q, drain=p)) < TOL
+                assert abs(smat.transmission(source=q, drain=p) - smat.transmission(source=p, drain=q)) < TOL
 
 
 def test_scattering_matrix_on_a_channel_threshold():
