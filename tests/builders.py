@@ -49,7 +49,8 @@ class RandomDevice:
         return f"RandomDevice({self.description}, after {self.candidates} candidate(s))"
 
 
-def strip_device(width: int, length: int, *, sides=("left", "right"), potential=0.0) -> Device:
+def strip_device(width: int, length: int, *, sides=("left", "right"), potential=0.0,
+                 names=("source", "drain")) -> Device:
     """A straight ``width``-row x ``length``-column strip with full-width leads on two opposite sides.
 
     With ``sides=("left", "right")`` the strip runs along x (``length`` columns
@@ -62,7 +63,7 @@ def strip_device(width: int, length: int, *, sides=("left", "right"), potential=
     else:
         region = rectangle(-pad, -pad, width - 1.0 + pad, length - 1.0 + pad)
     span = (0.0, width - 1.0)
-    leads = [Lead("source", sides[0], span), Lead("drain", sides[1], span)]
+    leads = [Lead(names[0], sides[0], span), Lead(names[1], sides[1], span)]
     return Device(region, leads, lattice=square(1.0), hopping=T_HOP, potential=potential)
 
 

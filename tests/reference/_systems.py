@@ -52,8 +52,8 @@ def strip_device(width, length, potential=0.0, *, orientation="horizontal"):
     ``orientation="vertical"`` runs the strip along y, with bottom and top leads.  The strip itself is the
     suite's one strip builder (:func:`builders.strip_device`).
     """
-    sides = ("left", "right") if orientation == "horizontal" else ("bottom", "top")
-    return _strip(width, length, sides=sides, potential=potential).discretise()
+    sides, names = (("left", "right"), ("L", "R")) if orientation == "horizontal" else (("bottom", "top"), ("B", "T"))
+    return _strip(width, length, sides=sides, potential=potential, names=names).discretise()
 
 
 def site_table_potential(table):
