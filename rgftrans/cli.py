@@ -116,9 +116,9 @@ def _print_regime(cfg, device, model, poles) -> None:
         return
     energies = cfg.energies()
     temps = cfg.temperatures()
-    est = regime_estimate(device, model, fermi_energy_meV=cfg.fermi_energy_meV,
+    est = regime_estimate(device, model, fermi_energy=cfg.fermi_energy_meV,
                           temperature_K=float(temps.min()) if temps.size else 0.0,
-                          energy_window_meV=(float(energies[0]), float(energies[-1])), poles=poles, warn=False)
+                          energy_window=(float(energies[0]), float(energies[-1])), poles=poles, warn=False)
     lines = est.lines()
     print(f"  regime: {lines[0]}")
     for line in lines[1:-1]:
@@ -270,7 +270,7 @@ def _cmd_plot(args) -> int:
     from rgftrans.plots.figures import plot_result
 
     fig, _ = plot_result(args.result, lead_out=args.lead_out, lead_in=args.lead_in, energy=args.energy,
-                         temperature=args.temperature, over_energy=args.over_energy)
+                         temperature_K=args.temperature, over_energy=args.over_energy)
     out = Path(args.out or Path(args.result).with_suffix(".png"))
     out.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(out, dpi=150, bbox_inches="tight")

@@ -49,10 +49,11 @@ def test_source_and_drain_are_keyword_only(smat):
 
 
 @pytest.mark.parametrize("query, message", [
-    (dict(source="sorce", drain="drain"), "source='sorce': no such lead; did you mean 'source'? the leads are "
-                                          "'source', 'drain', 'probe' (names or indices 0..2)"),
-    (dict(source="source", drain=3), "drain=3: no lead with that index; the leads are 0 'source', 1 'drain', 2 'probe'"),
-    (dict(source=True, drain="drain"), "source=True: no such lead"),
+    (dict(source="sorce", drain="drain"), "source='sorce': no lead named 'sorce'; did you mean 'source'? the "
+                                          "scattering matrix has ['source', 'drain', 'probe'] (names or indices 0..2)"),
+    (dict(source="source", drain=3), "drain=3: lead index 3 is out of range; the scattering matrix has "
+                                     "['source', 'drain', 'probe'] (indices 0..2)"),
+    (dict(source=True, drain="drain"), "source=True: a lead is given by name or index"),
 ])
 def test_unknown_leads_are_one_line_errors(smat, query, message):
     with pytest.raises(LeadError) as err:

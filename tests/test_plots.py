@@ -268,7 +268,7 @@ def test_transmission_figure_labels(model_and_device):
 
 # --- result files -----------------------------------------------------------------------------------------------
 def test_two_gate_sweep_draws_the_map_first_gate_on_x(files, figure_dir):
-    fig, ax = plot_result(files["two"], energy=6.5, temperature=1.0)
+    fig, ax = plot_result(files["two"], energy=6.5, temperature_K=1.0)
     fig.savefig(figure_dir / "two_gate_map.png", dpi=120, bbox_inches="tight")
     _assert_physical_labels(fig)
     assert ax.get_xlabel() == "upper gate voltage (mV)" and ax.get_ylabel() == "lower gate voltage (mV)"
@@ -287,7 +287,7 @@ def test_map_shows_the_chosen_temperature(files):
     k = int(np.argmin(np.abs(data.energies_meV - 6.5)))
     stored = data.quantities["conductance"][..., k, :, 1, 0]  # (upper, lower, temperature)
     for j, temp in enumerate((0.0, 1.0)):
-        _, ax = plot_result(files["two"], energy=6.5, temperature=temp)
+        _, ax = plot_result(files["two"], energy=6.5, temperature_K=temp)
         assert np.allclose(ax.collections[0].get_array(), stored[..., j].T, equal_nan=True)
     assert not np.allclose(stored[..., 0], stored[..., 1])  # the two temperatures differ, so the check bites
 
@@ -303,7 +303,7 @@ def test_one_gate_sweep_draws_one_line_per_temperature(files, figure_dir):
 
 
 def test_over_energy(files):
-    fig, ax = plot_result(files["one"], over_energy=True, temperature=0.0)
+    fig, ax = plot_result(files["one"], over_energy=True, temperature_K=0.0)
     _assert_physical_labels(fig)
     assert ax.get_xlabel() == "chemical potential μ (meV)" and ax.get_ylabel() == "upper gate voltage (mV)"
     fig, ax = plot_result(files["none"])
@@ -320,7 +320,7 @@ def test_energy_outside_the_stored_range_is_refused(files, energy):
 
 def test_unstored_temperature_is_refused(files):
     with pytest.raises(StoreError, match=r"holds 0, 1 K") as error:
-        plot_result(files["two"], temperature=0.3)
+        plot_result(files["two"], temperature_K=0.3)
     assert "\n" not in str(error.value)
 
 

@@ -29,11 +29,10 @@ from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-import scipy.sparse as sp
 
 from rgftrans.analysis.darkstates import PROTECTED_WIDTH, WIDTH_FLOOR, inside_window, progress_bar, report_beside
 from rgftrans.errors import EigenSolveFailed, RgftransError
-from rgftrans.leads.embedding import lead_self_energies
+from rgftrans.leads.embedding import embedded_self_energy, lead_self_energies
 from rgftrans.spectra.eigen import eigenvalues_near
 from rgftrans.spectra.poles import follow_pole
 from rgftrans.system.device import TightBindingModel
@@ -114,12 +113,8 @@ def _real_part(model: TightBindingModel, energy: float):
     """``H + Lambda(E)`` (sparse, real) and the channel vectors embedded in the device (one column each)."""
     sigmas, modes = lead_self_energies(model, energy, warn=False)
     n = model.hamiltonian.shape[0]
-    rows, cols, vals, chans, names, gammas = [], [], [], [], [], []
+    chans, names, gammas = [], [], []
     for lead, sigma in zip(model.leads, sigmas):
-        r, c = np.meshgrid(lead.interface, lead.interface, indexing="ij")
-        rows.append(r.ravel())
-        cols.append(c.ravel())
-        vals.append((0.5 * (sigma + sigma.T)).real.ravel())
         gam, vecs = _channel_vectors(1j * (sigma - sigma.conj().T))
         gammas.extend(gam)
         for k in range(vecs.shape[1]):
@@ -127,7 +122,8 @@ def _real_part(model: TightBindingModel, energy: float):
             full[lead.interface] = vecs[:, k]
             chans.append(full)
             names.append((lead.name, k))
-    sigma_hermitian = sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
+    # Lambda: the real symmetric part of each Sigma (time-reversal symmetric leads: Sigma = Sigma^T).
+    sigma_hermitian = embedded_self_energy(model, [(0.5 * (sigma + sigma.T)).real for sigma in sigmas]).real
     h_real = (model.hamiltonian.real + sigma_hermitian).tocsr()
     w_mat = np.array(chans).T if chans else np.zeros((n, 0))
     return h_real, w_mat, tuple(names), tuple(int(m.n_open) for m in modes), np.array(gammas)

@@ -138,14 +138,14 @@ class CouplingDiagnostics:
     verdict: str
 
 
-def coupling_diagnostics(model: TightBindingModel, energy_meV: float, *, tolerance: float = 1e-4
+def coupling_diagnostics(model: TightBindingModel, energy: float, *, tolerance: float = 1e-4
                          ) -> CouplingDiagnostics:
-    """Two-level analysis of the closed-dot states nearest ``energy_meV`` (see the module docstring)."""
+    """Two-level analysis of the closed-dot states nearest ``energy`` (see the module docstring)."""
     ham = model.hamiltonian
-    evals, psi = eigenvalues_near(ham, energy_meV, 2, hermitian=True)
+    evals, psi = eigenvalues_near(ham, energy, 2, hermitian=True)
     order = np.argsort(evals)
     evals, psi = evals[order], psi[:, order]
-    sigmas, _ = lead_self_energies(model, energy_meV, warn=False)
+    sigmas, _ = lead_self_energies(model, energy, warn=False)
     h0 = psi.conj().T @ (ham @ psi)
     couplings = []
     for lead, sigma in zip(model.leads, sigmas):
@@ -181,7 +181,7 @@ def coupling_diagnostics(model: TightBindingModel, energy_meV: float, *, toleran
         parts.append("degeneracy condition " + ("met" if residual < tolerance else "not met") +
                      f" (residual {residual:.1e})")
         verdict = "; ".join(parts) + ": no BIC here"
-    return CouplingDiagnostics(energy_meV=float(energy_meV), state_energies_meV=evals, h0=h0, couplings=couplings,
+    return CouplingDiagnostics(energy_meV=float(energy), state_energies_meV=evals, h0=h0, couplings=couplings,
                                decoupled=decoupled, coupling_mismatch=mismatch, degeneracy_residual=residual,
                                verdict=verdict)
 

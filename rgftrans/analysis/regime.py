@@ -95,7 +95,7 @@ def disk_charging_energy_meV(area_nm2: float, eps_r: float) -> tuple[float, floa
     return constants.e**2 / capacitance / _MEV, capacitance
 
 
-def dot_area_nm2(model, *, site_area_nm2: float, fermi_energy_meV: float | None = None) -> tuple[float, str]:
+def dot_area_nm2(model, *, site_area_nm2: float, fermi_energy: float | None = None) -> tuple[float, str]:
     """Area of the dot (nm²) and how it was found (see the module docstring).
 
     Parameters
@@ -104,14 +104,14 @@ def dot_area_nm2(model, *, site_area_nm2: float, fermi_energy_meV: float | None 
         With ``potential_meV`` (models from :meth:`Device.discretise`).
     site_area_nm2 : float
         Area per lattice site (the unit cell's area over its basis sites).
-    fermi_energy_meV : float, optional
+    fermi_energy : float, optional, meV
         Without it, or without a potential, the whole device counts.
     """
     site_area = _positive(site_area_nm2, "site_area_nm2")
     u = model.potential_meV
-    if fermi_energy_meV is None or u is None or np.ptp(u) == 0.0:
+    if fermi_energy is None or u is None or np.ptp(u) == 0.0:
         return model.n_sites * site_area, "device region"
-    allowed = u < fermi_energy_meV
+    allowed = u < fermi_energy
     if not np.any(allowed):
         return model.n_sites * site_area, "device region (the whole device lies above E_F)"
     coo = model.hamiltonian.tocoo()
@@ -197,8 +197,8 @@ class RegimeEstimate:
         ]
 
 
-def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None, temperature_K: float = 0.0,
-                    widths: bool = True, energy_window_meV: tuple[float, float] | None = None,
+def regime_estimate(device, model=None, *, fermi_energy: float | None = None, temperature_K: float = 0.0,
+                    widths: bool = True, energy_window: tuple[float, float] | None = None,
                     area_nm2: float | None = None, poles=None, warn: bool = True) -> RegimeEstimate:
     """Estimate Δ, E_C and Γ of a dot and say whether Coulomb blockade would dominate a measurement.
 
@@ -208,7 +208,7 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
         Gives the material (m*, ε) and the lattice (area per site).
     model : TightBindingModel, optional
         ``device.discretise()`` if not given.
-    fermi_energy_meV : float, optional
+    fermi_energy : float, optional, meV
         Where the dot's region ends (the potential below E_F); without it the
         dot is the whole device.
     temperature_K : float
@@ -217,7 +217,7 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
         Compute the typical level width from the resonance poles in the window
         (a few eigenvalue solves) and the mean conductance over the window
         (:data:`CONDUCTANCE_SAMPLES` energies).
-    energy_window_meV : (float, float), optional
+    energy_window : (float, float), optional
         The energies of interest (meV); without it neither is computed.
     poles : (n, 2) array_like, optional
         :func:`rgftrans.spectra.poles.window_poles` of the window, if already at hand.
@@ -236,21 +236,21 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
     lattice = device.lattice
     site_area = abs(float(np.linalg.det(lattice.vectors))) / len(lattice.basis)
     if area_nm2 is None:
-        area, source = dot_area_nm2(model, site_area_nm2=site_area, fermi_energy_meV=fermi_energy_meV)
+        area, source = dot_area_nm2(model, site_area_nm2=site_area, fermi_energy=fermi_energy)
     else:
         area, source = _positive(area_nm2, "area_nm2"), "given"
     spacing = level_spacing_meV(area, material.m_eff)
     e_c, capacitance = disk_charging_energy_meV(area, material.eps_r)
     gamma, n_widths = (None, 0)
-    if widths and energy_window_meV is not None:
+    if widths and energy_window is not None:
         if poles is None:
             from rgftrans.spectra.poles import window_poles
 
-            poles = window_poles(model, energy_window_meV)
+            poles = window_poles(model, energy_window)
         gamma, n_widths = typical_level_width_meV(poles)
     g_mean = None
-    if widths and energy_window_meV is not None and len(model.leads) >= 2:
-        g_mean = mean_conductance_g0(model, energy_window_meV)
+    if widths and energy_window is not None and len(model.leads) >= 2:
+        g_mean = mean_conductance_g0(model, energy_window)
     temp = float(temperature_K)
     kT = constants.k * temp / _MEV
     open_contacts = g_mean is not None and g_mean >= OPEN_CONTACT_G0
@@ -275,11 +275,11 @@ def regime_estimate(device, model=None, *, fermi_energy_meV: float | None = None
                           coulomb_blockade=blockade, verdict=verdict)
 
 
-def mean_conductance_g0(model, energy_window_meV, *, samples: int = CONDUCTANCE_SAMPLES) -> float:
+def mean_conductance_g0(model, energy_window, *, samples: int = CONDUCTANCE_SAMPLES) -> float:
     """Mean zero-temperature conductance (2e²/h) from the first lead into the second over an energy window."""
     from rgftrans.transport.rgf import transmission_matrix
 
-    energies = np.linspace(float(energy_window_meV[0]), float(energy_window_meV[1]), samples)
+    energies = np.linspace(float(energy_window[0]), float(energy_window[1]), samples)
     with warnings.catch_warnings():  # threshold and resolution warnings belong to the real run, not this probe
         warnings.simplefilter("ignore")
         res = transmission_matrix(model, energies)

@@ -203,12 +203,12 @@ def thermal_energy_meV(temperature_K) -> float:
     return BOLTZMANN_MEV_PER_K * _check_temperature(temperature_K)
 
 
-def fermi(energy_meV, mu_meV, temperature_K):
+def fermi(energy, mu, temperature_K):
     """Fermi-Dirac occupation f(E) = 1 / (1 + exp((E - mu) / k_B T)).
 
     Parameters
     ----------
-    energy_meV, mu_meV : float or ndarray, meV
+    energy, mu : float or ndarray, meV
         Broadcast against each other.
     temperature_K : float, K
         At 0 K, f is the step Θ(mu - E) with f = 1/2 at E = mu.
@@ -222,13 +222,13 @@ def fermi(energy_meV, mu_meV, temperature_K):
     (0.5, 0.0)
     """
     kT = thermal_energy_meV(temperature_K)
-    de = np.subtract(energy_meV, mu_meV, dtype=float)
+    de = np.subtract(energy, mu, dtype=float)
     if kT == 0.0:
         return 0.5 * (1.0 - np.sign(de))
     return expit(-de / kT)
 
 
-def fermi_window(energy_meV, mu_meV, temperature_K):
+def fermi_window(energy, mu, temperature_K):
     """Thermal window -df/dE = 1 / (4 k_B T cosh²((E - mu) / 2 k_B T)) in 1/meV.
 
     Evaluated as e^{-|x|} / (k_B T (1 + e^{-|x|})²) with x = (E - mu)/k_B T, which
@@ -237,7 +237,7 @@ def fermi_window(energy_meV, mu_meV, temperature_K):
 
     Parameters
     ----------
-    energy_meV, mu_meV : float or ndarray, meV
+    energy, mu : float or ndarray, meV
     temperature_K : float, K
         Must be positive: at 0 K the window is a delta function.
 
@@ -251,7 +251,7 @@ def fermi_window(energy_meV, mu_meV, temperature_K):
             "fermi_window needs temperature_K > 0, got 0.0: at zero temperature -df/dE is a delta function; "
             "evaluate the transmission at mu instead"
         )
-    x = np.abs(np.subtract(energy_meV, mu_meV, dtype=float)) / kT
+    x = np.abs(np.subtract(energy, mu, dtype=float)) / kT
     q = np.exp(-x)
     return q / (kT * (1.0 + q) ** 2)
 

@@ -11,6 +11,7 @@ from rgftrans._lazy import lazy_exports
 #: Public name -> module of this subpackage that defines it.
 _EXPORTS = {
     "lead_self_energies": "embedding",
+    "embedded_self_energy": "embedding",
     "device_energy": "embedding",
     "broadening": "embedding",
     "gamma_columns": "embedding",

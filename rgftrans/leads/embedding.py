@@ -13,12 +13,14 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+import scipy.sparse as sp
 
 from rgftrans.errors import ThresholdWarning
 from rgftrans.leads.modes import lead_modes
 from rgftrans.system.device import TightBindingModel
 
-__all__ = ["lead_self_energies", "device_energy", "broadening", "gamma_columns", "warn_thresholds"]
+__all__ = ["lead_self_energies", "embedded_self_energy", "device_energy", "broadening", "gamma_columns",
+           "warn_thresholds"]
 
 
 def lead_self_energies(model: TightBindingModel, energy: float, *, warn: bool = True):
@@ -70,3 +72,24 @@ def gamma_columns(gamma: np.ndarray) -> np.ndarray:
     w, u = np.linalg.eigh(gamma)
     keep = w > _GAMMA_RANK_TOL * max(w.max(initial=0.0), 1e-300)
     return u[:, keep] * np.sqrt(w[keep])
+
+
+def embedded_self_energy(model: TightBindingModel, blocks) -> sp.csr_matrix:
+    """The leads' blocks placed on their interface orbitals of the device, as one sparse (n, n) matrix (meV).
+
+    ``blocks[p]`` is a (k_p, k_p) matrix on lead p's interface: its self-energy ``Sigma_p`` (then
+    ``H + result`` is the effective Hamiltonian of the open device and ``E - H - result`` the inverse of
+    its Green's function) or any matrix derived from it (its Hermitian part, its broadening).  The one
+    place the package scatters lead blocks into the device: the sparse direct solver, the pole solver and
+    the plane search of dark states use it.
+    """
+    n = model.hamiltonian.shape[0]
+    if not model.leads:
+        return sp.csr_matrix((n, n), dtype=complex)
+    rows, cols, vals = [], [], []
+    for lead, block in zip(model.leads, blocks):
+        r, c = np.meshgrid(lead.interface, lead.interface, indexing="ij")
+        rows.append(r.ravel())
+        cols.append(c.ravel())
+        vals.append(np.asarray(block).ravel())
+    return sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n)).tocsr()

@@ -529,7 +529,7 @@ def _pick_energy(path, data, energy) -> int:
 
 
 def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None, energy: float | None = None,
-                temperature=None, over_energy: bool = False, ax=None):
+                temperature_K=None, over_energy: bool = False, ax=None):
     """Stored conductance of a result file, as lines or maps, at the stored temperatures.
 
     What is drawn (points not yet computed are blank):
@@ -552,7 +552,7 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
         Chemical potential for plots over sweep parameters (nearest stored
         energy; default: the Fermi energy when stored, else the middle of the
         grid).  Must lie in the stored range.
-    temperature : float or sequence of float, optional, K
+    temperature_K : float or sequence of float, optional
         Stored temperature(s) to draw; default all of them for lines and the
         lowest for maps.
     over_energy : bool
@@ -590,10 +590,10 @@ def plot_result(path, *, lead_out: str | None = None, lead_in: str | None = None
     if over_energy and energy is not None:
         raise EnergyError("give either an energy (a cut at one chemical potential) or over_energy (plot against "
                           "energy), not both")
-    t_idx = _pick_temperatures(path, temps, temperature)
+    t_idx = _pick_temperatures(path, temps, temperature_K)
     is_map = (over_energy and n_plot == 1) or (not over_energy and n_plot == 2)
     if is_map:
-        t_idx = t_idx[:1] if temperature is not None else [int(np.argmin(temps))]
+        t_idx = t_idx[:1] if temperature_K is not None else [int(np.argmin(temps))]
     mu_label = "chemical potential μ (meV)"
     energies = data.energies_meV
     fig, ax = _axes(ax)

@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.sparse as sp
 
-from rgftrans.leads.embedding import lead_self_energies
+from rgftrans.leads.embedding import embedded_self_energy, lead_self_energies
 from rgftrans.spectra.eigen import eigenvalues_near
 from rgftrans.system.device import TightBindingModel
 
@@ -86,14 +86,7 @@ def effective_hamiltonian(model: TightBindingModel, energy: float) -> sp.csr_mat
     if not model.leads:
         return h.tocsr()
     sigmas, _ = lead_self_energies(model, float(energy), warn=False)
-    rows, cols, vals = [], [], []
-    for lead, sigma in zip(model.leads, sigmas):
-        r, c = np.meshgrid(lead.interface, lead.interface, indexing="ij")
-        rows.append(r.ravel())
-        cols.append(c.ravel())
-        vals.append(sigma.ravel())
-    extra = sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=h.shape)
-    return (h + extra).tocsr()
+    return (h + embedded_self_energy(model, sigmas)).tocsr()
 
 
 def _closed_hermitian(model: TightBindingModel) -> bool:
@@ -109,7 +102,7 @@ def _poles_near(model: TightBindingModel, energy: float, z: complex, count: int)
     return eigenvalues_near(effective_hamiltonian(model, energy), z, count)
 
 
-def resonances(model: TightBindingModel, target_meV: float, *, count: int = 3,
+def resonances(model: TightBindingModel, target: float, *, count: int = 3,
                max_iter: int = MAX_ITERATIONS) -> list[Resonance]:
     """Resonance poles nearest to a target energy, each self-consistent in ``Re z``.
 
@@ -117,7 +110,7 @@ def resonances(model: TightBindingModel, target_meV: float, *, count: int = 3,
     ----------
     model : TightBindingModel
         With or without leads (without: the closed system's levels, zero width when H is Hermitian).
-    target_meV : float
+    target : float
         Where to look (meV).
     count : int
         How many poles to return (nearest first).
@@ -133,12 +126,12 @@ def resonances(model: TightBindingModel, target_meV: float, *, count: int = 3,
     rgftrans.errors.EigenSolveFailed
         The shift-invert solve of a large model did not converge.
     """
-    w, v = _poles_near(model, target_meV, complex(target_meV), count)
+    w, v = _poles_near(model, target, complex(target), count)
     if not model.leads:
         out = [_level(model, complex(z), v[:, k]) for k, z in enumerate(w)]
     else:
         out = [_refine_pole(model, complex(z0), model.energy_scale, max_iter) for z0 in w]
-    out.sort(key=lambda r: abs(r.energy_meV - target_meV))
+    out.sort(key=lambda r: abs(r.energy_meV - target))
     return out
 
 
@@ -189,7 +182,7 @@ def follow_pole(model: TightBindingModel, energy: float, state=None, count: int 
     return _refine_pole(model, complex(w[pick]), model.energy_scale, MAX_ITERATIONS)
 
 
-def window_poles(model: TightBindingModel, window_meV, *, targets: int = POLE_TARGETS,
+def window_poles(model: TightBindingModel, window, *, targets: int = POLE_TARGETS,
                  count: int = POLES_PER_TARGET) -> np.ndarray:
     """Resonance poles ``(energy_meV, width_meV)`` of an open model with real parts in a window, by energy.
 
@@ -205,7 +198,7 @@ def window_poles(model: TightBindingModel, window_meV, *, targets: int = POLE_TA
     (n_poles, 2) float ndarray
         Rows ``(Re z, Γ)`` in meV, sorted by energy.
     """
-    lo, hi = float(window_meV[0]), float(window_meV[1])
+    lo, hi = float(window[0]), float(window[1])
     edges = np.linspace(lo, hi, targets + 1)
     found = []
     for k, (a, b) in enumerate(zip(edges[:-1], edges[1:])):

@@ -249,21 +249,29 @@ class TightBindingModel:
         return self.leads[self.lead_index(name)]
 
 
-def lead_index(names, lead, *, noun: str = "lead", owner: str = "the model") -> int:
+def lead_index(names, lead, *, noun: str = "lead", owner: str = "the model", role: str | None = None) -> int:
     """Position of ``lead`` (a name, or an index) among ``names``, or a one-line LeadError saying what there is.
 
-    The one lookup behind every place a lead is named: models, local quantities, waveguide ports, result
-    files and figures (``noun="port"``, ``owner="the waveguide"`` and the like change only the message).
+    The one lookup behind every place a lead is named: models, local quantities, scattering matrices,
+    waveguide ports, result files and figures.  ``noun`` ("port"), ``owner`` ("the waveguide") and ``role``
+    (the keyword the caller was given, e.g. "source") change only the message; a misspelt name gets the
+    nearest one suggested.
     """
+    import difflib
+
     names = list(names)
+    said = f"{role}={lead!r}: " if role else ""
+    listing = f"{owner} has {names}"
     if isinstance(lead, str):
-        if lead not in names:
-            raise LeadError(f"no {noun} named {lead!r}; {owner} has {names}")
-        return names.index(lead)
-    if isinstance(lead, bool) or not isinstance(lead, (int, np.integer)):
-        raise LeadError(f"a {noun} is given by name or index, got {lead!r}; {owner} has {names}")
+        if lead in names:
+            return names.index(lead)
+        close = difflib.get_close_matches(lead, names, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise LeadError(f"{said}no {noun} named {lead!r}; {hint}{listing} (names or indices 0..{len(names) - 1})")
+    if isinstance(lead, (bool, np.bool_)) or not isinstance(lead, (int, np.integer)):
+        raise LeadError(f"{said}a {noun} is given by name or index, got {lead!r}; {listing}")
     if not 0 <= int(lead) < len(names):
-        raise LeadError(f"{noun} index {lead} is out of range; {owner} has {len(names)} {noun}s {names}")
+        raise LeadError(f"{said}{noun} index {lead} is out of range; {listing} (indices 0..{len(names) - 1})")
     return int(lead)
 
 

@@ -18,18 +18,16 @@ expanded in lead p's outgoing modes; amplitudes are flux-normalised by
 
 from __future__ import annotations
 
-import difflib
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from rgftrans.errors import LeadError
-from rgftrans.system.device import TightBindingModel
+from rgftrans.system.device import TightBindingModel, lead_index
 from rgftrans.leads.modes import incoming_sources, outgoing_amplitudes, require_off_threshold
 from rgftrans.system.inputs import check_energies, check_eta, check_model
-from rgftrans.leads.embedding import device_energy, lead_self_energies
+from rgftrans.leads.embedding import device_energy, embedded_self_energy, lead_self_energies
 
 __all__ = ["interface_green", "transmission_direct", "ScatteringMatrix", "LeadAmplitudes", "scattering_matrix"]
 
@@ -46,12 +44,8 @@ def interface_green(model: TightBindingModel, energy: float, *, eta: float = 0.0
     sigmas, modes = lead_self_energies(model, energy, warn=warn)
     z = device_energy(energy, modes, eta)
     n = model.n_orbitals
-    mat = (z * sp.identity(n, dtype=complex, format="csc") - model.hamiltonian.tocsc()).tolil()
-    for lead, sigma in zip(model.leads, sigmas):
-        idx = lead.interface
-        block = mat[np.ix_(idx, idx)].toarray() - sigma
-        mat[np.ix_(idx, idx)] = block
-    lu = spla.splu(mat.tocsc())
+    mat = z * sp.identity(n, dtype=complex, format="csc") - model.hamiltonian - embedded_self_energy(model, sigmas)
+    lu = spla.splu(sp.csc_matrix(mat))
     iface = np.concatenate([lead.interface for lead in model.leads])
     rhs = np.zeros((n, len(iface)), dtype=complex)
     rhs[iface, np.arange(len(iface))] = 1.0
@@ -133,22 +127,10 @@ class ScatteringMatrix:
     channel_lead: np.ndarray
     lead_names: tuple
 
-    def _lead_index(self, role: str, lead) -> int:
-        if isinstance(lead, (int, np.integer)) and not isinstance(lead, (bool, np.bool_)):
-            if 0 <= lead < len(self.lead_names):
-                return int(lead)
-            raise LeadError(f"{role}={lead!r}: no lead with that index; the leads are "
-                            f"{', '.join(f'{i} {n!r}' for i, n in enumerate(self.lead_names))}")
-        if isinstance(lead, str) and lead in self.lead_names:
-            return self.lead_names.index(lead)
-        close = difflib.get_close_matches(str(lead), self.lead_names, n=1)
-        hint = f"did you mean {close[0]!r}? " if close else ""
-        raise LeadError(f"{role}={lead!r}: no such lead; {hint}the leads are "
-                        f"{', '.join(map(repr, self.lead_names))} (names or indices 0..{len(self.lead_names) - 1})")
-
     def amplitudes(self, *, source, drain) -> LeadAmplitudes:
         """Amplitudes from lead ``source`` into lead ``drain`` (names, or indices in the model's order)."""
-        q, p = self._lead_index("source", source), self._lead_index("drain", drain)
+        q = lead_index(self.lead_names, source, role="source", owner="the scattering matrix")
+        p = lead_index(self.lead_names, drain, role="drain", owner="the scattering matrix")
         block = self.s[np.ix_(self.channel_lead == p, self.channel_lead == q)]
         return LeadAmplitudes(source=self.lead_names[q], drain=self.lead_names[p], matrix=block)
 

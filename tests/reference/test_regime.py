@@ -66,7 +66,7 @@ def test_closed_dot_area_is_the_well():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ValidityWarning)
         model = device.discretise()
-    area, source = dot_area_nm2(model, site_area_nm2=25.0, fermi_energy_meV=7.0)
+    area, source = dot_area_nm2(model, site_area_nm2=25.0, fermi_energy=7.0)
     assert source.startswith("closed dot")
     # Lattice points inside a disk: their cells cover the disk up to the cells the rim crosses, at most
     # 2 pi r a of area (Gauss circle problem bound).
@@ -76,7 +76,7 @@ def test_closed_dot_area_is_the_well():
 def test_open_device_uses_the_allowed_region():
     device = well_device(60.0, barrier_meV=0.0)
     model = device.discretise()
-    area, source = dot_area_nm2(model, site_area_nm2=25.0, fermi_energy_meV=7.0)
+    area, source = dot_area_nm2(model, site_area_nm2=25.0, fermi_energy=7.0)
     assert source == "device region"  # no potential: the whole device
     assert area == pytest.approx(model.n_sites * 25.0)
 
@@ -87,8 +87,8 @@ def test_closed_dot_is_in_coulomb_blockade():
         warnings.simplefilter("ignore", ValidityWarning)
         model = device.discretise()
     with pytest.warns(ValidityWarning, match="Coulomb blockade would dominate"):
-        est = regime_estimate(device, model, fermi_energy_meV=7.0, temperature_K=0.1,
-                              energy_window_meV=(5.0, 9.0))
+        est = regime_estimate(device, model, fermi_energy=7.0, temperature_K=0.1,
+                              energy_window=(5.0, 9.0))
     assert est.coulomb_blockade
     assert est.mean_conductance_g0 == pytest.approx(0.0, abs=1e-12)  # closed leads carry nothing
     e_c, _ = disk_charging_energy_meV(est.area_nm2, 12.9)
@@ -100,7 +100,7 @@ def test_open_wire_is_coherent():
                   lattice=square(5.0))
     with warnings.catch_warnings():
         warnings.simplefilter("error", ValidityWarning)  # no blockade warning may come
-        est = regime_estimate(wire, fermi_energy_meV=6.0, temperature_K=0.1, energy_window_meV=(4.0, 8.0))
+        est = regime_estimate(wire, fermi_energy=6.0, temperature_K=0.1, energy_window=(4.0, 8.0))
     assert not est.coulomb_blockade
     assert est.mean_conductance_g0 > 3  # a clean 100 nm GaAs wire at 4-8 meV has several open channels
     assert "coherent regime" in est.verdict
