@@ -571,7 +571,7 @@ def _cmd_waveguide(args) -> int:
     say(f"{args.config}: {pm.model.n_sites} grid nodes, spacing {pm.spacing} {pm.unit}; "
         + "; ".join(f"port {lead.name!r} cutoffs " + ", ".join(f"{f:.4g}" for f in pm.cutoffs_GHz(k, 2)) + " GHz"
                     for k, lead in enumerate(pm.model.leads)))
-    t = spectrum.transmission[:, 1, 0]
+    t = spectrum.matrix[:, 1, 0]
     say(f"  T from {spectrum.port_names[0]!r} to {spectrum.port_names[1]!r}: {len(freqs)} frequencies "
         f"{freqs[0]:g}-{freqs[-1]:g} GHz, T between {t.min():.3g} and {t.max():.3g}; "
         f"max absorption {spectrum.absorption.max():.3g}")

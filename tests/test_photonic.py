@@ -58,7 +58,7 @@ def test_transmission_staircase_steps_at_the_grid_cutoffs():
     expected = np.searchsorted(fc, f)
     assert np.array_equal(s.n_open[:, 0], expected)
     # Clean guide T = N (ballistic, common practice, no source); round-off of the port eigen-solve, 1e-9.
-    assert np.allclose(s.transmission[:, 1, 0], expected, atol=1e-9)
+    assert np.allclose(s.matrix[:, 1, 0], expected, atol=1e-9)
 
 
 def cavity(loss_tangent=0.0, spacing=0.5):
@@ -72,7 +72,7 @@ def cavity(loss_tangent=0.0, spacing=0.5):
 def test_flux_conservation_without_losses():
     """T + R = N for every input port (current conservation; common practice, no source), to 1e-10."""
     s = quiet(waveguide_spectrum, cavity(), np.linspace(21.5, 50, 25))
-    total = s.transmission.sum(axis=1)
+    total = s.matrix.sum(axis=1)
     assert np.allclose(total, s.n_open, atol=1e-10) and np.abs(s.absorption).max() < 1e-10
     assert s.n_open.max() >= 2  # the band reaches the two-mode range of the inlet
 
@@ -84,7 +84,7 @@ def test_rgf_matches_sparse_direct_solve_with_losses():
         s = quiet(waveguide_spectrum, pm, [f])
         direct = transmission_direct(pm.model_at(k0a_squared), [k0a_squared])[0, 1, 0]
         # Two independent solvers of the same lossy model: round-off, 1e-9 relative.
-        assert s.transmission[0, 1, 0] == pytest.approx(direct, rel=1e-9)
+        assert s.matrix[0, 1, 0] == pytest.approx(direct, rel=1e-9)
 
 
 def test_absorbed_power_equals_one_minus_t_minus_r():
@@ -96,7 +96,7 @@ def test_absorbed_power_equals_one_minus_t_minus_r():
     for k, f in enumerate(freqs):
         fm = quiet(waveguide_field, pm, f)
         assert s.n_open[k, 0] == 1
-        assert fm.absorbed == pytest.approx(1 - s.transmission[k, 1, 0] - s.transmission[k, 0, 0], abs=1e-10)
+        assert fm.absorbed == pytest.approx(1 - s.matrix[k, 1, 0] - s.matrix[k, 0, 0], abs=1e-10)
         assert fm.absorbed > 1e-3
 
 
@@ -116,7 +116,7 @@ def test_single_mode_slab_converges_to_fabry_perot():
         slab = Dielectric(rectangle(7.5, -1, 7.5 + length, H + 1), eps, name="slab")
         s = quiet(waveguide_spectrum, straight(a, dielectrics=[slab]), f)
         assert np.all(s.n_open[:, 0] == 1)
-        errs.append(np.abs(s.transmission[:, 1, 0] - exact))
+        errs.append(np.abs(s.matrix[:, 1, 0] - exact))
     assert np.all(np.abs(np.log2(errs[0] / errs[1]) - 2) < 0.1)
     assert errs[1].max() < 3e-3
 
@@ -145,7 +145,7 @@ def test_resonance_q_in_frequency_matches_the_fano_fit():
     (r,) = [r for r in waveguide_resonances(pm, 30.0, count=3) if 100 < r.q_factor < 1000]  # the isolated line near 29.95 GHz
     f = r.frequency_GHz + np.linspace(-1.5, 1.5, 241) * r.width_GHz  # wider windows take in the tails of the
     # neighbouring lines 6 widths away, which bend the background the profile assumes flat
-    fit = fit_fano(f, quiet(waveguide_spectrum, pm, f).transmission[:, 1, 0], energy_guess=r.frequency_GHz,
+    fit = fit_fano(f, quiet(waveguide_spectrum, pm, f).matrix[:, 1, 0], energy_guess=r.frequency_GHz,
                    width_guess=r.width_GHz)
     assert fit.energy_meV / fit.width_meV == pytest.approx(r.q_factor, rel=0.03)  # (fit_fano is unit-agnostic)
 

@@ -70,7 +70,7 @@ def _fit():
 def _waveguide_run():
     """Stands in for a WaveguideRun: what write_waveguide reads of it (the storage is under test, not the physics)."""
     freqs = np.linspace(5.0, 6.0, 4)
-    spectrum = SimpleNamespace(frequencies_GHz=freqs, transmission=np.zeros((4, 2, 2)), n_open=np.ones((4, 2), int),
+    spectrum = SimpleNamespace(frequencies_GHz=freqs, matrix=np.zeros((4, 2, 2)), n_open=np.ones((4, 2), int),
                                absorption=np.zeros((4, 2)), port_names=("in", "out"))
     model = SimpleNamespace(spacing=1.0, unit="mm", cutoffs_GHz=lambda k, n: np.arange(1.0, n + 1.0))
     return SimpleNamespace(model=model, spectrum=spectrum, search=None, dark_modes=[], config_text="[waveguide]\n")

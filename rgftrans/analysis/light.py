@@ -31,19 +31,19 @@ class Spectrum:
     Attributes
     ----------
     frequencies_GHz : (n_f,) float
-    transmission : (n_f, n_ports, n_ports) float
-        ``[f, out, in]``: power carried into port ``out`` per unit power sent
+    matrix : (n_f, n_ports, n_ports) float
+        ``matrix[f, out, in]``: power carried into port ``out`` per unit power sent
         in all open modes of port ``in``, summed over modes; the diagonal holds
         the reflection.
     n_open : (n_f, n_ports) int
         Propagating modes of each port.
     absorption : (n_f, n_ports) float
-        Per input port: ``N_in - sum_out T[out, in]`` (zero without losses).
+        Per input port: ``N_in - sum_out matrix[out, in]`` (zero without losses).
     port_names : tuple of str
     """
 
     frequencies_GHz: np.ndarray
-    transmission: np.ndarray
+    matrix: np.ndarray
     n_open: np.ndarray
     absorption: np.ndarray
     port_names: tuple
@@ -167,7 +167,7 @@ def waveguide_spectrum(pm: PhotonicModel, frequencies_GHz) -> Spectrum:
         tmat, n_open = res.matrix, res.n_open
     absorption = n_open - tmat.sum(axis=1)
     names = tuple(lead.name for lead in pm.model.leads)
-    return Spectrum(frequencies_GHz=freqs, transmission=tmat, n_open=n_open, absorption=absorption,
+    return Spectrum(frequencies_GHz=freqs, matrix=tmat, n_open=n_open, absorption=absorption,
                     port_names=names)
 
 

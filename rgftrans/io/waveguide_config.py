@@ -283,7 +283,7 @@ def run_waveguide(config_path, *, progress: bool = True) -> WaveguideRun:
     freqs = cfg.frequencies_GHz()
     pm = cfg.build().discretise()
     spectrum = waveguide_spectrum(pm, freqs)
-    t = spectrum.transmission[:, 1, 0]
+    t = spectrum.matrix[:, 1, 0]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ResolutionWarning)
         fits = find_resonances(freqs, t)  # unit-agnostic: its "energies" are frequencies here
@@ -359,7 +359,7 @@ def write_waveguide(run: WaveguideRun, path, *, overwrite: bool = False) -> None
     freq = ("frequency",)
     g = {"frequency": StoredArray(spectrum.frequencies_GHz, "GHz", "frequency", scale=True)}
     for key, data, long in (
-            ("transmission", spectrum.transmission,
+            ("transmission", spectrum.matrix,
              "power transmission [frequency, port_out, port_in]; diagonal: reflection"),
             ("n_open", spectrum.n_open, "propagating modes of each port"),
             ("absorption", spectrum.absorption, "absorbed fraction per input port: N - sum_out T")):

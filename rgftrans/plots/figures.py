@@ -830,8 +830,8 @@ def plot_spectrum(spectrum, *, cutoffs_GHz=(), ax=None, title: str | None = None
     fig, ax = _axes(ax)
     f = spectrum.frequencies_GHz
     names = spectrum.port_names
-    ax.plot(f, spectrum.transmission[:, 1, 0], lw=1.2, label=f"transmitted, {names[0]} → {names[1]}")
-    ax.plot(f, spectrum.transmission[:, 0, 0], lw=1.0, ls="--", label=f"reflected at {names[0]}")
+    ax.plot(f, spectrum.matrix[:, 1, 0], lw=1.2, label=f"transmitted, {names[0]} → {names[1]}")
+    ax.plot(f, spectrum.matrix[:, 0, 0], lw=1.0, ls="--", label=f"reflected at {names[0]}")
     if np.abs(spectrum.absorption).max() > 1e-9:
         ax.plot(f, spectrum.absorption[:, 0], lw=1.0, ls=":", label="absorbed")
     marked = False
