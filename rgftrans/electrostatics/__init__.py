@@ -17,6 +17,11 @@ _EXPORTS = {
     "POLYGON_METHODS": "gates",
     "solid_angle_polygon": "gates",
     "solid_angle_rectangle": "gates",
+    "Heterostructure": "screening",
+    "ScreenedPotential": "screening",
+    "screen": "screening",
+    "coulomb_constant_meV_nm": "screening",
+    "SELF_TERM": "screening",
 }
 __all__ = list(_EXPORTS)
 __getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -1,8 +1,12 @@
 """Surface-gate electrostatics: gate polygons to a potential-energy map of the 2DEG.
 
-Frozen-surface (pinned-surface) model of Davies, Larkin & Sukhorukov [1]_: the
-exposed semiconductor surface is held at 0 V, each metal gate at its voltage
-V, the dielectric is uniform and the 2DEG does not screen.  The potential in
+Pinned-surface model of Davies, Larkin & Sukhorukov [1]_ (their name for it): the
+exposed semiconductor surface is held at 0 V (its Fermi level pinned), each
+metal gate at its voltage V, the dielectric is uniform and the 2DEG does not
+screen (its screening, with the same surface condition, is
+:mod:`rgftrans.electrostatics.screening`).  Their frozen surface, where the
+surface charge rather than its potential stays at its ungated value, gives a
+different potential and is not implemented.  The potential in
 the plane of a 2DEG at depth d below the surface is then the half-space
 Dirichlet (Poisson-kernel) integral over the gate,
 
@@ -556,7 +560,7 @@ class Gate:
 
 
 def gate_potential(gates: Iterable[Gate], x: object, y: object, *, depth_nm: float) -> np.ndarray:
-    """Electrostatic potential of surface gates in the 2DEG plane (frozen surface).
+    """Electrostatic potential of surface gates in the 2DEG plane (pinned surface).
 
     .. math::
 

@@ -356,7 +356,7 @@ class GdsSpec(_Table):
 
 
 class GatesSpec(_Table):
-    """Surface gates over the 2DEG (frozen-surface electrostatics)."""
+    """Surface gates over the 2DEG (pinned-surface electrostatics, optionally screened by the 2DEG)."""
 
     depth_nm: PositiveFloat
     gate: list[GateSpec] = []
