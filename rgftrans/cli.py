@@ -170,6 +170,44 @@ def _scheduler_address(text: str) -> str:
     return text
 
 
+def _print_screening(cfg) -> None:
+    """The gates' electrostatics in words: which model, and with screening the grid, the 2DEG under each gate
+    and the voltage at which it depletes there (at the config's voltages)."""
+    if cfg.gates is None:
+        return
+    if cfg.gates.screening != "thomas-fermi":
+        print("  gates: bare potential of the gates, not screened by the 2DEG (screening = \"none\"); a real device "
+              "needs larger voltages for the same barriers")
+        return
+    hs = cfg.heterostructure()
+    layout = cfg.gate_layout().with_voltages(cfg.gates.voltages())
+    sol = cfg.screened(layout)
+    _, h = cfg.screening_grid()
+    print(f"  gates: screened by the 2DEG (Thomas-Fermi, pinned surface; n0 = {hs.density_cm2:.3g} cm^-2, "
+          f"E_F = {hs.fermi_energy_meV:.3g} meV), grid {sol.x_nm.size} x {sol.y_nm.size} at {h:g} nm, "
+          f"{sol.iterations} iterations; a wide gate would deplete the 2DEG at {hs.depletion_voltage_V():.3f} V")
+    step = 0.02  # V: small against depletion voltages of tenths of a volt, large against the solver's tolerance
+    for gate in layout.gates:
+        px, py = gate.shape.geometry.representative_point().coords[0]
+        n_here = _density_at(sol, px, py)
+        if n_here <= 0.0:
+            print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: the 2DEG under it is depleted")
+            continue
+        nudged = cfg.screened(layout.with_voltages({gate.name: gate.voltage - step}))
+        slope = (n_here - _density_at(nudged, px, py)) / step  # cm^-2 per V
+        where = f"depletes near {gate.voltage - n_here / slope:+.3f} V (linear estimate)" if slope > 0 else ""
+        print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: {n_here:.3g} cm^-2 under it; {where}")
+
+
+def _density_at(solution, x, y) -> float:
+    """Density (cm^-2) at the grid node nearest (x, y) nm."""
+    import numpy as np
+
+    i = int(np.argmin(np.abs(solution.y_nm - y)))
+    j = int(np.argmin(np.abs(solution.x_nm - x)))
+    return float(solution.density_cm2[i, j])
+
+
 def _cmd_check(args) -> int:
     import numpy as np
 
@@ -215,6 +253,7 @@ def _cmd_check(args) -> int:
         print(f"  estimate: {line}")
     _say_where_written(args.config, cfg.output.path)
     _print_regime(cfg, device, model, poles)
+    _print_screening(cfg)
     if args.draw:
         import matplotlib
 

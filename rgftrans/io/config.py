@@ -361,6 +361,15 @@ class GatesSpec(_Table):
     depth_nm: PositiveFloat
     gate: list[GateSpec] = []
     gds: GdsSpec | None = None
+    #: "none": the gates' bare potential (no 2DEG screening); "thomas-fermi": screened self-consistently by
+    #: the 2DEG of density [material] density_cm2 (rgftrans.electrostatics.screening).
+    screening: Literal["none", "thomas-fermi"] = "none"
+    surface: Literal["pinned"] = "pinned"
+    valley_degeneracy: Annotated[int, Field(ge=1, le=6)] = 1
+    #: Grid of the screening solution (nm); default: the smaller of depth / 4 and 10 nm.
+    screening_grid_nm: PositiveFloat | None = None
+    #: How far the screening grid reaches past the device and the gates (nm); default: 4 depths.
+    screening_margin_nm: PositiveFloat | None = None
 
     @model_validator(mode="after")
     def _check_gates(self):
@@ -686,6 +695,7 @@ class RunConfig(_Table):
     _base_dir: Path | None = PrivateAttr(default=None)
     _text: str | None = PrivateAttr(default=None)
     _layout: GateLayout | None = PrivateAttr(default=None)
+    _screen_cache: dict = PrivateAttr(default_factory=dict)
 
     @model_validator(mode="before")
     @classmethod
@@ -714,6 +724,10 @@ class RunConfig(_Table):
             if lead.span_nm[1] < lo or lead.span_nm[0] > hi:
                 raise _problem(f"the lead misses the device, got {_show(lead.span_nm)}; the device covers "
                                f"{coord} = [{lo:g}, {hi:g}] nm, so move the span into that range", f"leads[{k}].span_nm")
+        if self.gates is not None and self.gates.screening == "thomas-fermi" and self.material.density_cm2 is None:
+            raise _problem("Thomas-Fermi screening needs the ungated density, got no material.density_cm2; add "
+                           "density_cm2 to [material] (the grower's sheet value) or set screening = \"none\"",
+                           "gates.screening")
         if self.field.zeeman and not self.spin.enabled:
             raise _problem("a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false; "
                            "set enabled = true in [spin], or remove zeeman (it defaults to on with spin)",
@@ -933,11 +947,12 @@ class RunConfig(_Table):
             offset = p[f"leads.{lead.name}.offset_nm"]
             leads.append(Lead(lead.name, lead.side, (lead.span_nm[0] + offset, lead.span_nm[1] + offset),
                               potential=p[f"leads.{lead.name}.potential_meV"]))
-        potential: float | GateLayout | _ShiftedPotential = p["potential.constant_meV"]
+        potential = p["potential.constant_meV"]
         layout = self.gate_layout()
         if layout is not None:
             layout = layout.with_voltages({name: p[f"gates.{name}.voltage_V"] for name in layout.names})
-            potential = layout if potential == 0.0 else _ShiftedPotential(layout, potential)
+            gates = self.screened(layout) if self.gates.screening == "thomas-fermi" else layout
+            potential = gates if potential == 0.0 else _ShiftedPotential(gates, potential)
         width = p["disorder.width_meV"]
         return Device(
             self.geometry.region(),
@@ -951,6 +966,44 @@ class RunConfig(_Table):
             rashba=p["spin.rashba_meV_nm"],
             disorder=Disorder(width, int(p["disorder.seed"])) if width > 0.0 else None,
         )
+
+    def heterostructure(self):
+        """The 2DEG under the gates as a :class:`~rgftrans.electrostatics.screening.Heterostructure`."""
+        from rgftrans.electrostatics.screening import Heterostructure
+
+        if self.gates is None or self.material.density_cm2 is None:
+            raise ConfigError(f"{self._source}: a heterostructure needs [gates] depth_nm and [material] density_cm2")
+        return Heterostructure(depth_nm=self.gates.depth_nm, density_cm2=self.material.density_cm2,
+                               material=self.material.material(), valley_degeneracy=self.gates.valley_degeneracy,
+                               spin_degeneracy=2, surface=self.gates.surface)
+
+    def screening_grid(self) -> tuple[tuple[float, float, float, float], float]:
+        """The screening grid: its rectangle (nm; the device and every gate plus the margin) and spacing (nm)."""
+        depth = self.gates.depth_nm
+        spacing = self.gates.screening_grid_nm or min(depth / 4.0, 10.0)
+        margin = self.gates.screening_margin_nm or 4.0 * depth
+        boxes = [self.geometry.region().bounds] + [g.shape.bounds for g in self.gate_layout().gates]
+        x0, y0 = min(b[0] for b in boxes) - margin, min(b[1] for b in boxes) - margin
+        x1, y1 = max(b[2] for b in boxes) + margin, max(b[3] for b in boxes) + margin
+        return (x0, y0, x1, y1), spacing
+
+    def screened(self, layout):
+        """The gates' potential screened by the 2DEG (Thomas-Fermi, self-consistent), cached by voltages.
+
+        Points of a sweep that differ only in non-gate parameters share one solution; a new set of voltages
+        starts from the last solution (warm start).
+        """
+        from rgftrans.electrostatics.screening import screen
+
+        key = tuple(sorted((g.name, float(g.voltage)) for g in layout.gates))
+        cache = self._screen_cache
+        if key not in cache:
+            extent, spacing = self.screening_grid()
+            last = next(reversed(cache.values()), None) if cache else None
+            cache[key] = screen(layout, self.heterostructure(), extent_nm=extent, spacing_nm=spacing, initial=last)
+            while len(cache) > 4:  # a sweep walks its grid: a few recent solutions are all that is reused
+                cache.pop(next(iter(cache)))
+        return cache[key]
 
     def geometry_key(self, point: Mapping[str, float] | None = None) -> tuple[float, ...]:
         """The geometry-changing values of a point: every lead's offset (nm), in lead order.

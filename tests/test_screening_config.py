@@ -1,0 +1,114 @@
+"""Screened gates from a run config: [gates] screening = "thomas-fermi", the device potential, `check`'s report."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from rgftrans.cli import EXIT_BAD_INPUT, EXIT_OK, main
+from rgftrans.electrostatics.screening import ScreenedPotential
+from rgftrans.io.config import parse_config
+
+BASE = """
+[material]
+name = "GaAs"
+density_cm2 = 2.0e11
+
+[lattice]
+kind = "square"
+spacing_nm = 10.0
+
+[geometry]
+rectangle_nm = [0.0, 0.0, 300.0, 200.0]
+
+[gates]
+depth_nm = 60.0
+screening = "thomas-fermi"
+screening_grid_nm = 15.0
+screening_margin_nm = 180.0
+
+[[gates.gate]]
+name = "top"
+rectangle_nm = [120.0, 130.0, 180.0, 400.0]
+voltage_V = -0.3
+
+[[gates.gate]]
+name = "bottom"
+rectangle_nm = [120.0, -200.0, 180.0, 70.0]
+voltage_V = -0.3
+
+[[leads]]
+name = "source"
+side = "left"
+span_nm = [0.0, 200.0]
+
+[[leads]]
+name = "drain"
+side = "right"
+span_nm = [0.0, 200.0]
+
+[energy]
+start_meV = 3.0
+stop_meV = 9.0
+points = 5
+
+[output]
+path = "{out}"
+"""
+
+
+def _cfg(tmp_path, text=BASE):
+    return parse_config(text.format(out=tmp_path / "s.h5"), source="screened.toml")
+
+
+def test_device_potential_is_the_screened_solution(tmp_path):
+    cfg = _cfg(tmp_path)
+    device = cfg.build_device()
+    assert isinstance(device.potential, ScreenedPotential)
+    sol = device.potential
+    bare = cfg.gate_layout()
+    # Under a gate the screened barrier is lower than the bare one, and still positive (a repulsive gate).
+    x, y = 150.0, 100.0  # the constriction between the gates
+    assert 0 < sol(x, y) < bare(x, y)
+    # The same voltages give the same cached solution; a sweep point with other voltages a new one.
+    assert cfg.build_device().potential is sol
+    other = cfg.build_device({"gates.top.voltage_V": -0.35}).potential
+    assert other is not sol and other(150.0, 160.0) > sol(150.0, 160.0)
+
+
+def test_no_gate_voltage_no_potential(tmp_path):
+    cfg = _cfg(tmp_path, BASE.replace("voltage_V = -0.3", "voltage_V = 0.0"))
+    sol = cfg.build_device().potential
+    # Gates at the pinned surface's potential leave the ungated 2DEG: U = 0, n = n0 (to the solver's 1e-6 of E_F).
+    assert np.abs(sol.potential_meV).max() < 1e-5 * sol.fermi_energy_meV
+    assert np.allclose(sol.density_cm2, 2.0e11, rtol=1e-5)
+
+
+def test_screening_changes_the_config_hash(tmp_path):
+    on = _cfg(tmp_path)
+    off = _cfg(tmp_path, BASE.replace('screening = "thomas-fermi"', 'screening = "none"'))
+    assert on.config_hash() != off.config_hash()
+    assert not isinstance(off.build_device().potential, ScreenedPotential)
+
+
+@pytest.mark.parametrize("change, fragment", [
+    (("density_cm2 = 2.0e11\n", ""), "density_cm2"),
+    (('screening = "thomas-fermi"', 'screening = "thomas"'), "screening"),
+    (('screening = "thomas-fermi"', 'screening = "thomas-fermi"\nsurface = "frozen"'), "surface"),
+    (('screening_grid_nm = 15.0', 'screening_grid_nm = -1.0'), "screening_grid_nm"),
+])
+def test_bad_screening_settings_are_one_line(tmp_path, capsys, change, fragment):
+    path = tmp_path / "bad.toml"
+    path.write_text(BASE.format(out=tmp_path / "s.h5").replace(*change))
+    assert main(["check", str(path)]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and fragment in err[0], err
+
+
+def test_check_reports_the_screened_gates(tmp_path, capsys):
+    path = tmp_path / "ok.toml"
+    path.write_text(BASE.format(out=tmp_path / "s.h5"))
+    assert main(["check", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "screened by the 2DEG" in out and "a wide gate would deplete the 2DEG at -0.175 V" in out
+    assert out.count("depletes near") + out.count("is depleted") == 2
