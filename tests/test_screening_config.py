@@ -112,3 +112,27 @@ def test_check_reports_the_screened_gates(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "screened by the 2DEG" in out and "a wide gate would deplete the 2DEG at -0.175 V" in out
     assert out.count("depletes near") + out.count("is depleted") == 2
+
+
+def test_run_stores_the_screened_maps_and_they_draw(tmp_path):
+    import h5py
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from rgftrans.io.store import read_result
+    from rgftrans.plots.figures import plot_density
+
+    path = tmp_path / "run.toml"
+    path.write_text(BASE.format(out=tmp_path / "s.h5").replace("points = 5", "points = 2"))
+    assert main(["run", str(path), "--quiet", "--workers", "1"]) == EXIT_OK
+    with h5py.File(tmp_path / "s.h5", "r") as f:
+        g = f["electrostatics"]
+        assert g["density"].attrs["units"] == "cm^-2" and g["potential"].attrs["units"] == "meV"
+        assert g["density"].shape == (g["y"].size, g["x"].size)
+        assert g.attrs["model"] == "Thomas-Fermi, pinned surface"
+        assert np.min(g["density"][()]) >= 0
+    assert read_result(tmp_path / "s.h5").completed.all()
+    cfg = _cfg(tmp_path)
+    sol = cfg.build_device().potential
+    fig, ax = plot_density(sol, layout=cfg.gate_layout())
+    assert ax.get_xlabel() == "x position (nm)" and "cm⁻²" in fig.axes[-1].get_ylabel()

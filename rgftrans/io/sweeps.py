@@ -501,8 +501,35 @@ def run_sweep(cfg: RunConfig, *, overwrite: bool | None = None, quiet: bool = Fa
         finally:
             rf.close()
         journal.remove()
+    write_electrostatics(cfg, path)
     return SweepReport(path=path, n_points=len(points), n_computed=len(todo), n_resumed=n_resumed,
                        seconds=time.perf_counter() - t0)
+
+
+def write_electrostatics(cfg: RunConfig, path) -> bool:
+    """Store the screened electrostatics of the config's own gate voltages as the group ``electrostatics``.
+
+    Written (replacing an earlier one) when the config screens its gates: the grid, the screened and bare
+    potential energy (meV) and the electron density (cm^-2) -- the maps a sweep's first point starts from.
+    Returns whether anything was written.
+    """
+    if cfg.gates is None or cfg.gates.screening != "thomas-fermi":
+        return False
+    from rgftrans.io.store import StoredArray, write_group
+
+    sol = cfg.screened(cfg.gate_layout().with_voltages(cfg.gates.voltages()))
+    grid = ("y", "x")
+    write_group(path, "electrostatics", {
+        "x": StoredArray(sol.x_nm, "nm", "x position", scale=True),
+        "y": StoredArray(sol.y_nm, "nm", "y position", scale=True),
+        "potential": StoredArray(sol.potential_meV, "meV", "screened electron potential energy U (ungated band "
+                                                         "bottom = 0)", dims=grid),
+        "bare_potential": StoredArray(sol.bare_potential_meV, "meV", "potential energy of the gates alone", dims=grid),
+        "density": StoredArray(sol.density_cm2, "cm^-2", "electron density (0: depleted)", dims=grid),
+    }, attrs={"model": "Thomas-Fermi, pinned surface", "fermi_energy_meV": float(sol.fermi_energy_meV),
+              "depth_nm": float(cfg.gates.depth_nm), "density_cm2": float(cfg.material.density_cm2),
+              "iterations": int(sol.iterations)}, overwrite=True)
+    return True
 
 
 def _remove_stale_partials(path: Path) -> None:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_device", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result",
+__all__ = ["plot_device", "plot_density", "plot_transmission", "plot_map", "plot_currents", "site_current_vectors", "plot_result",
            "plot_gate_potential", "plot_width_track", "plot_track_on_map", "plot_bic_plane", "plot_fano_collapse",
            "plot_spectrum", "plot_waveguide_field", "DEVICE_SITES_SHOWN"]
 
@@ -812,6 +812,47 @@ def plot_fano_collapse(collapse, *, name: str = "p1", axes=None):
     axes[1].set_ylabel("resonance width Γ (meV)")
     axes[1].legend(fontsize="small", frameon=False)
     return fig, axes
+
+
+def plot_density(solution, *, layout=None, ax=None):
+    """Electron density of a screened 2DEG (10^11 cm^-2) with the depletion boundary and the gates' outlines.
+
+    ``solution`` is a :class:`rgftrans.electrostatics.screening.ScreenedPotential`; ``layout`` the gates.
+    """
+    own_figure = ax is None
+    fig, ax = _axes(ax)
+    if own_figure:  # shaped like the map, with room for the colour bar and the gate key
+        aspect = np.ptp(solution.x_nm) / max(np.ptp(solution.y_nm), 1e-9)
+        fig.set_size_inches(float(np.clip(4.6 * aspect + 2.0, 5.0, 10.0)), 6.0)
+    density = np.asarray(solution.density_cm2) / 1e11
+    mesh = ax.pcolormesh(solution.x_nm, solution.y_nm, density, shading="nearest", cmap="viridis", vmin=0.0,
+                         rasterized=True)
+    fig.colorbar(mesh, ax=ax, label="electron density (10¹¹ cm⁻²)", shrink=0.85)
+    if np.any(density <= 0) and np.any(density > 0):
+        ax.contour(solution.x_nm, solution.y_nm, (density > 0).astype(float), levels=[0.5], colors="w",
+                   linewidths=1.0)
+    if layout is not None:  # numbered outlines, names and voltages in a key beside the map (narrow fingers)
+        from rgftrans.plots.style import format_value
+
+        key = []
+        for k, gate in enumerate(layout.gates, start=1):
+            _draw_geometry(ax, gate.shape.geometry, fc="none", ec="0.85", lw=0.9, zorder=3)
+            at = gate.shape.geometry.representative_point()
+            ax.annotate(str(k), (at.x, at.y), ha="center", va="center", fontsize="small", color="k", zorder=5,
+                        annotation_clip=True, bbox=dict(boxstyle="circle,pad=0.15", fc="w", ec="none", alpha=0.8))
+            key.append(f"{k} {gate.name} {format_value(gate.voltage, 'V')}")
+        from matplotlib.lines import Line2D
+
+        handles = [Line2D([], [], ls="none", marker=f"${k}$", ms=7, color="k", label=text.split(" ", 1)[1])
+                   for k, text in enumerate(key, start=1)]
+        fig.legend(handles=handles, loc="outside lower center", ncol=3, fontsize="small", frameon=False,
+                   title="gates", title_fontsize="small")
+    ax.set_xlim(solution.x_nm[0], solution.x_nm[-1])
+    ax.set_ylim(solution.y_nm[0], solution.y_nm[-1])
+    ax.set_aspect("equal")
+    ax.set_xlabel("x position (nm)")
+    ax.set_ylabel("y position (nm)")
+    return fig, ax
 
 
 def plot_spectrum(spectrum, *, cutoffs_GHz=(), ax=None, title: str | None = None):
