@@ -181,16 +181,20 @@ def _print_screening(cfg) -> None:
         return
     hs = cfg.heterostructure()
     layout = cfg.gate_layout().with_voltages(cfg.gates.voltages())
+    from rgftrans.electrostatics.screening import DEPLETED_FRACTION
+
     sol = cfg.screened(layout)
     _, h = cfg.screening_grid()
-    print(f"  gates: screened by the 2DEG (Thomas-Fermi, pinned surface; n0 = {hs.density_cm2:.3g} cm^-2, "
-          f"E_F = {hs.fermi_energy_meV:.3g} meV), grid {sol.x_nm.size} x {sol.y_nm.size} at {h:g} nm, "
+    statistics = "T = 0" if hs.temperature_K == 0 else f"Fermi-Dirac at {hs.temperature_K:g} K"
+    print(f"  gates: screened by the 2DEG (Thomas-Fermi, {statistics}, {hs.surface} surface; "
+          f"n0 = {hs.density_cm2:.3g} cm^-2, mu = {hs.fermi_energy_meV:.3g} meV), grid {sol.x_nm.size} x "
+          f"{sol.y_nm.size} at {h:g} nm, "
           f"{sol.iterations} iterations; a wide gate would deplete the 2DEG at {hs.depletion_voltage_V():.3f} V")
     step = 0.02  # V: small against depletion voltages of tenths of a volt, large against the solver's tolerance
     for gate in layout.gates:
         px, py = gate.shape.geometry.representative_point().coords[0]
         n_here = _density_at(sol, px, py)
-        if n_here <= 0.0:
+        if n_here <= DEPLETED_FRACTION * hs.density_cm2:
             print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: the 2DEG under it is depleted")
             continue
         nudged = cfg.screened(layout.with_voltages({gate.name: gate.voltage - step}))

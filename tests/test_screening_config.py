@@ -94,7 +94,10 @@ def test_screening_changes_the_config_hash(tmp_path):
 @pytest.mark.parametrize("change, fragment", [
     (("density_cm2 = 2.0e11\n", ""), "density_cm2"),
     (('screening = "thomas-fermi"', 'screening = "thomas"'), "screening"),
-    (('screening = "thomas-fermi"', 'screening = "thomas-fermi"\nsurface = "frozen"'), "surface"),
+    (('screening = "thomas-fermi"', 'screening = "none"\nsurface = "frozen"'), "surface"),
+    (('screening = "thomas-fermi"', 'screening = "thomas-fermi"\nsurface = "mirror"'), "surface"),
+    (('screening = "thomas-fermi"', 'screening = "thomas-fermi"\nscreening_temperature_K = -4'),
+     "screening_temperature_K"),
     (('screening_grid_nm = 15.0', 'screening_grid_nm = -1.0'), "screening_grid_nm"),
 ])
 def test_bad_screening_settings_are_one_line(tmp_path, capsys, change, fragment):
@@ -136,3 +139,26 @@ def test_run_stores_the_screened_maps_and_they_draw(tmp_path):
     sol = cfg.build_device().potential
     fig, ax = plot_density(sol, layout=cfg.gate_layout())
     assert ax.get_xlabel() == "x position (nm)" and "cm⁻²" in fig.axes[-1].get_ylabel()
+
+
+def test_frozen_surface_at_finite_temperature_from_a_config(tmp_path, capsys):
+    import h5py
+
+    text = BASE.replace('screening = "thomas-fermi"',
+                        'screening = "thomas-fermi"\nsurface = "frozen"\nscreening_temperature_K = 4.0')
+    pinned = _cfg(tmp_path).build_device().potential
+    frozen = _cfg(tmp_path, text).build_device().potential
+    assert frozen.structure.surface == "frozen" and frozen.structure.temperature_K == 4.0
+    assert frozen.gate_charge_cm2 is not None and pinned.gate_charge_cm2 is None
+    # A frozen surface in the gap floats towards the gates' voltage instead of being held at 0, so the barrier
+    # in the constriction is higher than with a pinned surface (Davies, Larkin & Sukhorukov 1995, from memory).
+    assert frozen(150.0, 100.0) > pinned(150.0, 100.0)
+    path = tmp_path / "frozen.toml"
+    path.write_text(text.format(out=tmp_path / "f.h5").replace("points = 5", "points = 2"))
+    assert main(["check", str(path)]) == EXIT_OK
+    assert "Fermi-Dirac at 4 K, frozen surface" in capsys.readouterr().out
+    assert main(["run", str(path), "--quiet", "--workers", "1"]) == EXIT_OK
+    with h5py.File(tmp_path / "f.h5", "r") as f:
+        g = f["electrostatics"]
+        assert g.attrs["surface"] == "frozen" and g.attrs["temperature_K"] == 4.0
+        assert g["gate_charge"].attrs["units"] == "cm^-2" and np.abs(g["gate_charge"][()]).max() > 0

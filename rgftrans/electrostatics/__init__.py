@@ -2,7 +2,10 @@
 
 :class:`GateLayout` (gates as polygons in nm with voltages in V, depth of the
 2DEG) is callable as ``U(x, y)`` in meV and is given to a device as its
-potential; GDSII layouts are read by :func:`gates_from_gds`.  Builds on
+potential; GDSII layouts are read by :func:`gates_from_gds`.  The 2DEG's
+screening of the gates (:func:`screen`, :class:`Heterostructure`; pinned or
+frozen surface, T = 0 or Fermi-Dirac) gives the self-consistent potential
+and density.  Builds on
 ``system`` (regions).
 """
 
@@ -22,6 +25,10 @@ _EXPORTS = {
     "screen": "screening",
     "coulomb_constant_meV_nm": "screening",
     "SELF_TERM": "screening",
+    "DEPLETED_FRACTION": "screening",
+    "SurfaceKernels": "surface",
+    "frozen_gate_potential": "surface",
+    "gate_nodes": "surface",
 }
 __all__ = list(_EXPORTS)
 __getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -7,6 +7,7 @@ in it and screen it: with the chemical potential ``mu`` fixed by the leads
 band bottom,
 
     n(r) = D (mu - U(r))   where positive, 0 where depleted  (Thomas-Fermi, T = 0),
+    n(r) = D kT ln(1 + exp((mu - U(r)) / kT))                 (T > 0, Fermi-Dirac),
 
 with ``D = g_s g_v m* / (2 pi hbar^2)`` the 2D density of states, and the
 potential energy holds the electrons' own field,
@@ -21,22 +22,30 @@ every charge in the 2DEG has an image of opposite sign at height ``d`` above
 the surface -- the same boundary condition under which the gate potential
 of :mod:`~rgftrans.electrostatics.gates` is the half-space Dirichlet
 integral (Davies, Larkin & Sukhorukov, J. Appl. Phys. 77, 4504 (1995), from
-memory, call this the pinned surface; their frozen surface, where the
-surface charge rather than its potential is held, is not implemented here).
+memory).  Their **frozen surface** (the exposed surface's charge held, the
+gates' charges unknown) is the other choice (``Heterostructure(surface=
+"frozen")``); its kernels are in :mod:`~rgftrans.electrostatics.surface`.
 
-The two equations are the stationarity conditions of a convex energy in the
-density,
+The equations are the stationarity conditions of a convex energy in the
+density (and, frozen surface, the gates' extra charge ``s``),
 
-    F[n] = sum_r A [ n^2 / (2 D) + (U_gates - mu) n ] + (1/2) sum_{r, r'} A^2 dn C K dn,
+    F[n, s] = sum_r A [ f_T(n) + (U_ext - mu) n ] + (1/2) A^2 (dn, s) C K (dn, s) - A sum_gates U_gate s,
 
-(``C = e^2 / (4 pi eps eps0)``; K is positive definite: its 2D Fourier
-transform ``2 pi (1 - exp(-2 q d)) / q`` is positive), so the solution is
-the minimum of ``F`` over ``n >= 0``: depleted regions come out of the bound,
-not of a guess.  The minimum is found by L-BFGS-B (scipy) with the
-convolution done by FFT on a zero-padded grid (scipy.fft), N log N per step;
-a previous solution is a warm start along a sweep.  Stopping: the projected
-gradient, in units of the energy scale ``n0 / D``, below ``tolerance`` (1e-6
-by default), which bounds the relative error of the density by about the same.
+with ``f_T(n) = n^2 / (2 D)`` at T = 0 and the Fermi-Dirac free energy
+``D (kT)^2 [x^2/2 - pi^2/6 + Li2(e^-x)]``, ``x = n / (D kT)``, above
+(whose derivative inverts ``n = D kT ln(1 + e^((mu - U)/kT))``).  The
+Coulomb energy is positive definite (pinned: the Fourier transform
+``2 pi (1 - exp(-2 q d)) / q`` is positive; frozen: the electrostatic
+energy of charges between two dielectrics is positive for any charges), so
+the solution is the minimum of ``F``: at T = 0 over ``n >= 0``, depleted
+regions coming out of the bound, not of a guess.  The minimum is found by
+L-BFGS-B (scipy) with the convolutions done by FFT on a zero-padded grid
+(scipy.fft), N log N per step; a previous solution is a warm start along a
+sweep.  Above T = 0 the variables are the local chemical potentials instead
+(a density's curvature kT / n diverges as a node empties), started from the
+T = 0 solution.  Stopping: the projected gradient, in units of the energy
+scale ``n0 / D``, below ``tolerance`` (1e-6 by default), which bounds the
+relative error of the density by about the same.
 
 Units: nm, meV, V, densities in cm^-2 at the interface (``density_cm2``)
 and nm^-2 inside.  The ungated band bottom is the zero of energy, as in a
@@ -46,32 +55,42 @@ device built with ``potential=``.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import constants as _codata
-from scipy import fft as _fft
 
 from rgftrans.errors import ComputationFailed, RgftransError
+from rgftrans.electrostatics.surface import (COULOMB_MEV_NM, SELF_TERM, SURFACES, SurfaceKernels,
+                                             coulomb_constant_meV_nm, frozen_gate_potential, gate_nodes)
 from rgftrans.system.materials import Material, material as lookup_material
 
-__all__ = ["Heterostructure", "ScreenedPotential", "screen", "coulomb_constant_meV_nm", "SELF_TERM"]
+__all__ = ["Heterostructure", "ScreenedPotential", "screen", "coulomb_constant_meV_nm", "SELF_TERM",
+           "DEPLETED_FRACTION"]
 
-#: e^2 / (4 pi eps0) in meV nm (CODATA via scipy.constants): 1439.96 meV nm.
-COULOMB_MEV_NM = _codata.e / (4 * math.pi * _codata.epsilon_0) * 1e3 * 1e9
-#: The integral of 1/rho over a square cell of side a centred on rho = 0, in units of a:
-#: 4 ln(1 + sqrt 2) (elementary integral; the self-term of the point-sampled kernel).
-SELF_TERM = 4.0 * math.log1p(math.sqrt(2.0))
 #: Smallest stopping tolerance: the minimised energy is a sum of O(N) terms of order one, so its round-off
 #: (~1e-16 N) stops progress near a relative gradient of 1e-8 (seen on 10^3-10^5 node grids).
 MIN_TOLERANCE = 1e-8
+#: A node counts as depleted below this fraction of n0 (at T = 0 the density there is exactly 0; above,
+#: it falls off as exp(-(U - mu) / kT) and this is where the device's conduction effectively stops).
+DEPLETED_FRACTION = 1e-3
+#: Finite temperature: the smallest occupation a node's variable is scaled for (see screen()).
+OCCUPATION_FLOOR = 1e-6
 #: Densities: 1 cm^-2 = 1e-14 nm^-2.
 NM2_PER_CM2 = 1e-14
 
 
-def coulomb_constant_meV_nm(eps_r: float) -> float:
-    """``e^2 / (4 pi eps_r eps0)`` in meV nm."""
-    return COULOMB_MEV_NM / float(eps_r)
+def _expit(x):
+    from scipy.special import expit
+
+    return expit(x)
+
+
+def _log_expm1(x):
+    """ln(exp(x) - 1), accurate for small and large x."""
+    x = np.asarray(x, float)
+    with np.errstate(divide="ignore"):
+        return np.where(x > 30.0, x + np.log1p(-np.exp(-np.minimum(x, 700.0))), np.log(np.expm1(np.minimum(x, 30.0))))[()]
 
 
 @dataclass(frozen=True)
@@ -88,8 +107,11 @@ class Heterostructure:
         Effective mass and dielectric constant (e.g. GaAs: 0.067 m_e, 12.9).
     spin_degeneracy, valley_degeneracy : int
         g_s (2) and g_v (1 for GaAs, 2 for Si (001)).
-    surface : {"pinned"}
-        Boundary condition at the exposed surface (see the module docstring).
+    surface : {"pinned", "frozen"}
+        Boundary condition at the exposed surface (:mod:`rgftrans.electrostatics.surface`).
+    temperature_K : float
+        Electron temperature of the 2DEG, K; 0 gives the Thomas-Fermi step occupation, above 0 the
+        Fermi-Dirac one (the chemical potential then follows from n0 at that temperature).
     """
 
     depth_nm: float
@@ -98,6 +120,7 @@ class Heterostructure:
     spin_degeneracy: int = 2
     valley_degeneracy: int = 1
     surface: str = "pinned"
+    temperature_K: float = 0.0
 
     def __post_init__(self):
         mat = self.material if isinstance(self.material, Material) else lookup_material(str(self.material))
@@ -110,9 +133,13 @@ class Heterostructure:
         if self.spin_degeneracy not in (1, 2) or self.valley_degeneracy not in (1, 2, 4, 6):
             raise RgftransError(f"degeneracies must be spin 1 or 2 and valley 1, 2, 4 or 6, got "
                                 f"{self.spin_degeneracy} and {self.valley_degeneracy}")
-        if self.surface != "pinned":
-            raise RgftransError(f"surface {self.surface!r} is not implemented; only 'pinned' (exposed surface at a fixed "
-                                "potential) is")
+        if self.surface not in SURFACES:
+            raise RgftransError(f"surface {self.surface!r} is not one of 'pinned' (exposed surface at a fixed "
+                                "potential) or 'frozen' (exposed surface charge fixed)")
+        t = self.temperature_K
+        if not (isinstance(t, (int, float)) and math.isfinite(t) and 0.0 <= t <= 400.0):
+            raise RgftransError(f"heterostructure temperature_K = {t!r} is outside 0..400 K; give the electron "
+                                "temperature in kelvin")
 
     @property
     def eps_r(self) -> float:
@@ -130,9 +157,36 @@ class Heterostructure:
         return self.density_cm2 * NM2_PER_CM2
 
     @property
+    def thermal_energy_meV(self) -> float:
+        """k_B T, meV."""
+        return _codata.k * self.temperature_K / _codata.e * 1e3
+
+    @property
     def fermi_energy_meV(self) -> float:
-        """mu = n0 / D above the ungated band bottom (T = 0)."""
-        return self.density_nm2 / self.dos_per_meV_nm2
+        """Chemical potential mu above the ungated band bottom: n0 / D at T = 0, kT ln(exp(n0 / (D kT)) - 1) above."""
+        kt = self.thermal_energy_meV
+        x = self.density_nm2 / self.dos_per_meV_nm2
+        if kt == 0.0:
+            return x
+        return kt * _log_expm1(x / kt)
+
+    def density_of(self, chemical_potential_meV):
+        """Sheet density (nm^-2) of a 2DEG whose band bottom lies ``chemical_potential_meV`` below mu.
+
+        ``D (mu - U)`` where positive at T = 0; ``D kT ln(1 + exp((mu - U) / kT))`` above (the Fermi-Dirac
+        integral of a constant 2D density of states).
+        """
+        x = np.asarray(chemical_potential_meV, float)
+        kt = self.thermal_energy_meV
+        if kt == 0.0:
+            return self.dos_per_meV_nm2 * np.maximum(x, 0.0)
+        return self.dos_per_meV_nm2 * kt * np.logaddexp(0.0, x / kt)
+
+    def quantum_capacitance_per_nm2(self) -> float:
+        """e^2 dn/dmu of the ungated 2DEG in electrons per meV per nm^2: D at T = 0, D (1 - exp(-n0 / (D kT))) above."""
+        kt = self.thermal_energy_meV
+        dos = self.dos_per_meV_nm2
+        return dos if kt == 0.0 else -dos * math.expm1(-self.density_nm2 / (dos * kt))
 
     @property
     def screening_wavevector_per_nm(self) -> float:
@@ -147,6 +201,22 @@ class Heterostructure:
         """
         geometric = 4 * math.pi * coulomb_constant_meV_nm(self.eps_r) * self.depth_nm  # meV nm^2 per electron/nm^2
         return -self.density_nm2 * (geometric + 1.0 / self.dos_per_meV_nm2) / 1e3
+
+    def _kinetic(self, n: np.ndarray) -> tuple[float, np.ndarray]:
+        """The electrons' free energy per area summed over nodes (meV nm^-2) and its derivative mu_local(n) (meV).
+
+        T = 0: n^2 / (2 D) and n / D.  T > 0: D (kT)^2 [x^2/2 - pi^2/6 + Li2(exp(-x))] with x = n / (D kT), whose
+        derivative kT ln(exp(x) - 1) inverts the Fermi-Dirac density of :meth:`density_of` (the dilogarithm from
+        the integral of ln(1 - exp(-t)); scipy.special.spence(1 - z) = Li2(z)).
+        """
+        dos, kt = self.dos_per_meV_nm2, self.thermal_energy_meV
+        if kt == 0.0:
+            return float(np.sum(n * n)) / (2 * dos), n / dos
+        from scipy.special import spence
+
+        x = n / (dos * kt)
+        free = dos * kt * kt * (0.5 * x * x - math.pi**2 / 6 + spence(-np.expm1(-x)))
+        return float(np.sum(free)), kt * _log_expm1(x)
 
 
 @dataclass(frozen=True, eq=False)
@@ -165,6 +235,9 @@ class ScreenedPotential:
         Electron density, cm^-2 (0 where depleted).
     fermi_energy_meV : float
         The chemical potential mu above the ungated band bottom.
+    gate_charge_cm2 : (ny, nx) float ndarray or None
+        Frozen surface: the extra electrons per cm^2 the gates carry (0 on the exposed surface); None for a
+        pinned surface, whose gate potential is a closed form.
     iterations : int
     gradient : float
         Final projected gradient in units of the energy scale (the stopping measure).
@@ -177,14 +250,15 @@ class ScreenedPotential:
     bare_potential_meV: np.ndarray
     density_cm2: np.ndarray
     fermi_energy_meV: float
+    gate_charge_cm2: np.ndarray | None
     iterations: int
     gradient: float
     structure: Heterostructure
 
     @property
     def depleted(self) -> np.ndarray:
-        """Boolean map of the depleted nodes."""
-        return self.density_cm2 <= 0.0
+        """Boolean map of the depleted nodes: density below DEPLETED_FRACTION of n0."""
+        return self.density_cm2 <= DEPLETED_FRACTION * self.structure.density_cm2
 
     def __call__(self, x, y):
         """U (meV) at positions (nm) by bilinear interpolation; outside the grid, the nearest edge value."""
@@ -201,41 +275,18 @@ class ScreenedPotential:
         return interp(np.stack([yc.ravel(), xc.ravel()], axis=1)).reshape(x.shape)
 
 
-def _kernel_fft(nx: int, ny: int, spacing: float, depth: float, periodic: bool):
-    """FFT of ``A K(r)`` (nm) on the grid: zero-padded (linear convolution) or periodic.
-
-    Zero-padded: K sampled at the nodes, the singular self-term replaced by its cell average
-    (:data:`SELF_TERM`), on a grid twice the size so the circular convolution is a linear one.  Periodic:
-    the continuum transform ``K(q) = 2 pi (1 - exp(-2 q d)) / q`` (``4 pi d`` at q = 0) on the grid's
-    wave vectors, which sums all periodic images exactly.
-    """
-    if periodic:
-        qx = 2 * np.pi * np.fft.rfftfreq(nx, d=spacing)
-        qy = 2 * np.pi * np.fft.fftfreq(ny, d=spacing)
-        q = np.hypot(qx[None, :], qy[:, None])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            kq = np.where(q > 0, 2 * np.pi * -np.expm1(-2 * q * depth) / q, 4 * np.pi * depth)
-        return kq, (ny, nx)
-    px, py = 2 * nx, 2 * ny
-    ix = np.minimum(np.arange(px), px - np.arange(px))
-    iy = np.minimum(np.arange(py), py - np.arange(py))
-    area = spacing * spacing
-    rho = np.hypot(ix[None, :] * spacing, iy[:, None] * spacing)
-    with np.errstate(divide="ignore"):
-        kernel = area * (1.0 / rho - 1.0 / np.sqrt(rho**2 + 4 * depth**2))
-    kernel[0, 0] = SELF_TERM * spacing - area / (2 * depth)
-    return _fft.rfft2(kernel), (py, px)
-
-
 def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, tolerance: float = 1e-6,
            max_iterations: int = 5000, initial: ScreenedPotential | None = None, periodic: bool = False,
-           bare=None) -> ScreenedPotential:
-    """Self-consistent Thomas-Fermi screening of a gate layout by the 2DEG (pinned surface, T = 0).
+           bare=None, extra_meV=None) -> ScreenedPotential:
+    """Self-consistent Thomas-Fermi screening of a gate layout by the 2DEG.
+
+    The surface condition (pinned or frozen) and the temperature are the heterostructure's.
 
     Parameters
     ----------
     layout : GateLayout or None
-        The gates (its depth must be the heterostructure's); None with ``bare`` given.
+        The gates (its depth must be the heterostructure's); None with ``bare`` given (pinned surface) or for
+        an ungated 2DEG.
     structure : Heterostructure
     extent_nm : (x0, y0, x1, y1)
         The grid's rectangle, nm: it should reach well past the device, to where the gates' potential has
@@ -248,9 +299,11 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
     initial : ScreenedPotential, optional
         A previous solution on the same grid (warm start along a sweep).
     periodic : bool
-        Periodic boundary conditions (for checks against infinite-system closed forms).
+        Periodic boundary conditions (pinned surface; for checks against infinite-system closed forms).
     bare : (ny, nx) float ndarray, optional
-        A bare potential energy (meV) on the grid instead of the layout's.
+        Pinned surface: a bare potential energy (meV) on the grid instead of the layout's.
+    extra_meV : (ny, nx) float ndarray, optional
+        A potential energy (meV) added to the gates' in the 2DEG (e.g. a probe shift of one region).
 
     Returns
     -------
@@ -275,48 +328,143 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
     nx, ny = len(xs), len(ys)
     if nx * ny > 4_000_000:
         raise RgftransError(f"screening grid of {nx} x {ny} nodes is too large; use a coarser spacing_nm")
-    if bare is None:
-        gx, gy = np.meshgrid(xs, ys)
-        bare = np.asarray(layout.potential_energy_meV(gx, gy), dtype=float)
+    frozen = structure.surface == "frozen"
+    kernels = SurfaceKernels(nx, ny, h, d, structure.eps_r, structure.surface, periodic)
+    target = np.full((ny, nx), np.nan)
+    s_start = np.zeros((ny, nx))
+    if frozen:
+        if bare is not None:
+            raise RgftransError("bare= replaces a pinned surface's closed-form gate potential; with a frozen surface "
+                                "the gates enter through their charges: pass them as layout (and any other "
+                                "potential as extra_meV)")
+        bare = np.zeros((ny, nx))
+        if layout is not None:
+            bare, s_start = frozen_gate_potential(layout, eps_r=structure.eps_r, x_nm=xs, y_nm=ys)
+            target = gate_nodes(layout, xs, ys)
+    elif bare is None:
+        if layout is None:
+            bare = np.zeros((ny, nx))
+        else:
+            gx, gy = np.meshgrid(xs, ys)
+            bare = np.asarray(layout.potential_energy_meV(gx, gy), dtype=float)
     bare = np.asarray(bare, dtype=float)
     if bare.shape != (ny, nx) or not np.all(np.isfinite(bare)):
         raise RgftransError(f"bare potential must be a finite ({ny}, {nx}) array in meV")
+    extra = None
+    if extra_meV is not None:
+        extra = np.asarray(extra_meV, dtype=float)
+        if extra.shape != (ny, nx) or not np.all(np.isfinite(extra)):
+            raise RgftransError(f"extra_meV must be a finite ({ny}, {nx}) array in meV")
+        bare = bare + extra
+    # The potential the minimiser adds to the electrons' own: the gates' (pinned) or none (frozen: the gates
+    # enter through their charges, started from the unscreened solution's), plus any extra.
+    external = bare
+    if frozen:
+        external = np.zeros((ny, nx)) if extra is None else extra
+    mask = np.isfinite(target)
+    u_gates = target[mask]
     dos = structure.dos_per_meV_nm2
     n0 = structure.density_nm2
     mu = structure.fermi_energy_meV
-    coulomb = coulomb_constant_meV_nm(structure.eps_r)
-    kfft, shape = _kernel_fft(nx, ny, h, d, periodic)
+    kt = structure.thermal_energy_meV
+    scale = n0 / dos  # the energy scale (E_F at T = 0)
+    nn = nx * ny
+    # Gate charges enter the minimiser as s = stretch * t, so that t's curvature matches the density's and the
+    # minimiser's scalar initial Hessian fits both (the diagonal of each block, self-terms of the kernels).
+    kt = structure.thermal_energy_meV
+    stretch = 1.0
+    if frozen:
+        diag_n = 1.0 / dos + kernels.coulomb * SELF_TERM * h
+        diag_s = COULOMB_MEV_NM / ((structure.eps_r + 1) / 2) * SELF_TERM * h
+        stretch = math.sqrt(diag_n / diag_s)
+        if kt > 0.0:
+            stretch *= n0  # the chemical-potential variables' curvature is that of the densities times n0^2
+    s_full = np.zeros((ny, nx))
 
-    def induced(dn):
-        pad = np.zeros(shape)
-        pad[:ny, :nx] = dn
-        return coulomb * _fft.irfft2(_fft.rfft2(pad, workers=-1) * kfft, s=shape, workers=-1)[:ny, :nx]
+    # At T = 0 the variables are the densities, bounded below by 0 (depletion is the bound).  Above, the
+    # free energy's curvature kT / n diverges as a node empties, which stalls a bounded minimiser; there the
+    # variables are the local chemical potentials xi (in units of the energy scale), n = D kT ln(1 + e^(xi/kT)),
+    # unbounded, and a depleted node simply has xi far below 0.
+    stretch_n = np.ones((ny, nx))
 
-    scale = mu  # energy scale n0 / D
+    def densities(w):
+        if kt == 0.0:
+            return w.reshape(ny, nx), None
+        xi = scale * stretch_n * w.reshape(ny, nx)
+        return structure.density_of(xi), n0 * stretch_n * _expit(xi / kt)  # n and dn/dw
 
-    def energy_and_gradient(n_flat):
-        n = n_flat.reshape(ny, nx)
-        dn = n - n0
-        u_ind = induced(dn)
-        # per-node energy in units of scale * n0 (dimensionless, O(1) per node)
-        f = np.sum(n * n / (2 * dos) + (bare - mu) * n + 0.5 * dn * u_ind) / (scale * n0)
-        grad = (n / dos + bare - mu + u_ind) / (scale * n0) * 1.0
-        return f, grad.ravel()
+    def potentials(n, t):
+        if not frozen:
+            return kernels.electrons(n - n0), None
+        s_full[mask] = stretch * t
+        return kernels.both(n - n0, s_full)
 
-    start = (np.clip(initial.density_cm2 * NM2_PER_CM2, 0, None).ravel() if initial is not None
-             and initial.density_cm2.shape == (ny, nx) else np.clip(dos * (mu - bare), 0, None).ravel())
-    # L-BFGS-B's projected-gradient test ("pgtol") is on the raw gradient: ours is (local mu - mu) / (scale * n0).
-    result = minimize(energy_and_gradient, start, jac=True, method="L-BFGS-B", bounds=[(0.0, None)] * start.size,
-                      options={"maxiter": max_iterations, "gtol": tolerance / n0, "ftol": 0.0, "maxcor": 20})
-    n = result.x.reshape(ny, nx)
-    u = bare + induced(n - n0)
-    local = n / dos + u - mu  # zero where occupied; >= 0 where depleted (U above mu)
-    violation = np.where(n > 0, np.abs(local), np.maximum(-local, 0.0))
-    gradient = float(violation.max() / scale)
+    def energy_and_gradient(v):
+        n, slope = densities(v[:nn])
+        t = v[nn:]
+        u_n, u_s = potentials(n, t)
+        kinetic, mu_local = structure._kinetic(n)
+        if slope is not None:
+            mu_local = scale * stretch_n * v[:nn].reshape(ny, nx)  # exactly, where ln(exp(x) - 1) of an underflowed n is not
+        f = kinetic + np.sum((external - mu) * n + 0.5 * (n - n0) * u_n)
+        grad_n = (mu_local + external - mu + u_n) / (scale * n0)
+        if slope is not None:
+            grad_n = grad_n * slope
+        if not frozen:
+            return f / (scale * n0), grad_n.ravel()
+        s = stretch * t
+        on_gates = u_s[mask]
+        f += np.sum(0.5 * s * on_gates - u_gates * s)
+        grad_t = stretch * (on_gates - u_gates) / (scale * n0)
+        return f / (scale * n0), np.concatenate([grad_n.ravel(), grad_t])
+
+    if kt > 0.0 and (initial is None or initial.potential_meV.shape != (ny, nx)):
+        initial = screen(layout, replace(structure, temperature_K=0.0), extent_nm=extent_nm, spacing_nm=spacing_nm,
+                         tolerance=max(tolerance, 1e-6), max_iterations=max_iterations, periodic=periodic,
+                         bare=None if frozen else bare, extra_meV=extra if frozen else None)
+    if initial is not None and initial.density_cm2.shape == (ny, nx):
+        n_start = initial.density_cm2 * NM2_PER_CM2
+        if frozen and initial.gate_charge_cm2 is not None:
+            s_start = np.where(mask, initial.gate_charge_cm2 * NM2_PER_CM2, 0.0)
+    else:
+        n_start = structure.density_of(mu - bare)
+    if kt == 0.0:
+        w_start, bounds_n = np.clip(n_start, 0.0, None).ravel(), [(0.0, None)] * nn
+    else:
+        # A node whose start lies many kT below mu has no gradient to climb back by, so the start must already
+        # put every node on the right side: the local chemical potential mu - U of a previous solution, or of
+        # the T = 0 solution (only nodes within a few kT of the depletion edge move).
+        xi_start = mu - initial.potential_meV
+        # Each node's variable is stretched by 1 / sqrt(occupation) at the start, which evens out the curvature
+        # D f (1 + D f K) of nodes near and far from depletion for the minimiser (capped for empty nodes).
+        stretch_n[...] = 1.0 / np.sqrt(np.maximum(_expit(xi_start / kt), OCCUPATION_FLOOR))
+        w_start, bounds_n = (xi_start / (scale * stretch_n)).ravel(), [(None, None)] * nn
+    start = np.concatenate([w_start, s_start[mask] / stretch])
+    bounds = bounds_n + [(None, None)] * int(mask.sum())
+    # L-BFGS-B's projected-gradient test ("pgtol") is on the raw gradient: with densities as variables it is
+    # (local mu - mu) / (scale * n0) (the tolerance is relative to E_F per n0); with chemical potentials,
+    # (local mu - mu) / scale times the occupation (the relative density error).
+    gtol = tolerance / n0 if kt == 0.0 else tolerance
+    result = minimize(energy_and_gradient, start, jac=True, method="L-BFGS-B", bounds=bounds,
+                      options={"maxiter": max_iterations, "gtol": gtol, "ftol": 0.0, "maxcor": 20})
+    n = densities(result.x[:nn])[0]
+    u, u_s = potentials(n, result.x[nn:])
+    u = external + u
+    if kt == 0.0:
+        local = n / dos + u - mu  # zero where occupied; >= 0 where depleted (U above mu)
+        violation = np.where(n > 0, np.abs(local), np.maximum(-local, 0.0)) / scale
+    else:
+        violation = np.abs(n - structure.density_of(mu - u)) / n0  # the relative density error
+    gradient = float(violation.max())
+    if frozen and mask.any():
+        gradient = max(gradient, float(np.abs(u_s[mask] - u_gates).max() / scale))
     if gradient > 10 * tolerance:
         raise ComputationFailed(f"screening did not converge: the local chemical potential is off by "
                                 f"{gradient:.2g} of E_F after {result.nit} iterations ({result.message}); use a "
                                 "coarser grid, a larger tolerance or more iterations")
+    gate_charge = None
+    if frozen:
+        gate_charge = np.where(mask, s_full, 0.0) / NM2_PER_CM2
     return ScreenedPotential(x_nm=xs, y_nm=ys, potential_meV=u, bare_potential_meV=bare,
-                             density_cm2=n / NM2_PER_CM2, fermi_energy_meV=mu, iterations=int(result.nit),
-                             gradient=gradient, structure=structure)
+                             density_cm2=n / NM2_PER_CM2, fermi_energy_meV=mu, gate_charge_cm2=gate_charge,
+                             iterations=int(result.nit), gradient=gradient, structure=structure)

@@ -356,7 +356,7 @@ class GdsSpec(_Table):
 
 
 class GatesSpec(_Table):
-    """Surface gates over the 2DEG (pinned-surface electrostatics, optionally screened by the 2DEG)."""
+    """Surface gates over the 2DEG (pinned or frozen surface, optionally screened by the 2DEG)."""
 
     depth_nm: PositiveFloat
     gate: list[GateSpec] = []
@@ -364,7 +364,11 @@ class GatesSpec(_Table):
     #: "none": the gates' bare potential (no 2DEG screening); "thomas-fermi": screened self-consistently by
     #: the 2DEG of density [material] density_cm2 (rgftrans.electrostatics.screening).
     screening: Literal["none", "thomas-fermi"] = "none"
-    surface: Literal["pinned"] = "pinned"
+    #: The exposed surface between the gates: "pinned" (at a fixed potential) or "frozen" (its charge fixed);
+    #: see rgftrans.electrostatics.surface.  "frozen" needs screening = "thomas-fermi".
+    surface: Literal["pinned", "frozen"] = "pinned"
+    #: Electron temperature of the screening solution (K); 0: Thomas-Fermi at T = 0, above: Fermi-Dirac.
+    screening_temperature_K: Annotated[float, Field(ge=0.0, le=400.0)] = 0.0
     valley_degeneracy: Annotated[int, Field(ge=1, le=6)] = 1
     #: Grid of the screening solution (nm); default: the smaller of depth / 4 and 10 nm.
     screening_grid_nm: PositiveFloat | None = None
@@ -728,6 +732,10 @@ class RunConfig(_Table):
             raise _problem("Thomas-Fermi screening needs the ungated density, got no material.density_cm2; add "
                            "density_cm2 to [material] (the grower's sheet value) or set screening = \"none\"",
                            "gates.screening")
+        if self.gates is not None and self.gates.surface == "frozen" and self.gates.screening != "thomas-fermi":
+            raise _problem("a frozen surface is solved with the 2DEG's screening, got screening = \"none\"; set "
+                           "screening = \"thomas-fermi\" (the unscreened model is the pinned surface's closed form)",
+                           "gates.surface")
         if self.field.zeeman and not self.spin.enabled:
             raise _problem("a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false; "
                            "set enabled = true in [spin], or remove zeeman (it defaults to on with spin)",
@@ -975,7 +983,8 @@ class RunConfig(_Table):
             raise ConfigError(f"{self._source}: a heterostructure needs [gates] depth_nm and [material] density_cm2")
         return Heterostructure(depth_nm=self.gates.depth_nm, density_cm2=self.material.density_cm2,
                                material=self.material.material(), valley_degeneracy=self.gates.valley_degeneracy,
-                               spin_degeneracy=2, surface=self.gates.surface)
+                               spin_degeneracy=2, surface=self.gates.surface,
+                               temperature_K=self.gates.screening_temperature_K)
 
     def screening_grid(self) -> tuple[tuple[float, float, float, float], float]:
         """The screening grid: its rectangle (nm; the device and every gate plus the margin) and spacing (nm)."""

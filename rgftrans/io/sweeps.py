@@ -518,7 +518,12 @@ def write_electrostatics(cfg: RunConfig, path) -> bool:
     from rgftrans.io.store import StoredArray, write_group
 
     sol = cfg.screened(cfg.gate_layout().with_voltages(cfg.gates.voltages()))
+    hs = sol.structure
     grid = ("y", "x")
+    extra = {}
+    if sol.gate_charge_cm2 is not None:
+        extra["gate_charge"] = StoredArray(sol.gate_charge_cm2, "cm^-2", "extra electrons on the gates (frozen "
+                                           "surface; 0 on the exposed surface)", dims=grid)
     write_group(path, "electrostatics", {
         "x": StoredArray(sol.x_nm, "nm", "x position", scale=True),
         "y": StoredArray(sol.y_nm, "nm", "y position", scale=True),
@@ -526,7 +531,9 @@ def write_electrostatics(cfg: RunConfig, path) -> bool:
                                                          "bottom = 0)", dims=grid),
         "bare_potential": StoredArray(sol.bare_potential_meV, "meV", "potential energy of the gates alone", dims=grid),
         "density": StoredArray(sol.density_cm2, "cm^-2", "electron density (0: depleted)", dims=grid),
-    }, attrs={"model": "Thomas-Fermi, pinned surface", "fermi_energy_meV": float(sol.fermi_energy_meV),
+        **extra,
+    }, attrs={"model": f"Thomas-Fermi, {hs.surface} surface", "surface": hs.surface,
+              "temperature_K": float(hs.temperature_K), "fermi_energy_meV": float(sol.fermi_energy_meV),
               "depth_nm": float(cfg.gates.depth_nm), "density_cm2": float(cfg.material.density_cm2),
               "iterations": int(sol.iterations)}, overwrite=True)
     return True

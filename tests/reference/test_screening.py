@@ -117,7 +117,8 @@ def test_the_solution_is_a_device_potential():
 @pytest.mark.parametrize("kwargs, match", [
     (dict(depth_nm=-5.0, density_cm2=2e11), "depth_nm"),
     (dict(depth_nm=60.0, density_cm2=2e20), "density_cm2"),
-    (dict(depth_nm=60.0, density_cm2=2e11, surface="frozen"), "not implemented"),
+    (dict(depth_nm=60.0, density_cm2=2e11, surface="mirror"), "pinned.*frozen"),
+    (dict(depth_nm=60.0, density_cm2=2e11, temperature_K=-1.0), "temperature_K"),
     (dict(depth_nm=60.0, density_cm2=2e11, valley_degeneracy=3), "valley"),
 ])
 def test_bad_heterostructures_are_one_line_errors(kwargs, match):
