@@ -516,7 +516,7 @@ def _cmd_compare(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")
-    from rgftrans.io.compare import argument_names, fit_trace, read_trace
+    from rgftrans.io.compare import argument_names, fit_trace, predicted_lever_arm, read_trace
     from rgftrans.errors import CompareError
     from rgftrans.plots.fits import plot_fit
 
@@ -527,6 +527,7 @@ def _cmd_compare(args) -> int:
         "temperature_K": "--temperature", "noise_S": "--noise", "mu_ref_meV": "--mu-ref", "fit": "--fit",
         "fit_series": "--fit-series", "fit_temperature": "--fit-temperature", "leads": "--leads",
         "gate_axis": "--gate-axis", "select": "--select", "bounds.lever_arm": "--lever-arm-range",
+        "predicted_lever_arm": "--lever-arm-from",
         "bounds.offset": "--offset-range", "bounds.r_series": "--r-series-range",
         "bounds.temperature": "--temperature-range",
     }
@@ -569,6 +570,13 @@ def _cmd_compare(args) -> int:
     from rgftrans.io.store import check_group_writable
 
     check_group_writable(args.save or args.result, args.group, overwrite=args.overwrite)  # before the fit
+    predicted = None
+    if args.lever_arm_from:
+        region, sep, gate = args.lever_arm_from.partition(":")
+        if not (sep and region.strip() and gate.strip()):
+            raise CompareError(f"--lever-arm-from {args.lever_arm_from!r}: write REGION:GATE, e.g. "
+                               "--lever-arm-from dot:plunger")
+        predicted = predicted_lever_arm(args.result, region=region.strip(), gate=gate.strip())
     with argument_names(flags):  # messages name our flags, not Python keywords
         trace = read_trace(args.trace, gate_column=_column(args.gate_column),
                            value_column=_column(args.value_column), kind=args.kind, units=args.units,
@@ -576,7 +584,7 @@ def _cmd_compare(args) -> int:
         result = fit_trace(args.result, trace, temperature_K=args.temperature, fit=fit, r_series_ohm=args.r_series,
                            fit_series=args.fit_series, fit_temperature=args.fit_temperature, noise_S=args.noise,
                            initial=initial or None, bounds=bounds or None, mu_ref_meV=args.mu_ref, leads=leads,
-                           gate_axis=args.gate_axis, select=select or None)
+                           gate_axis=args.gate_axis, select=select or None, predicted_lever_arm=predicted)
     # Only a fit worth reporting gets here (a failed one raised TraceFitFailed: exit 1, nothing written).
     text = result.summary()
     print(text)
@@ -769,6 +777,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--select", action="append", metavar="NAME=VALUE",
                    help="value of another sweep axis (repeat for each)")
     p.add_argument("--lever-arm", type=float, metavar="MEV_PER_V", help="lever arm (start value, or fixed)")
+    p.add_argument("--lever-arm-from", metavar="REGION:GATE", help="start from the lever arm of GATE on dot "
+                                                                    "REGION that the run predicted from the layout "
+                                                                    "([[gates.region]]), and report the distance")
     p.add_argument("--lever-arm-range", metavar="MIN,MAX", help="range of the fitted lever arm in meV/V (default: "
                                                                 "the start's sign, a factor 10 either way)")
     p.add_argument("--offset", type=float, metavar="V", help="gate-voltage offset V_0 (start value, or fixed)")

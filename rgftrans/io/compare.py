@@ -94,6 +94,7 @@ __all__ = [
     "add_series_resistance",
     "fit_trace",
     "model_conductance",
+    "predicted_lever_arm",
     "read_fit",
     "read_trace",
     "remove_series_resistance",
@@ -600,6 +601,11 @@ class TraceFit:
         Where ``mu_ref_meV`` came from (given, the stored Fermi energy, or 0 meV for want of one).
     bounds : dict of str to (float, float)
         The range each fitted parameter was allowed (its units).
+    predicted_lever_arm : float, meV/V
+        The lever arm the layout's electrostatics predict (NaN if none was given); the summary reports the
+        fitted value's distance from it.
+    predicted_from : str
+        Where the prediction came from (e.g. "region 'dot', gate 'plunger' of result.h5").
     """
 
     source: str
@@ -634,6 +640,8 @@ class TraceFit:
     n_evaluations: int
     mu_ref_source: str = ""
     bounds: dict = None
+    predicted_lever_arm: float = float("nan")
+    predicted_from: str = ""
 
     def summary(self) -> str:
         """Multi-line human description: data, noise model, parameters with errors, strong correlations."""
@@ -658,6 +666,13 @@ class TraceFit:
                 lines.append(f"  {name:<{width}} = {value:.6g} ± {err:.2g} {unit}")
             else:
                 lines.append(f"  {name:<{width}} = {value:.6g} {unit} (fixed)")
+        predicted = self.predicted_lever_arm
+        if math.isfinite(predicted) and "lever_arm" in self.values:
+            fitted, err = self.values["lever_arm"], self.stderr["lever_arm"]
+            apart = (f", {abs(fitted - predicted) / err:.1f} standard errors apart" if math.isfinite(err) and err > 0
+                     else "")
+            lines.append(f"  lever arm predicted from the layout ({self.predicted_from}): {predicted:.4g} meV/V; "
+                         f"fitted / predicted = {fitted / predicted:.3g}{apart}")
         strong = [f"{a}/{b} {self.correlation[i, j]:+.3f}"
                   for i, a in enumerate(self.fitted) for j, b in enumerate(self.fitted)
                   if j > i and abs(self.correlation[i, j]) > 0.9]
@@ -699,7 +714,8 @@ class TraceFit:
             "chi_square": self.chi_square, "reduced_chi_square": self.reduced_chi_square, "dof": self.dof,
             "n_points": self.n_points, "noise_S": self.noise_S, "noise_source": self.noise_source,
             "success": self.success, "message": self.message, "n_evaluations": self.n_evaluations,
-            "mu_ref_source": self.mu_ref_source,
+            "mu_ref_source": self.mu_ref_source, "predicted_lever_arm_meV_per_V": self.predicted_lever_arm,
+            "predicted_from": self.predicted_from,
         }
         gate = ("gate_voltage",)
         items = {"gate_voltage": StoredArray(self.gate_V, "V", "measured gate voltage", scale=True)}
@@ -769,6 +785,8 @@ def read_fit(path, group: str = "compare") -> TraceFit:
             mu_ref_source=_text(a.get("mu_ref_source", "")),
             bounds={n: tuple(float(v) for v in g["parameters"][n].attrs["bounds"]) for n in names
                     if "bounds" in g["parameters"][n].attrs},
+            predicted_lever_arm=float(a.get("predicted_lever_arm_meV_per_V", float("nan"))),
+            predicted_from=_text(a.get("predicted_from", "")),
         )
 
 
@@ -982,10 +1000,45 @@ def _start_values(sweep, trace, initial: dict, r_series_ohm, temperature_K, fitt
     return p0
 
 
+def predicted_lever_arm(path, *, region: str, gate: str) -> tuple[float, str]:
+    """The lever arm (meV/V) of ``gate`` on dot ``region`` that a run stored from the layout's electrostatics.
+
+    Reads ``electrostatics/capacitance`` of a result file (written by ``rgftrans run`` for configs with
+    ``[[gates.region]]``): alpha = C_region,gate / C_total, times 1000 meV/V (the energy an electron's level
+    moves per volt on the gate, e alpha).
+
+    Returns
+    -------
+    (float, str)
+        The lever arm in meV/V and a description of where it came from, for :func:`fit_trace`.
+    """
+    path = Path(path)
+    try:
+        f = h5py.File(path, "r")
+    except (OSError, FileNotFoundError) as exc:
+        raise CompareError(f"{path}: cannot be opened as HDF5 ({' '.join(str(exc).split())}); check the path") from None
+    with f:
+        if "electrostatics/capacitance" not in f:
+            raise CompareError(f"{path}: no predicted lever arms (group electrostatics/capacitance); run a config "
+                               "with screening = \"thomas-fermi\" and a [[gates.region]] for the dot")
+        g = f["electrostatics/capacitance"]
+        regions = [_text(v) for v in g["region"][()]]
+        gates = [_text(v) for v in g["gate"][()]]
+        if region not in regions:
+            raise CompareError(f"{path}: no region {region!r} among the stored {regions}; name one of them")
+        if gate not in gates:
+            raise CompareError(f"{path}: no gate {gate!r} among the stored {gates}; name one of them")
+        alpha = float(g["lever_arm"][regions.index(region), gates.index(gate)])
+    if not math.isfinite(alpha) or alpha == 0.0:
+        raise CompareError(f"{path}: the stored lever arm of gate {gate!r} on region {region!r} is {alpha!r} (a "
+                           "depleted or uncoupled region); choose another region or gate")
+    return 1000.0 * alpha, f"region {region!r}, gate {gate!r} of {path.name}"
+
+
 def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series_ohm=0.0, fit_series: bool = False,
               fit_temperature: bool = False, noise_S=None, initial: Mapping[str, float] | None = None,
               bounds: Mapping[str, tuple] | None = None, mu_ref_meV: float | None = None, leads=None,
-              gate_axis=None, select=None, max_evaluations: int = 2000) -> TraceFit:
+              gate_axis=None, select=None, max_evaluations: int = 2000, predicted_lever_arm=None) -> TraceFit:
     """Fit a stored sweep to a measured trace by least squares, or fail loudly.
 
     Minimises sum_i ((G_meas,i - G_model,i) / sigma)² over the fitted
@@ -1034,6 +1087,10 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
         As in :func:`model_conductance`.
     max_evaluations : int, keyword-only
         Cap on model evaluations.
+    predicted_lever_arm : (float, str), keyword-only
+        The layout's prediction of the lever arm (meV/V) and where it came from (see
+        :func:`predicted_lever_arm`).  Energy mode: the start value unless ``initial`` gives one; the result
+        reports the fitted value's distance from it.
 
     Returns
     -------
@@ -1070,6 +1127,16 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
     if n <= k:
         raise CompareError(f"{where}: {n} points cannot determine {k} parameters; measure more points or fit fewer")
     mu_ref, mu_ref_source = _reference_potential(sweep, mu_ref_meV)
+    predicted, predicted_from = float("nan"), ""
+    if predicted_lever_arm is not None:
+        if sweep.mode != "energy":
+            raise CompareError(f"{where}: axis {sweep.gate_axis!r} already is a gate voltage, so no lever arm is "
+                               "fitted; drop the predicted lever arm")
+        predicted, predicted_from = float(predicted_lever_arm[0]), str(predicted_lever_arm[1])
+        if not math.isfinite(predicted) or predicted == 0.0:
+            raise CompareError(f"{where}: predicted lever arm {predicted!r} meV/V is not a finite, non-zero number")
+        initial = dict(initial or {})
+        initial.setdefault("lever_arm", predicted)
     p0 = _start_values(sweep, trace, dict(initial or {}), r_series_ohm, temperature_K, fitted, mu_ref, where)
     if noise_S is not None:
         sigma = float(noise_S)
@@ -1138,6 +1205,7 @@ def fit_trace(result, trace: MeasuredTrace, *, temperature_K, fit=None, r_series
         model_device_S=device, residuals_S=residuals, curve_gate_V=curve_gate,
         curve_S=model(p, curve_gate), success=not problems, message=message, n_evaluations=int(sol.nfev),
         mu_ref_source=mu_ref_source, bounds={name: tuple(float(v) for v in ranges[name]) for name in fitted},
+        predicted_lever_arm=predicted, predicted_from=predicted_from,
     )
     if problems:
         # No warnings about resolution or covariance at parameters nobody should use: the one line says it all.
