@@ -181,7 +181,9 @@ def _print_screening(cfg) -> None:
         return
     hs = cfg.heterostructure()
     layout = cfg.gate_layout().with_voltages(cfg.gates.voltages())
-    from rgftrans.electrostatics.screening import DEPLETED_FRACTION
+    import math
+
+    from rgftrans.electrostatics.screening import DEPLETED_FRACTION, DEPLETION_SEARCH_FACTOR, depletion_voltage
 
     sol = cfg.screened(layout)
     _, h = cfg.screening_grid()
@@ -190,17 +192,19 @@ def _print_screening(cfg) -> None:
           f"n0 = {hs.density_cm2:.3g} cm^-2, mu = {hs.fermi_energy_meV:.3g} meV), grid {sol.x_nm.size} x "
           f"{sol.y_nm.size} at {h:g} nm, "
           f"{sol.iterations} iterations; a wide gate would deplete the 2DEG at {hs.depletion_voltage_V():.3f} V")
-    step = 0.02  # V: small against depletion voltages of tenths of a volt, large against the solver's tolerance
+    extent, _ = cfg.screening_grid()
+    wide = hs.depletion_voltage_V()
     for gate in layout.gates:
         px, py = gate.shape.geometry.representative_point().coords[0]
         n_here = _density_at(sol, px, py)
-        if n_here <= DEPLETED_FRACTION * hs.density_cm2:
-            print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: the 2DEG under it is depleted")
-            continue
-        nudged = cfg.screened(layout.with_voltages({gate.name: gate.voltage - step}))
-        slope = (n_here - _density_at(nudged, px, py)) / step  # cm^-2 per V
-        where = f"depletes near {gate.voltage - n_here / slope:+.3f} V (linear estimate)" if slope > 0 else ""
-        print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: {n_here:.3g} cm^-2 under it; {where}")
+        state = "depleted" if n_here <= DEPLETED_FRACTION * hs.density_cm2 else f"{n_here:.3g} cm^-2"
+        v_dep = depletion_voltage(layout, hs, gate.name, extent_nm=extent, spacing_nm=h, initial=sol)
+        if math.isinf(v_dep):
+            where = ("not depleted down to " if v_dep < 0 else "depleted by its neighbours even at ") + \
+                f"{DEPLETION_SEARCH_FACTOR * wide:+.3f} V"
+        else:
+            where = f"depletes at {v_dep:+.3f} V ({v_dep / wide:.2f} x the wide-gate value)"
+        print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: 2DEG under it {state}; {where}")
 
 
 def _density_at(solution, x, y) -> float:

@@ -418,10 +418,13 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
         grad_t = stretch * (on_gates - u_gates) / (scale * n0)
         return f / (scale * n0), np.concatenate([grad_n.ravel(), grad_t])
 
-    if kt > 0.0 and (initial is None or initial.potential_meV.shape != (ny, nx)):
+    if kt > 0.0:
+        # Always through the T = 0 solution at these voltages (cheap, bounded, robust), warm-started if possible.
+        usable = initial is not None and initial.potential_meV.shape == (ny, nx)
         initial = screen(layout, replace(structure, temperature_K=0.0), extent_nm=extent_nm, spacing_nm=spacing_nm,
                          tolerance=max(tolerance, 1e-6), max_iterations=max_iterations, periodic=periodic,
-                         bare=None if frozen else bare, extra_meV=extra if frozen else None)
+                         bare=None if frozen else bare, extra_meV=extra if frozen else None,
+                         initial=initial if usable else None)
     if initial is not None and initial.density_cm2.shape == (ny, nx):
         n_start = initial.density_cm2 * NM2_PER_CM2
         if frozen and initial.gate_charge_cm2 is not None:
@@ -432,8 +435,8 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
         w_start, bounds_n = np.clip(n_start, 0.0, None).ravel(), [(0.0, None)] * nn
     else:
         # A node whose start lies many kT below mu has no gradient to climb back by, so the start must already
-        # put every node on the right side: the local chemical potential mu - U of a previous solution, or of
-        # the T = 0 solution (only nodes within a few kT of the depletion edge move).
+        # put every node on the right side: the local chemical potential mu - U of the T = 0 solution (only
+        # nodes within a few kT of the depletion edge move).
         xi_start = mu - initial.potential_meV
         # Each node's variable is stretched by 1 / sqrt(occupation) at the start, which evens out the curvature
         # D f (1 + D f K) of nodes near and far from depletion for the minimiser (capped for empty nodes).
@@ -468,3 +471,63 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
     return ScreenedPotential(x_nm=xs, y_nm=ys, potential_meV=u, bare_potential_meV=bare,
                              density_cm2=n / NM2_PER_CM2, fermi_energy_meV=mu, gate_charge_cm2=gate_charge,
                              iterations=int(result.nit), gradient=gradient, structure=structure)
+
+
+#: How far past the wide-gate depletion voltage (as a multiple) :func:`depletion_voltage` looks for a gate's own:
+#: narrow fingers deplete their 2DEG at 1.5-3 times it (fringing fields), so 6 leaves room.
+DEPLETION_SEARCH_FACTOR = 6.0
+
+
+def depletion_voltage(layout, structure: Heterostructure, gate: str, *, extent_nm, spacing_nm: float,
+                      at=None, tolerance_V: float = 2e-3, initial: ScreenedPotential | None = None) -> float:
+    """The voltage on one gate at which the band bottom under it reaches mu (the 2DEG there empties).
+
+    The other gates keep their voltages.  The local chemical potential ``mu - U`` at the point is continuous and
+    decreasing in the gate's voltage, so its zero is found by Brent's method (scipy.optimize.brentq) to
+    ``tolerance_V``, each step a warm-started :func:`screen`.
+
+    Parameters
+    ----------
+    layout : GateLayout
+    structure : Heterostructure
+    gate : str
+        The gate's name.
+    extent_nm, spacing_nm
+        The screening grid, as in :func:`screen`.
+    at : (x, y) nm, optional
+        Where the 2DEG is watched; default a point inside the gate's outline (shapely's representative point).
+    tolerance_V : float
+    initial : ScreenedPotential, optional
+        A solution on the same grid to start from.
+
+    Returns
+    -------
+    float, V
+        The depletion voltage; ``-inf`` when the 2DEG there does not empty down to
+        ``DEPLETION_SEARCH_FACTOR`` times the wide-gate value, ``+inf`` when it is empty even at the opposite
+        voltage (its neighbours deplete it).
+    """
+    from scipy.optimize import brentq
+
+    names = layout.names
+    if gate not in names:
+        raise RgftransError(f"no gate {gate!r} in the layout; its gates are {', '.join(map(repr, names))}")
+    shape = layout.gates[names.index(gate)].shape.geometry
+    x, y = shape.representative_point().coords[0] if at is None else (float(at[0]), float(at[1]))
+    mu = structure.fermi_energy_meV
+    last = [initial]
+
+    def margin(volts):
+        sol = screen(layout.with_voltages({gate: float(volts)}), structure, extent_nm=extent_nm,
+                     spacing_nm=spacing_nm, initial=last[0])
+        last[0] = sol
+        return mu - float(sol(x, y))
+
+    limit = DEPLETION_SEARCH_FACTOR * structure.depletion_voltage_V()  # negative
+    low = margin(limit)
+    if low > 0:
+        return float("-inf")
+    high = margin(-limit)
+    if high <= 0:
+        return float("inf")
+    return float(brentq(margin, limit, -limit, xtol=tolerance_V, rtol=1e-6))
