@@ -207,7 +207,7 @@ BAD = [
      "sweep.axis[0].parameter: unknown sweep parameter, got 'gates.plungr.voltage_V'; "
      "did you mean 'gates.plunger.voltage_V'?"),
     ("sweep of unknown parameter", toml(gates=GATES, sweep=axis("temperature")),
-     "sweep.axis[0].parameter: unknown sweep parameter, got 'temperature'; allowed here: field.tesla, "
+     "sweep.axis[0].parameter: unknown sweep parameter, got 'temperature'; allowed here: field.tesla, field.flux_per_cell, "
      "potential.constant_meV, spin.rashba_meV_nm, disorder.width_meV, disorder.seed, gates.plunger.voltage_V, "
      "leads.source.potential_meV, leads.source.offset_nm, leads.drain.potential_meV, leads.drain.offset_nm"),
     ("sweep axis with two forms", toml(sweep=axis("field.tesla", "values = [0.0]\nstart = 0.0\n")),

@@ -289,6 +289,9 @@ class LatticeSpec(_Table):
     kind: Literal["square", "honeycomb", "triangular"]
     spacing_nm: PositiveFloat
     hopping_meV: PositiveFloat | None = None
+    #: Energy zero at the clean band's bottom (effective mass) or its centre (tight-binding units: with
+    #: hopping_meV = 1 and spacing_nm = 1 every energy is in units of t and every length in lattice constants).
+    energy_origin: Literal["band_bottom", "band_centre"] = "band_bottom"
 
     @model_validator(mode="after")
     def _check_hopping(self):
@@ -317,6 +320,14 @@ class GateSpec(ShapeSpec):
     voltage_V: float
 
     _several_advice: ClassVar[str] = "a gate has one outline: split it into two gates or draw one polygon"
+
+
+class ChargeRegionSpec(ShapeSpec):
+    """A named part of the 2DEG (a dot, a reservoir) whose charge, capacitances and lever arms are reported."""
+
+    name: Name
+
+    _several_advice: ClassVar[str] = "a region has one outline: split it into two regions or draw one polygon"
 
 
 class GdsSpec(_Table):
@@ -374,6 +385,9 @@ class GatesSpec(_Table):
     screening_grid_nm: PositiveFloat | None = None
     #: How far the screening grid reaches past the device and the gates (nm); default: 4 depths.
     screening_margin_nm: PositiveFloat | None = None
+    #: Named parts of the 2DEG (dots, reservoirs): their electron number, capacitance matrix to the gates and
+    #: to each other, lever arms and charging energy (needs screening = "thomas-fermi").
+    region: list[ChargeRegionSpec] = []
 
     @model_validator(mode="after")
     def _check_gates(self):
@@ -391,6 +405,13 @@ class GatesSpec(_Table):
                 if name in seen:
                     raise _problem(f"duplicate gate name, got {name!r} (also a [[gates.gate]]); "
                                    "give every gate its own name", f"gds.layers.{layer}")
+        for k, spec in enumerate(self.region):
+            if spec.name in self.names() or spec.name in [r.name for r in self.region[:k]]:
+                raise _problem(f"duplicate name, got region {spec.name!r}; give every gate and region its own name",
+                               f"region[{k}].name")
+        if self.region and self.screening != "thomas-fermi":
+            raise _problem("charge regions need the 2DEG's charge, got screening = \"none\"; set screening = "
+                           "\"thomas-fermi\" or remove the [[gates.region]] tables", "region")
         where = {spec.name: f"gate[{k}].voltage_V" for k, spec in enumerate(self.gate)}
         for name, volts in self.voltages().items():
             if abs(volts) > MAX_GATE_VOLTAGE_V:
@@ -436,6 +457,15 @@ class FieldSpec(_Table):
     tesla: float = 0.0
     orbital: bool = True
     zeeman: bool | None = None
+    #: The field as flux quanta h/e through one lattice cell, instead of tesla (tight-binding convention).
+    flux_per_cell: Annotated[float, Field(ge=-1.0, le=1.0)] | None = None
+
+    @model_validator(mode="after")
+    def _check_one_field(self):
+        if self.flux_per_cell is not None and self.tesla != 0.0:
+            raise _problem(f"the field is given twice, got tesla = {self.tesla!r} and flux_per_cell = "
+                           f"{self.flux_per_cell!r}; keep one", "flux_per_cell")
+        return self
 
 
 class SpinSpec(_Table):
@@ -736,6 +766,12 @@ class RunConfig(_Table):
             raise _problem("a frozen surface is solved with the 2DEG's screening, got screening = \"none\"; set "
                            "screening = \"thomas-fermi\" (the unscreened model is the pinned surface's closed form)",
                            "gates.surface")
+        if self.lattice.energy_origin == "band_centre" and (self.energy.relative_to_fermi or (
+                self.gates is not None and self.gates.screening == "thomas-fermi")):
+            raise _problem("energies from the band centre cannot be measured from a Fermi energy or screened by a "
+                           "2DEG, got energy_origin = \"band_centre\" with relative_to_fermi or Thomas-Fermi "
+                           "screening; both count energy from the band bottom, so use energy_origin = "
+                           "\"band_bottom\"", "lattice.energy_origin")
         if self.field.zeeman and not self.spin.enabled:
             raise _problem("a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false; "
                            "set enabled = true in [spin], or remove zeeman (it defaults to on with spin)",
@@ -829,6 +865,7 @@ class RunConfig(_Table):
         """Every parameter a sweep of this config may vary, by dotted path."""
         out = [
             Parameter("field.tesla", "T", "perpendicular magnetic field B"),
+            Parameter("field.flux_per_cell", "1", "flux through one lattice cell in flux quanta h/e"),
             Parameter("potential.constant_meV", "meV", "constant potential energy in the device"),
             Parameter("spin.rashba_meV_nm", "meV nm", "Rashba spin-orbit coupling alpha"),
             Parameter("disorder.width_meV", "meV", "Anderson disorder width W"),
@@ -847,6 +884,7 @@ class RunConfig(_Table):
         """The value of every sweep parameter as the config writes it (offsets 0)."""
         point = {
             "field.tesla": self.field.tesla,
+            "field.flux_per_cell": self.field.flux_per_cell or 0.0,
             "potential.constant_meV": self.potential.constant_meV,
             "spin.rashba_meV_nm": self.spin.rashba_meV_nm,
             "disorder.width_meV": self.disorder.width_meV if self.disorder else 0.0,
@@ -927,6 +965,12 @@ class RunConfig(_Table):
             self._layout = GateLayout(tuple(gates), self.gates.depth_nm)
         return self._layout
 
+    def charge_regions(self) -> dict[str, Region]:
+        """The named 2DEG regions of ``[[gates.region]]`` (nm), in config order; empty without any."""
+        if self.gates is None:
+            return {}
+        return {spec.name: spec.region() for spec in self.gates.region}
+
     def build_device(self, point: Mapping[str, float] | None = None) -> Device:
         """The device at one point of the sweep.
 
@@ -969,7 +1013,9 @@ class RunConfig(_Table):
             material=self.material.material(),
             potential=potential,
             hopping=self.lattice.hopping_meV,
-            field=MagneticField(p["field.tesla"], orbital=self.field.orbital, zeeman=self.field.zeeman),
+            energy_origin=self.lattice.energy_origin,
+            field=MagneticField(p["field.tesla"], orbital=self.field.orbital, zeeman=self.field.zeeman,
+                                flux_per_cell=p["field.flux_per_cell"] or None),
             spin=self.spin.enabled,
             rashba=p["spin.rashba_meV_nm"],
             disorder=Disorder(width, int(p["disorder.seed"])) if width > 0.0 else None,

@@ -366,6 +366,12 @@ class Device:
         Rashba spin-orbit strength alpha (needs ``spin=True``).
     disorder : Disorder, optional
         Anderson disorder inside the device (not in the leads).
+    energy_origin : {"band_bottom", "band_centre"}
+        Where energy zero lies: at the bottom of the clean lattice's band (the onsite term ``z t`` of the
+        effective-mass discretisation; energies then compare with E = hbar^2 k^2 / 2m*), or at its centre (no
+        onsite term; the tight-binding convention).  Tight-binding units: ``hopping=1.0``,
+        ``energy_origin="band_centre"``, a lattice of spacing 1 (lengths in lattice constants) and the field
+        as ``MagneticField(flux_per_cell=...)``; every energy (labelled meV) is then in units of t.
     """
 
     region: Region
@@ -378,8 +384,12 @@ class Device:
     spin: bool = False
     rashba: float = 0.0
     disorder: Disorder | None = None
+    energy_origin: str = "band_bottom"
 
     def __post_init__(self):
+        if self.energy_origin not in ENERGY_ORIGINS:
+            raise PotentialError(f"energy_origin must be one of {', '.join(map(repr, ENERGY_ORIGINS))}, got "
+                                 f"{self.energy_origin!r}")
         if not isinstance(self.region, Region):
             raise GeometryError(f"region must be a Region (rectangle(...), disk(...), polygon(...) in nm), got "
                                 f"{type(self.region).__name__}")
@@ -504,6 +514,8 @@ MAX_POTENTIAL_MEV = 1e4
 #: Hoppings accepted (meV): graphene's 2.7 eV is the largest in use, and below a microelectronvolt no
 #: band is worth the name (common practice, no source).
 HOPPING_RANGE_MEV = (1e-3, 1e5)
+#: Where energy zero lies: the clean band's bottom (effective-mass convention) or its centre (tight binding).
+ENERGY_ORIGINS = ("band_bottom", "band_centre")
 
 
 class _Terms:
@@ -512,9 +524,12 @@ class _Terms:
     def __init__(self, device: Device):
         self.lattice = device.lattice
         self.t = device.t
+        # The onsite z t of the effective-mass discretisation puts energy zero at the clean band's bottom.
+        self.band_offset = device.lattice.onsite_in_t * self.t if device.energy_origin == "band_bottom" else 0.0
         self.norbs = 2 if device.spin else 1
         field_ = device.magnetic_field
-        self.tesla = field_.tesla if field_.orbital else 0.0
+        tesla = field_.tesla_on(device.lattice)
+        self.tesla = tesla if field_.orbital else 0.0
         self.rashba = float(device.rashba)
         if not np.isfinite(self.rashba):
             raise PotentialError(f"Rashba strength must be finite, got {device.rashba!r} meV nm")
@@ -528,8 +543,8 @@ class _Terms:
                 "nothing; set spin=True on the device, or leave zeeman at None"
             )
         self.zeeman = None
-        if device.spin and field_.zeeman is not False and field_.tesla != 0.0:
-            self.zeeman = zeeman_matrix(device.material_data.g_factor, field_.tesla)
+        if device.spin and field_.zeeman is not False and tesla != 0.0:
+            self.zeeman = zeeman_matrix(device.material_data.g_factor, tesla)
 
     def onsite(self, scalar: np.ndarray) -> np.ndarray:
         """(n, norbs, norbs) onsite blocks from scalar onsite energies."""
@@ -600,7 +615,7 @@ def discretise(device: Device) -> TightBindingModel:
     geoms = _lead_geometries(device, cells, xy, index)
     n = len(cells)
     potential = _evaluate_potential(device.potential, xy)
-    scalar_onsite = lattice.onsite_in_t * t + potential
+    scalar_onsite = terms.band_offset + potential
     if device.disorder is not None:
         scalar_onsite = scalar_onsite + device.disorder.values(cells)
 
@@ -616,7 +631,8 @@ def discretise(device: Device) -> TightBindingModel:
         _warn_lead_steps(device.leads, leads, potential, terms.norbs, xy)
     return TightBindingModel(hamiltonian=ham.tocsr(), positions=xy, leads=tuple(leads), energy_scale=t,
                              coordination=lattice.coordination, norbs=terms.norbs,
-                             spacing_nm=lattice.spacing if device.hopping is None else None,
+                             spacing_nm=(lattice.spacing if device.hopping is None
+                                         and device.energy_origin == "band_bottom" else None),
                              potential_meV=potential)
 
 
@@ -803,7 +819,7 @@ def _lead_model(geo: _LeadGeometry, terms: _Terms, lattice: Lattice, xy, f_dev, 
     idx0 = _CellIndex(cell0)
     r, c = _bond_pairs(lattice, cell0, idx0)
     h_cell = terms.dense(r, c, terms.hop(pos0[r], pos0[c], f_lead[r], f_lead[c]), (m, m))
-    onsite = np.full(m, lattice.onsite_in_t * t + geo.lead.potential)
+    onsite = np.full(m, terms.band_offset + geo.lead.potential)
     h_cell += terms.dense(np.arange(m), np.arange(m), terms.onsite(onsite), (m, m))
     r, c = _bond_pairs(lattice, cell0, _CellIndex(cell1))
     h_hop = terms.dense(r, c, terms.hop(pos0[r], pos1[c], f_lead[r], f_lead[c]), (m, m))

@@ -36,12 +36,15 @@ from rgftrans.constants import BOHR_MAGNETON_MEV_PER_T
 from rgftrans.errors import PotentialError
 
 __all__ = [
-    "MagneticField", "Disorder", "FLUX_PHASE_PER_T_NM2", "BOHR_MAGNETON_MEV_PER_T",
+    "MagneticField", "Disorder", "FLUX_PHASE_PER_T_NM2", "FLUX_QUANTUM_T_NM2", "BOHR_MAGNETON_MEV_PER_T",
     "peierls_phase", "gauge_weight", "zeeman_matrix", "rashba_matrix", "PAULI",
 ]
 
 #: e / hbar in rad per (T nm^2): the Peierls phase of a flux of 1 T through 1 nm^2.
 FLUX_PHASE_PER_T_NM2 = constants.e / constants.hbar * 1e-18
+
+#: h / e in T nm^2 (CODATA via scipy.constants): 4135.67 T nm^2.
+FLUX_QUANTUM_T_NM2 = constants.h / constants.e * 1e18
 
 PAULI = {
     "0": np.eye(2, dtype=complex),
@@ -64,6 +67,10 @@ class MagneticField:
     ----------
     tesla : float
         B_z in T.
+    flux_per_cell : float, optional
+        The field as flux through one unit cell of the lattice, in flux quanta h/e (the tight-binding
+        convention): a plaquette of the square lattice, a hexagon of the honeycomb, two triangles of the
+        triangular lattice.  Give this or ``tesla``, not both; :meth:`tesla_on` converts, B = phi (h/e) / A_cell.
     orbital : bool
         Include the Peierls phases.
     zeeman : bool or None
@@ -75,13 +82,30 @@ class MagneticField:
     tesla: float = 0.0
     orbital: bool = True
     zeeman: bool | None = None
+    flux_per_cell: float | None = None
 
     def __post_init__(self):
+        if self.flux_per_cell is not None:
+            phi = self.flux_per_cell
+            if not (isinstance(phi, (int, float)) and np.isfinite(phi) and abs(phi) <= 1.0):
+                raise PotentialError(f"flux per cell must be a finite number of flux quanta in [-1, 1], got {phi!r}; "
+                                     "the spectrum is periodic in it with period 1")
+            if self.tesla != 0.0:
+                raise PotentialError(f"the field is given twice ({self.tesla:g} T and {phi:g} flux quanta per cell); "
+                                     "give tesla or flux_per_cell")
         if not np.isfinite(self.tesla):
             raise PotentialError(f"magnetic field must be finite, got B = {self.tesla} T; give a number in tesla")
         if abs(self.tesla) > MAX_FIELD_T:
             raise PotentialError(f"magnetic field {self.tesla:g} T is beyond +-{MAX_FIELD_T:g} T, more than any "
                                  "laboratory magnet gives; the field is in tesla")
+
+
+    def tesla_on(self, lattice) -> float:
+        """B in T on a lattice: ``tesla``, or ``flux_per_cell * (h/e) / A_cell`` with A_cell = |a1 x a2|."""
+        if self.flux_per_cell is None:
+            return float(self.tesla)
+        area_nm2 = abs(float(np.linalg.det(np.asarray(lattice.vectors, dtype=float))))
+        return float(self.flux_per_cell) * FLUX_QUANTUM_T_NM2 / area_nm2
 
 
 @dataclass(frozen=True)
