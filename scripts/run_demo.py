@@ -167,6 +167,8 @@ def gated_dot(out: Path) -> None:
     """The gated dot through the sweep engine: config -> local processes -> HDF5 -> thermal conductance."""
     import matplotlib.pyplot as plt
 
+    from rgftrans.plots.figures import plot_density
+
     cfg = load_config(ROOT / "configs" / "gated_dot.toml")
     report = run_sweep(cfg, quiet=True, path=out / "gated_dot.h5")
     data = read_result(report.path)
@@ -183,10 +185,14 @@ def gated_dot(out: Path) -> None:
           f"{report.n_resumed} found in the file) in {report.seconds:.1f} s -> {report.path}")
     for temp in temps:
         print(f"[gated dot]   T = {temp:g} K: G from {g_t[temp].min():.3f} to {g_t[temp].max():.3f} 2e²/h")
-    layout = cfg.gate_layout()
-    fig, ax = plot_gate_potential(layout, extent_nm=cfg.build_device().region.bounds)
-    ax.set_title("Invented gated dot: 2DEG potential energy")
+    layout = cfg.gate_layout().with_voltages(cfg.gates.voltages())
+    screened = cfg.screened(layout)
+    fig, ax = plot_gate_potential(layout, extent_nm=cfg.build_device().region.bounds, potential=screened)
+    ax.set_title("Invented gated dot: 2DEG potential energy, screened (plunger at -0.60 V)", fontsize="medium")
     fig.savefig(out / "gated_dot_potential.png", dpi=150)
+    fig, ax = plot_density(screened, layout=layout)
+    ax.set_title("Invented gated dot: screened electron density (plunger at -0.60 V)", fontsize="medium")
+    fig.savefig(out / "gated_dot_density.png", dpi=150)
     fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
     volts = axis.values
     for temp, style in zip(temps, ("-", "--", ":")):
@@ -240,22 +246,22 @@ def five_gate_dot(out: Path) -> None:
 def synthetic_trace(out: Path) -> None:
     """A synthetic measured plunger trace made from the gated-dot sweep, then fitted back with `rgftrans compare`.
 
-    Invented truth: 1 K, gate offset +0.8 mV, series resistance 3 kOhm, Gaussian noise 0.3 % of 2e²/h (seeded).
+    Invented truth: 1 K, gate offset +8 mV, series resistance 3 kOhm, Gaussian noise 0.3 % of 2e²/h (seeded).
     """
     from rgftrans.cli import main as rgftrans_main
     from rgftrans.io.compare import model_conductance
 
     cfg = load_config(ROOT / "configs" / "gated_dot.toml")
     result = out / "gated_dot.h5"
-    truth = {"temperature_K": 1.0, "offset_V": 0.8e-3, "r_series_ohm": 3000.0}
-    gate = np.linspace(-0.0545, -0.0395, 301)
+    truth = {"temperature_K": 1.0, "offset_V": 8e-3, "r_series_ohm": 3000.0}
+    gate = np.linspace(-0.73, -0.47, 301)
     g_model = model_conductance(result, gate, mu_ref_meV=cfg.fermi_energy_meV, gate_axis="gates.plunger.voltage_V",
                                 **truth)
     noise = 0.003 * CONDUCTANCE_QUANTUM_S
     g_meas = g_model + np.random.default_rng(20261202).normal(0.0, noise, gate.size)
     csv_path = out / "synthetic_plunger_trace.csv"
     np.savetxt(csv_path, np.column_stack([gate, g_meas * 1e6]), delimiter=",", fmt="%.9g",
-               header="# SYNTHETIC trace, not a measurement: made from the invented gated dot at 1 K, offset +0.8 mV, "
+               header="# SYNTHETIC trace, not a measurement: made from the invented gated dot at 1 K, offset +8 mV, "
                       "R_s = 3 kOhm, noise 0.3 % of 2e2/h\nVg [V],G [uS]", comments="")
     print(f"[measured trace] {csv_path.name}: SYNTHETIC (made from the model with invented temperature, offset, R_s "
           "and noise); fitting it back:")

@@ -110,7 +110,7 @@ def test_gated_demo_new_form_sweeps_the_plunger_around_the_fermi_energy():
     (plunger,) = config.axes()
     assert plunger.parameter == "gates.plunger.voltage_V" and plunger.name == "gates__plunger__voltage_V"
     assert plunger.units == "V" and "plunger" in plunger.long_name
-    np.testing.assert_allclose(plunger.values, np.linspace(-0.056, -0.036, 41))
+    np.testing.assert_allclose(plunger.values, np.linspace(-0.75, -0.45, 41))
     np.testing.assert_allclose(config.temperatures(), [0.1, 1.0])
     e_f = config.fermi_energy_meV
     energies = config.energies()

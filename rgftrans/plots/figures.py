@@ -244,7 +244,7 @@ def _site_inset(ax, model, xy: np.ndarray, spacing: float, unit: str = "nm", hal
 
 
 def plot_gate_potential(layout, *, extent_nm: tuple[float, float, float, float], ax=None, resolution: int = 200,
-                        cmap: str | None = None):
+                        cmap: str | None = None, potential=None):
     """Colour map of the electron potential energy U (meV) of a gate layout, with each gate outlined and named.
 
     Parameters
@@ -259,6 +259,9 @@ def plot_gate_potential(layout, *, extent_nm: tuple[float, float, float, float],
         Colour map.  Default: sequential when U has one sign over the window
         (all repulsive or all attractive), diverging and centred on U = 0 when
         it changes sign.
+    potential : callable, optional
+        ``U(x, y)`` in meV to draw instead of the layout's bare potential, e.g. the 2DEG-screened
+        :class:`~rgftrans.electrostatics.screening.ScreenedPotential` of these gates (the title says which).
 
     Returns
     -------
@@ -288,11 +291,12 @@ def plot_gate_potential(layout, *, extent_nm: tuple[float, float, float, float],
         raise GeometryError(f"resolution must be an integer >= 2, got {resolution!r}; e.g. 200")
 
     fig, ax = _axes(ax)
-    ax.set_title(f"gates over a 2DEG at depth {layout.depth_nm:g} nm", fontsize="medium")
+    which = "screened by the 2DEG" if potential is not None else "bare, unscreened"
+    ax.set_title(f"gates over a 2DEG at depth {layout.depth_nm:g} nm ({which})", fontsize="medium")
     xs = np.linspace(xmin, xmax, int(resolution))
     ys = np.linspace(ymin, ymax, int(resolution))
     gx, gy = np.meshgrid(xs, ys)
-    energy = layout.potential_energy_meV(gx, gy)
+    energy = np.asarray((potential or layout.potential_energy_meV)(gx, gy), dtype=float)
     auto_cmap, diverging = signed_colour_scale(energy)
     norm = CenteredNorm(vcenter=0.0) if diverging else None
     mesh = ax.pcolormesh(xs, ys, energy, shading="auto", cmap=cmap or auto_cmap, norm=norm, rasterized=True)
