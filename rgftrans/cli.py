@@ -207,6 +207,25 @@ def _print_screening(cfg) -> None:
         print(f"    gate {gate.name!r} at {gate.voltage:+.3f} V: 2DEG under it {state}; {where}")
 
 
+def _print_capacitances(cfg) -> None:
+    """The named regions' capacitance matrix, lever arms and charging energies (config voltages)."""
+    import warnings
+
+    if cfg.gates is None or not cfg.charge_regions():
+        return
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = cfg.capacitances()
+    print("  capacitances at these voltages (Thomas-Fermi response; constant-interaction model):")
+    for line in result.summary().splitlines():
+        print(f"    {line}")
+    names = result.region_names
+    print("    capacitance matrix C (aF), rows and columns " + ", ".join(map(repr, names)) + ": " +
+          "; ".join(" ".join(f"{v:.4g}" for v in row) for row in result.capacitance_matrix_aF))
+    for w in caught:
+        print(f"    note: {w.message}")
+
+
 def _density_at(solution, x, y) -> float:
     """Density (cm^-2) at the grid node nearest (x, y) nm."""
     import numpy as np
@@ -262,6 +281,7 @@ def _cmd_check(args) -> int:
     _say_where_written(args.config, cfg.output.path)
     _print_regime(cfg, device, model, poles)
     _print_screening(cfg)
+    _print_capacitances(cfg)
     if args.draw:
         import matplotlib
 

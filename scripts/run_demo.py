@@ -232,7 +232,22 @@ def five_gate_dot(out: Path) -> None:
           f"gates screened by the 2DEG (Thomas-Fermi; a wide gate depletes at {hs.depletion_voltage_V():.3f} V); "
           f"{report.n_points} plunger voltages in {report.seconds:.1f} s; G(E_F, 0.1 K) from {g_f.min():.3f} to "
           f"{g_f.max():.3f} 2e²/h; depleted fraction of the grid {sol.depleted.mean():.2f}")
-    fig, ax = plot_density(sol, layout=cfg.gate_layout())
+    # The dot's constant-interaction numbers: at the config's voltages (open barriers: rough, flagged) and with
+    # both barriers closed at -1.0 V, the Coulomb-blockade regime of the same layout.
+    import warnings
+
+    from rgftrans.electrostatics.capacitance import gate_capacitances
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the open dot's note is part of its summary line
+        open_dot = cfg.capacitances()
+    print("[five-gate dot] at the config's voltages: " + open_dot.summary())
+    closed_volts = {**cfg.gates.voltages(), "left_barrier": -1.0, "right_barrier": -1.0}
+    extent, spacing = cfg.screening_grid()
+    closed_dot = gate_capacitances(cfg.gate_layout().with_voltages(closed_volts), hs, cfg.charge_regions(),
+                                   extent_nm=extent, spacing_nm=spacing)
+    print("[five-gate dot] barriers closed at -1.0 V: " + closed_dot.summary())
+    fig, ax = plot_density(sol, layout=cfg.gate_layout(), regions=cfg.charge_regions())
     ax.set_title("Invented five-gate dot: screened electron density", fontsize="medium")
     fig.savefig(out / "five_gate_dot_density.png", dpi=150)
     fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")

@@ -181,3 +181,42 @@ def test_split_gate_pinches_off_beyond_the_depletion_voltage(tmp_path):
     assert g[0] > 2.0 and g[-2] < 0.01, g  # open at small voltages, pinched off at -0.7 V (measured 6.8 and 1e-7)
     assert g[1] > 2.0, g  # at about the wide-gate depletion voltage the 60 nm gap still conducts (measured 4.8)
     assert abs(voltages[1] / v_dep - 1) < 0.2  # the second point is the wide-gate depletion voltage
+
+
+def test_named_regions_get_capacitances_in_check_run_and_the_file(tmp_path, capsys):
+    """[[gates.region]]: check prints the constant-interaction numbers, run stores them, compare reads them."""
+    import h5py
+
+    from rgftrans.io.compare import predicted_lever_arm
+
+    text = BASE.replace("[[leads]]", '[[gates.region]]\nname = "gap"\nrectangle_nm = [130.0, 80.0, 170.0, 120.0]\n\n'
+                        "[[leads]]", 1)
+    path = tmp_path / "regions.toml"
+    path.write_text(text.format(out=tmp_path / "r.h5").replace("points = 5", "points = 2"))
+    assert main(["check", str(path)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "region 'gap' (OPEN to the reservoirs)" in out and "E_C = e^2/C_Sigma" in out
+    assert "capacitance matrix C (aF)" in out and "note: region 'gap' is open" in out
+    assert main(["run", str(path), "--quiet", "--workers", "1"]) == EXIT_OK
+    cfg = parse_config(text.format(out=tmp_path / "r.h5"), source="regions.toml")
+    caps = cfg.capacitances()
+    with h5py.File(tmp_path / "r.h5", "r") as f:
+        g = f["electrostatics/capacitance"]
+        assert g["lever_arm"].attrs["units"] == "1" and g["capacitance_matrix"].attrs["units"] == "aF"
+        assert np.allclose(g["lever_arm"][()], caps.lever_arms, rtol=1e-6)
+        assert g["charging_energy"][0] == pytest.approx(caps.charging_energy_meV[0], rel=1e-6)
+    value, _ = predicted_lever_arm(tmp_path / "r.h5", region="gap", gate="top")
+    assert value == pytest.approx(1000 * caps.lever_arm("gap", "top"), rel=1e-6) and value > 0
+
+
+def test_regions_need_screening_and_their_own_names(tmp_path, capsys):
+    region = '[[gates.region]]\nname = "{name}"\nrectangle_nm = [130.0, 80.0, 170.0, 120.0]\n\n[[leads]]'
+    for text, fragment in (
+            (BASE.replace('screening = "thomas-fermi"', 'screening = "none"').replace(
+                "[[leads]]", region.format(name="dot"), 1), "charge regions need"),
+            (BASE.replace("[[leads]]", region.format(name="top"), 1), "duplicate name")):
+        path = tmp_path / "bad.toml"
+        path.write_text(text.format(out=tmp_path / "s.h5"))
+        assert main(["check", str(path)]) == EXIT_BAD_INPUT
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and fragment in err[0], err

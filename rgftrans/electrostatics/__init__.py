@@ -27,6 +27,11 @@ _EXPORTS = {
     "SELF_TERM": "screening",
     "DEPLETED_FRACTION": "screening",
     "SurfaceKernels": "surface",
+    "CapacitanceResult": "capacitance",
+    "cell_weights": "capacitance",
+    "electron_number": "capacitance",
+    "gate_capacitances": "capacitance",
+    "depletion_voltage": "screening",
     "frozen_gate_potential": "surface",
     "gate_nodes": "surface",
 }

@@ -76,6 +76,8 @@ MIN_TOLERANCE = 1e-8
 DEPLETED_FRACTION = 1e-3
 #: Finite temperature: the smallest occupation a node's variable is scaled for (see screen()).
 OCCUPATION_FLOOR = 1e-6
+#: Fresh minimiser runs from the last point when one stalls above the tolerance (its line search at round-off).
+RESTARTS = 4
 #: Densities: 1 cm^-2 = 1e-14 nm^-2.
 NM2_PER_CM2 = 1e-14
 
@@ -399,6 +401,17 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
         s_full[mask] = stretch * t
         return kernels.both(n - n0, s_full)
 
+    # The energy is evaluated relative to a reference point (the start of each minimiser run): with q = (dn, s)
+    # and the symmetric kernel, 1/2 q.Kq - 1/2 q0.Kq0 = 1/2 (q - q0).(Kq + Kq0), so every term carries a factor
+    # q - q0 and the round-off scales with the change, not with the energy itself -- which would otherwise
+    # (large potentials times n0 under the gates) stall the line search near a tight tolerance.
+    reference = {}
+
+    def set_reference(v):
+        n, _ = densities(v[:nn])
+        u_n, u_s = potentials(n, v[nn:])
+        reference.update(n=n, u_n=u_n, u_s=u_s, s=stretch * v[nn:], kinetic=structure._kinetic(n)[0])
+
     def energy_and_gradient(v):
         n, slope = densities(v[:nn])
         t = v[nn:]
@@ -406,7 +419,11 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
         kinetic, mu_local = structure._kinetic(n)
         if slope is not None:
             mu_local = scale * stretch_n * v[:nn].reshape(ny, nx)  # exactly, where ln(exp(x) - 1) of an underflowed n is not
-        f = kinetic + np.sum((external - mu) * n + 0.5 * (n - n0) * u_n)
+        change = n - reference["n"]
+        if slope is None:  # n^2/2D - n'^2/2D = (n - n')(n + n')/2D
+            f = np.sum(change * ((n + reference["n"]) / (2 * dos) + external - mu + 0.5 * (u_n + reference["u_n"])))
+        else:
+            f = kinetic - reference["kinetic"] + np.sum(change * (external - mu + 0.5 * (u_n + reference["u_n"])))
         grad_n = (mu_local + external - mu + u_n) / (scale * n0)
         if slope is not None:
             grad_n = grad_n * slope
@@ -414,7 +431,7 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
             return f / (scale * n0), grad_n.ravel()
         s = stretch * t
         on_gates = u_s[mask]
-        f += np.sum(0.5 * s * on_gates - u_gates * s)
+        f += np.sum((s - reference["s"]) * (0.5 * (on_gates + reference["u_s"][mask]) - u_gates))
         grad_t = stretch * (on_gates - u_gates) / (scale * n0)
         return f / (scale * n0), np.concatenate([grad_n.ravel(), grad_t])
 
@@ -448,29 +465,36 @@ def screen(layout, structure: Heterostructure, *, extent_nm, spacing_nm: float, 
     # (local mu - mu) / (scale * n0) (the tolerance is relative to E_F per n0); with chemical potentials,
     # (local mu - mu) / scale times the occupation (the relative density error).
     gtol = tolerance / n0 if kt == 0.0 else tolerance
-    result = minimize(energy_and_gradient, start, jac=True, method="L-BFGS-B", bounds=bounds,
-                      options={"maxiter": max_iterations, "gtol": gtol, "ftol": 0.0, "maxcor": 20})
-    n = densities(result.x[:nn])[0]
-    u, u_s = potentials(n, result.x[nn:])
-    u = external + u
-    if kt == 0.0:
-        local = n / dos + u - mu  # zero where occupied; >= 0 where depleted (U above mu)
-        violation = np.where(n > 0, np.abs(local), np.maximum(-local, 0.0)) / scale
-    else:
-        violation = np.abs(n - structure.density_of(mu - u)) / n0  # the relative density error
-    gradient = float(violation.max())
-    if frozen and mask.any():
-        gradient = max(gradient, float(np.abs(u_s[mask] - u_gates).max() / scale))
+    iterations = 0
+    for _ in range(RESTARTS):
+        set_reference(start)
+        result = minimize(energy_and_gradient, start, jac=True, method="L-BFGS-B", bounds=bounds,
+                          options={"maxiter": max_iterations - iterations, "gtol": gtol, "ftol": 0.0, "maxcor": 20})
+        iterations += int(result.nit)
+        n = densities(result.x[:nn])[0]
+        u, u_s = potentials(n, result.x[nn:])
+        u = external + u
+        if kt == 0.0:
+            local = n / dos + u - mu  # zero where occupied; >= 0 where depleted (U above mu)
+            violation = np.where(n > 0, np.abs(local), np.maximum(-local, 0.0)) / scale
+        else:
+            violation = np.abs(n - structure.density_of(mu - u)) / n0  # the relative density error
+        gradient = float(violation.max())
+        if frozen and mask.any():
+            gradient = max(gradient, float(np.abs(u_s[mask] - u_gates).max() / scale))
+        if gradient <= tolerance or iterations >= max_iterations:
+            break
+        start = result.x  # stalled (line search at round-off): a fresh run from here, with a new reference
     if gradient > 10 * tolerance:
         raise ComputationFailed(f"screening did not converge: the local chemical potential is off by "
-                                f"{gradient:.2g} of E_F after {result.nit} iterations ({result.message}); use a "
+                                f"{gradient:.2g} of E_F after {iterations} iterations ({result.message}); use a "
                                 "coarser grid, a larger tolerance or more iterations")
     gate_charge = None
     if frozen:
         gate_charge = np.where(mask, s_full, 0.0) / NM2_PER_CM2
     return ScreenedPotential(x_nm=xs, y_nm=ys, potential_meV=u, bare_potential_meV=bare,
                              density_cm2=n / NM2_PER_CM2, fermi_energy_meV=mu, gate_charge_cm2=gate_charge,
-                             iterations=int(result.nit), gradient=gradient, structure=structure)
+                             iterations=iterations, gradient=gradient, structure=structure)
 
 
 #: How far past the wide-gate depletion voltage (as a multiple) :func:`depletion_voltage` looks for a gate's own:

@@ -730,6 +730,7 @@ class RunConfig(_Table):
     _text: str | None = PrivateAttr(default=None)
     _layout: GateLayout | None = PrivateAttr(default=None)
     _screen_cache: dict = PrivateAttr(default_factory=dict)
+    _capacitance: object = PrivateAttr(default=None)
 
     @model_validator(mode="before")
     @classmethod
@@ -964,6 +965,22 @@ class RunConfig(_Table):
                 gates.extend(read.gates)
             self._layout = GateLayout(tuple(gates), self.gates.depth_nm)
         return self._layout
+
+    def capacitances(self):
+        """Capacitances, lever arms and charging energies of the ``[[gates.region]]`` regions at the config's
+        voltages (:func:`rgftrans.electrostatics.capacitance.gate_capacitances`), computed once; None without
+        regions."""
+        if not self.charge_regions():
+            return None
+        if self._capacitance is None:
+            from rgftrans.electrostatics.capacitance import gate_capacitances
+
+            layout = self.gate_layout().with_voltages(self.gates.voltages())
+            extent, spacing = self.screening_grid()
+            self._capacitance = gate_capacitances(
+                layout, self.heterostructure(), self.charge_regions(), extent_nm=extent, spacing_nm=spacing,
+                base=self.screened(layout))
+        return self._capacitance
 
     def charge_regions(self) -> dict[str, Region]:
         """The named 2DEG regions of ``[[gates.region]]`` (nm), in config order; empty without any."""

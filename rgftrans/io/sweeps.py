@@ -521,6 +521,34 @@ def write_electrostatics(cfg: RunConfig, path) -> bool:
     hs = sol.structure
     grid = ("y", "x")
     extra = {}
+    caps = cfg.capacitances()
+    if caps is not None:
+        from rgftrans.io.store import StoredGroup
+
+        regions = np.array(caps.region_names, dtype=object)
+        gates = np.array(caps.gate_names, dtype=object)
+        rg, rr = ("region", "gate"), ("region", "region_2")
+        extra["capacitance"] = StoredGroup({
+            "region": StoredArray(regions, "", "named 2DEG region ([[gates.region]])", scale=True),
+            "region_2": StoredArray(regions, "", "named 2DEG region (columns)", scale=True),
+            "gate": StoredArray(gates, "", "gate", scale=True),
+            "capacitance_matrix": StoredArray(caps.capacitance_matrix_aF, "aF", "Maxwell capacitance matrix of the "
+                                              "regions (C_Sigma on the diagonal, minus the mutual capacitances)",
+                                              dims=rr),
+            "gate_capacitance": StoredArray(caps.gate_matrix_aF, "aF", "gate capacitance C_g", dims=rg),
+            "lever_arm": StoredArray(caps.lever_arms, "1", "lever arm alpha = C^-1 C_g", dims=rg),
+            "total_capacitance": StoredArray(caps.total_aF, "aF", "total capacitance C_Sigma", dims=("region",)),
+            "remainder": StoredArray(caps.remainder_aF, "aF", "capacitance to the grounded reservoir and surface",
+                                     dims=("region",)),
+            "quantum_capacitance": StoredArray(caps.quantum_aF, "aF", "quantum capacitance e^2 (dn/dmu) A",
+                                               dims=("region",)),
+            "charging_energy": StoredArray(caps.charging_energy_meV, "meV", "charging energy e^2 (C^-1)_ii",
+                                           dims=("region",)),
+            "interaction": StoredArray(caps.interaction_meV, "meV", "charging energies e^2 C^-1", dims=rr),
+            "electron_number": StoredArray(caps.electron_number, "1", "electrons in the region", dims=("region",)),
+            "closed": StoredArray(caps.closed, "1", "region is a closed island of 2DEG", dims=("region",)),
+        }, {"gate_step_V": caps.gate_step_V, "region_step_meV": caps.region_step_meV,
+            "model": "constant interaction from the Thomas-Fermi response (rgftrans.electrostatics.capacitance)"})
     if sol.gate_charge_cm2 is not None:
         extra["gate_charge"] = StoredArray(sol.gate_charge_cm2, "cm^-2", "extra electrons on the gates (frozen "
                                            "surface; 0 on the exposed surface)", dims=grid)

@@ -818,10 +818,11 @@ def plot_fano_collapse(collapse, *, name: str = "p1", axes=None):
     return fig, axes
 
 
-def plot_density(solution, *, layout=None, ax=None):
+def plot_density(solution, *, layout=None, regions=None, ax=None):
     """Electron density of a screened 2DEG (10^11 cm^-2) with the depletion boundary and the gates' outlines.
 
-    ``solution`` is a :class:`rgftrans.electrostatics.screening.ScreenedPotential`; ``layout`` the gates.
+    ``solution`` is a :class:`rgftrans.electrostatics.screening.ScreenedPotential`; ``layout`` the gates;
+    ``regions`` an optional mapping of name to Region (e.g. the config's dots), drawn dashed and named.
     """
     own_figure = ax is None
     fig, ax = _axes(ax)
@@ -832,9 +833,15 @@ def plot_density(solution, *, layout=None, ax=None):
     mesh = ax.pcolormesh(solution.x_nm, solution.y_nm, density, shading="nearest", cmap="viridis", vmin=0.0,
                          rasterized=True)
     fig.colorbar(mesh, ax=ax, label="electron density (10¹¹ cm⁻²)", shrink=0.85)
-    if np.any(density <= 0) and np.any(density > 0):
-        ax.contour(solution.x_nm, solution.y_nm, (density > 0).astype(float), levels=[0.5], colors="w",
+    depleted = np.asarray(solution.depleted)
+    if depleted.any() and not depleted.all():
+        ax.contour(solution.x_nm, solution.y_nm, (~depleted).astype(float), levels=[0.5], colors="w",
                    linewidths=1.0)
+    for name, region in (regions or {}).items():
+        _draw_geometry(ax, region.geometry, fc="none", ec="tab:orange", lw=1.1, ls="--", zorder=4)
+        x0, y0, x1, y1 = region.geometry.bounds
+        ax.annotate(name, (0.5 * (x0 + x1), y1), ha="center", va="bottom", fontsize="small", color="tab:orange",
+                    zorder=5, annotation_clip=True)
     if layout is not None:  # numbered outlines, names and voltages in a key beside the map (narrow fingers)
         from rgftrans.plots.style import format_value
 
