@@ -78,6 +78,10 @@ DEPLETED_FRACTION = 1e-3
 OCCUPATION_FLOOR = 1e-6
 #: Fresh minimiser runs from the last point when one stalls above the tolerance (its line search at round-off).
 RESTARTS = 4
+#: Pinning of a GaAs surface: its conduction band about 0.7 eV above the Fermi level (typical; from memory).
+TYPICAL_SURFACE_BARRIER_MEV = 700.0
+#: Conduction-band offset of Al0.3Ga0.7As on GaAs, about 0.23 eV (typical; from memory).
+TYPICAL_BAND_OFFSET_MEV = 230.0
 #: Densities: 1 cm^-2 = 1e-14 nm^-2.
 NM2_PER_CM2 = 1e-14
 
@@ -142,6 +146,38 @@ class Heterostructure:
         if not (isinstance(t, (int, float)) and math.isfinite(t) and 0.0 <= t <= 400.0):
             raise RgftransError(f"heterostructure temperature_K = {t!r} is outside 0..400 K; give the electron "
                                 "temperature in kelvin")
+
+    @classmethod
+    def from_doping(cls, *, depth_nm: float, donor_density_cm2: float, setback_nm: float,
+                    surface_barrier_meV: float = TYPICAL_SURFACE_BARRIER_MEV,
+                    band_offset_meV: float = TYPICAL_BAND_OFFSET_MEV, **kwargs) -> "Heterostructure":
+        """The heterostructure whose ungated density follows from a delta-doping layer, as on a grower's sheet.
+
+        Donors (sheet density N_d, all ionised) sit ``setback_nm`` above the 2DEG, inside the barrier whose
+        conduction band lies ``band_offset_meV`` above the 2DEG's; the surface's band is pinned
+        ``surface_barrier_meV`` above the Fermi level.  Gauss's law across the two sheets and the 2DEG's
+        Thomas-Fermi filling (``E_F = n / D``) give, with ``a = e^2 / (eps eps0)``,
+
+            n0 = [a N_d (d - s) - (e phi_s - Delta E_c)] / (a d + 1 / D)
+
+        (the modulation-doping balance; e.g. J. H. Davies, The Physics of Low-Dimensional Semiconductors, CUP
+        1998, chapter 9, from memory).  Other keywords as for the class (material, degeneracies, surface,
+        temperature).
+        """
+        probe = cls(depth_nm=depth_nm, density_cm2=1e11, **kwargs)
+        d, s = float(depth_nm), float(setback_nm)
+        if not (0 < s < d):
+            raise RgftransError(f"setback {setback_nm!r} nm must lie between 0 and the depth {depth_nm!r} nm: the "
+                                "donors sit between the surface and the 2DEG")
+        if not (math.isfinite(donor_density_cm2) and donor_density_cm2 > 0):
+            raise RgftransError(f"donor_density_cm2 = {donor_density_cm2!r} must be a positive sheet density in cm^-2")
+        a = 4 * math.pi * coulomb_constant_meV_nm(probe.eps_r)  # e^2 / (eps eps0), meV nm
+        numerator = a * donor_density_cm2 * NM2_PER_CM2 * (d - s) - (surface_barrier_meV - band_offset_meV)
+        n0 = numerator / (a * d + 1.0 / probe.dos_per_meV_nm2) / NM2_PER_CM2
+        if n0 <= 1e8:
+            raise RgftransError(f"{donor_density_cm2:.3g} cm^-2 donors {setback_nm:g} nm above a 2DEG {depth_nm:g} nm "
+                                "deep do not fill it: the surface takes them all; more donors or a deeper 2DEG")
+        return cls(depth_nm=depth_nm, density_cm2=n0, **kwargs)
 
     @property
     def eps_r(self) -> float:
