@@ -50,6 +50,18 @@ def test_friedrich_wintgen_bic_found_to_1e6():
     assert loc.solves <= 120 and loc.resonance.in_continuum
 
 
+def test_a_tolerance_finer_than_round_off_is_raised_with_a_warning():
+    """Gamma ~ (kappa - kappa*)^2 pins kappa* only to about sqrt(machine epsilon): asking for 1e-10 must warn and
+    never land further from the closed form than the finest honest tolerance does."""
+    with pytest.warns(UserWarning, match="below what a quadratically vanishing width can resolve"):
+        fine = locate_bic(side_coupled, 0.25, 0.5, E_STAR + 0.02, rtol=1e-10)
+    honest = locate_bic(side_coupled, 0.25, 0.5, E_STAR + 0.02, rtol=1e-7)
+    assert fine.parameter == honest.parameter
+    assert abs(fine.parameter - KAPPA_STAR) <= 1e-7 * KAPPA_STAR
+    with pytest.raises(RgftransError, match="rtol"):
+        locate_bic(side_coupled, 0.25, 0.5, E_STAR + 0.02, rtol=0.0)
+
+
 def test_diagnostics_see_the_degeneracy_condition():
     """One continuum: the coupling condition holds trivially; the FW residual is what vanishes at kappa*."""
     off = coupling_diagnostics(side_coupled(0.2), E_STAR)

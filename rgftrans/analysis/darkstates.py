@@ -417,6 +417,11 @@ class BicLocation:
     outside_stored_energies: bool = False
 
 
+#: Finest relative tolerance of :func:`locate_bic`: the width vanishes as (p - p*)^2 and is computed to about
+#: 1e-16 of the energy scale, so p* is fixed to about sqrt(1e-16) = 1e-8 relative; 1e-7 leaves a margin.
+MIN_BIC_RTOL = 1e-7
+
+
 def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: float, energy_guess: float, *,
                rtol: float = 1e-6, max_solves: int = 120, on_solve: Callable[[], None] | None = None) -> BicLocation:
     """Find the parameter in [p_lo, p_hi] where a resonance's width vanishes, to relative precision ``rtol``.
@@ -425,7 +430,18 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
     solve that follows the resonance from the previous step; then checks the
     quadratic vanishing ``Gamma ~ (p - p*)^2`` on both sides.  ``on_solve`` is
     called after every pole solve (a progress bar).
+
+    A width that vanishes quadratically pins the parameter only to about the square root of the width's own
+    round-off (machine epsilon times the energy scale): near p* a change of 1e-8 relative moves Gamma by
+    about 1e-16 of the scale, below what the pole solve resolves.  A tolerance below :data:`MIN_BIC_RTOL` is
+    therefore raised to it, with a warning (asking for more only lets round-off pick the point).
     """
+    if not (isinstance(rtol, (int, float)) and rtol > 0):
+        raise RgftransError(f"rtol = {rtol!r} must be a positive relative tolerance, e.g. 1e-6")
+    if rtol < MIN_BIC_RTOL:
+        warnings.warn(f"rtol = {rtol:g} is below what a quadratically vanishing width can resolve (about "
+                      f"sqrt(machine epsilon), {MIN_BIC_RTOL:g} relative); using {MIN_BIC_RTOL:g}", stacklevel=2)
+        rtol = MIN_BIC_RTOL
     state = {"energy": energy_guess, "vec": None, "solves": 0}
     cache = {}
 
