@@ -12,6 +12,14 @@ from rgftrans._lazy import lazy_exports
 
 #: Public name -> module of this subpackage that defines it.
 _EXPORTS = {
+    "ChargingDot": "charging",
+    "DoubleDot": "charging",
+    "SequentialResult": "charging",
+    "steady_state": "charging",
+    "stability_map": "charging",
+    "sequential_current": "charging",
+    "sequential_conductance": "charging",
+    "blockade_regime": "charging",
     "CouplingResiduals": "bic2d",
     "coupling_residuals": "bic2d",
     "Bic2D": "bic2d",

@@ -14,7 +14,7 @@ events, each changing the dot's charge by one, at rates set by the barriers and 
   - mu_0`` (V_g the plunger voltage, alpha its lever arm, mu_0 an offset).  Orbitals come from the dot's
   spectrum (with spin: each twice, split by the Zeeman energy g mu_B B), or -- a metallic dot -- from a
   continuum of levels with spacing Delta much below kT, where only the charge N matters.
-* :func:`steady_state`, :func:`current`, :func:`conductance`, :func:`stability_map` -- the master equation
+* :func:`steady_state`, :func:`sequential_current`, :func:`sequential_conductance`, :func:`stability_map` -- the master equation
   over the dot's states: rate ``Gamma_k^r f_r(dE)`` for an electron entering orbital k from lead r with
   energy dE, ``Gamma_k^r (1 - f_r(dE))`` for one leaving; its steady state (the rate matrix's null vector,
   dense linear algebra, one small system per gate and bias point, batched); the current from the source;
@@ -23,8 +23,8 @@ events, each changing the dot's charge by one, at rates set by the barriers and 
   constant-interaction energy U(N1, N2) = 1/2 (eN - C_g V)^T C^-1 (eN - C_g V), the ground-state charge map
   (the honeycomb), a charge sensor's signal and the current through the series at small bias.
 
-Valid when the level widths are far below kT (hbar Gamma << kT, no cotunnelling); :func:`regime` says so in
-words from the numbers.  Units: meV, V, K, tunnel rates in s^-1 (Gamma/hbar), current in A, conductance in
+Valid when the level widths are far below kT (hbar Gamma << kT, no cotunnelling); :func:`blockade_regime` says so in
+words from the numbers (:func:`blockade_regime`).  Units: meV, V, K, tunnel rates in s^-1 (Gamma/hbar), current in A, conductance in
 S and in 2e^2/h.
 """
 
@@ -42,8 +42,8 @@ from scipy.special import expit
 from rgftrans.constants import BOHR_MAGNETON_MEV_PER_T, BOLTZMANN_MEV_PER_K, CONDUCTANCE_QUANTUM_S
 from rgftrans.errors import RgftransError
 
-__all__ = ["ChargingDot", "DoubleDot", "SequentialResult", "steady_state", "current", "conductance",
-           "stability_map", "regime", "HBAR_MEV_S", "MAX_STATES"]
+__all__ = ["ChargingDot", "DoubleDot", "SequentialResult", "steady_state", "sequential_current",
+           "sequential_conductance", "stability_map", "blockade_regime", "HBAR_MEV_S", "MAX_STATES"]
 
 #: hbar in meV s (CODATA via scipy.constants): a rate Gamma (s^-1) is a width hbar Gamma in meV.
 HBAR_MEV_S = _codata.hbar / _codata.e * 1e3
@@ -294,7 +294,7 @@ def _contacts(bias_V, drop):
     raise RgftransError(f"drop must be 'symmetric' or 'drain', got {drop!r}")
 
 
-def current(dot: ChargingDot, gate_V, bias_V, temperature_K, *, drop: str = "symmetric") -> SequentialResult:
+def sequential_current(dot: ChargingDot, gate_V, bias_V, temperature_K, *, drop: str = "symmetric") -> SequentialResult:
     """Current (A) and mean charge on the grid of ``bias_V`` (rows) x ``gate_V`` (columns)."""
     t = _check_temperature(temperature_K)
     gate_V = np.atleast_1d(np.asarray(gate_V, float))
@@ -311,11 +311,11 @@ def current(dot: ChargingDot, gate_V, bias_V, temperature_K, *, drop: str = "sym
                             mean_charge=(prob @ charge).reshape(bb.shape), temperature_K=t)
 
 
-def conductance(dot: ChargingDot, gate_V, temperature_K) -> tuple[np.ndarray, np.ndarray]:
+def sequential_conductance(dot: ChargingDot, gate_V, temperature_K) -> tuple[np.ndarray, np.ndarray]:
     """Linear-response conductance at each gate voltage: (G in S, G in 2e^2/h), by a central difference in bias."""
     t = _check_temperature(temperature_K)
     step = DIFFERENTIAL_STEP_KT * BOLTZMANN_MEV_PER_K * t / 1000.0  # V
-    result = current(dot, gate_V, [-step, step], t)
+    result = sequential_current(dot, gate_V, [-step, step], t)
     g = (result.current_A[1] - result.current_A[0]) / (2 * step)
     return g, g / CONDUCTANCE_QUANTUM_S
 
@@ -325,7 +325,7 @@ def stability_map(dot: ChargingDot, gate_V, bias_V, temperature_K, *, drop: str 
 
     Returns (dI/dV (n_b, n_g) in S, the SequentialResult of the current).
     """
-    result = current(dot, gate_V, bias_V, temperature_K, drop=drop)
+    result = sequential_current(dot, gate_V, bias_V, temperature_K, drop=drop)
     bias = result.bias_V
     if bias.size < 3:
         raise RgftransError("a diamond map needs at least three bias values")
@@ -340,7 +340,7 @@ def _warn_validity(dot: ChargingDot, kt: float) -> None:
                       "for hbar Gamma << kT", stacklevel=3)
 
 
-def regime(*, charging_energy_meV: float, level_spacing_meV: float, width_meV: float, temperature_K: float) -> str:
+def blockade_regime(*, charging_energy_meV: float, level_spacing_meV: float, width_meV: float, temperature_K: float) -> str:
     """Which picture describes a dot, in words with the numbers.
 
     Sequential tunnelling (this module) needs hbar Gamma << kT and E_C >> kT; coherent transmission (the

@@ -10,6 +10,8 @@ from rgftrans._lazy import lazy_exports
 
 #: Public name -> module of this subpackage that defines it.
 _EXPORTS = {
+    "LeadBands": "bands",
+    "lead_bands": "bands",
     "lead_self_energies": "embedding",
     "embedded_self_energy": "embedding",
     "device_energy": "embedding",

@@ -17,6 +17,10 @@ from rgftrans._lazy import lazy_exports
 
 #: Public name -> module of this subpackage that defines it.
 _EXPORTS = {
+    "ClosedLevels": "closed",
+    "closed_levels": "closed",
+    "partial_widths": "poles",
+    "tunnel_rates_per_s": "poles",
     "DENSE_BELOW": "eigen",
     "eigenvalues_near": "eigen",
     "Resonance": "poles",

@@ -30,8 +30,10 @@ import pytest
 from scipy import constants
 from scipy.optimize import minimize_scalar
 
-from rgftrans.analysis.charging import (ChargingDot, DoubleDot, HBAR_MEV_S, conductance, current, regime,
-                                        stability_map, steady_state)
+from rgftrans.analysis.charging import (ChargingDot, DoubleDot, HBAR_MEV_S, blockade_regime, stability_map,
+                                        steady_state)
+from rgftrans.analysis.charging import sequential_conductance as conductance
+from rgftrans.analysis.charging import sequential_current as current
 from rgftrans.constants import BOLTZMANN_MEV_PER_K, CONDUCTANCE_QUANTUM_S
 from rgftrans.errors import RgftransError
 
@@ -181,10 +183,10 @@ def test_temperature_and_validity_are_checked():
     with pytest.warns(UserWarning, match="hbar Gamma"):
         conductance(broad, [V0], T)
     width = HBAR_MEV_S * 2e11
-    assert "coherent" in regime(charging_energy_meV=0.05, level_spacing_meV=0.02, width_meV=0.1, temperature_K=T)
-    assert "sequential tunnelling, quantum" in regime(charging_energy_meV=1.0, level_spacing_meV=0.1,
+    assert "coherent" in blockade_regime(charging_energy_meV=0.05, level_spacing_meV=0.02, width_meV=0.1, temperature_K=T)
+    assert "sequential tunnelling, quantum" in blockade_regime(charging_energy_meV=1.0, level_spacing_meV=0.1,
                                                       width_meV=1e-4, temperature_K=T)
-    assert "classical" in regime(charging_energy_meV=1.0, level_spacing_meV=1e-3, width_meV=1e-5,
+    assert "classical" in blockade_regime(charging_energy_meV=1.0, level_spacing_meV=1e-3, width_meV=1e-5,
                                  temperature_K=1.0)
-    assert "intermediate" in regime(charging_energy_meV=1.0, level_spacing_meV=0.1, width_meV=width,
+    assert "intermediate" in blockade_regime(charging_energy_meV=1.0, level_spacing_meV=0.1, width_meV=width,
                                     temperature_K=0.5)
