@@ -376,11 +376,18 @@ class DoubleDot:
         C_g[i, j]: gate j on dot i (gate 0 the plunger of dot 1, gate 1 of dot 2).
     offset_meV : (2,) float
         Constant shifts of each dot's electrochemical potential.
+    source_rate_per_s, drain_rate_per_s : float
+        Tunnel rates of dot 1 to the source and dot 2 to the drain (s^-1).
+    tunnel_coupling_meV : float
+        Interdot tunnel coupling t_c (half the bonding-antibonding splitting of the two dots' levels).
     """
 
     capacitance_aF: np.ndarray
     gate_capacitance_aF: np.ndarray
     offset_meV: tuple = (0.0, 0.0)
+    source_rate_per_s: float = 1e9
+    drain_rate_per_s: float = 1e9
+    tunnel_coupling_meV: float = 0.01
 
     def __post_init__(self):
         c = np.asarray(self.capacitance_aF, float)
@@ -415,6 +422,54 @@ class DoubleDot:
                 best = np.where(better, u, best)
                 n1_map[better], n2_map[better] = n1, n2
         return n1_map, n2_map
+
+    def current(self, v1, v2, bias_V: float, temperature_K: float, *, max_electrons: int = 4) -> np.ndarray:
+        """Sequential current (A) through the series (source - dot 1 - dot 2 - drain) on the (v2, v1) grid.
+
+        Rates: source into dot 1 ``Gamma_S f_S(mu_1)`` (out ``Gamma_S (1 - f_S)``), dot 2 into the drain
+        likewise, and interdot tunnelling ``(t_c^2 / hbar) hbar Gamma / (eps^2 + (hbar Gamma / 2)^2)`` at
+        detuning eps (Gamma = Gamma_S + Gamma_D, the broadening of the two charge states by the leads; the
+        sequential limit of coherent interdot tunnelling, e.g. van der Wiel et al. 2002, from memory), its uphill
+        direction weighted by exp(-eps/kT) (detailed balance with the environment at T).  The bias drops symmetrically.  Current flows only near
+        the triple points, where three charge states are degenerate within the bias window.
+        """
+        kt = BOLTZMANN_MEV_PER_K * _check_temperature(temperature_K)
+        g1, g2 = np.meshgrid(np.asarray(v1, float), np.asarray(v2, float))
+        pts = g1.size
+        states = [(a, b) for a in range(max_electrons + 1) for b in range(max_electrons + 1)]
+        index = {st: i for i, st in enumerate(states)}
+        s = len(states)
+        energy = np.array([self.energy_meV(a, b, g1.ravel(), g2.ravel()) for a, b in states])  # (s, pts)
+        mu_s, mu_d = 500.0 * bias_V, -500.0 * bias_V
+        w = np.zeros((pts, s, s))
+        into = np.zeros((pts, s, s))
+        hbar_gamma = HBAR_MEV_S * (self.source_rate_per_s + self.drain_rate_per_s)
+        for (a, b), i in index.items():
+            if (a + 1, b) in index:  # source <-> dot 1
+                j = index[(a + 1, b)]
+                d_e = energy[j] - energy[i]
+                rin = self.source_rate_per_s * _fermi(d_e - mu_s, kt)
+                rout = self.source_rate_per_s * _fermi(mu_s - d_e, kt)
+                w[:, j, i] += rin
+                w[:, i, j] += rout
+                into[:, j, i] += rin
+                into[:, i, j] -= rout
+            if (a, b + 1) in index:  # drain <-> dot 2
+                j = index[(a, b + 1)]
+                d_e = energy[j] - energy[i]
+                w[:, j, i] += self.drain_rate_per_s * _fermi(d_e - mu_d, kt)
+                w[:, i, j] += self.drain_rate_per_s * _fermi(mu_d - d_e, kt)
+            if (a - 1, b + 1) in index:  # dot 1 <-> dot 2
+                j = index[(a - 1, b + 1)]
+                eps = energy[j] - energy[i]  # what the move from i to j costs
+                rate = (self.tunnel_coupling_meV**2 / HBAR_MEV_S) * hbar_gamma / (eps**2 + (hbar_gamma / 2) ** 2)
+                # The uphill direction takes its energy from the environment at T: Boltzmann-weighted, so that
+                # the rates obey detailed balance and no current flows without bias.
+                w[:, j, i] += rate * np.exp(-np.clip(eps, 0.0, None) / kt)
+                w[:, i, j] += rate * np.exp(-np.clip(-eps, 0.0, None) / kt)
+        prob = _steady(w)
+        flow = np.einsum("pij,pj->p", into, prob)
+        return (_codata.e * flow).reshape(g1.shape)
 
     def sensor_signal(self, v1, v2, coupling_meV=(1.0, 0.5), *, max_electrons: int = 6) -> np.ndarray:
         """A nearby charge sensor's potential shift (meV): sum_i kappa_i N_i of the ground state."""

@@ -190,3 +190,29 @@ def test_temperature_and_validity_are_checked():
                                  temperature_K=1.0)
     assert "intermediate" in blockade_regime(charging_energy_meV=1.0, level_spacing_meV=0.1, width_meV=width,
                                     temperature_K=0.5)
+
+
+def test_double_dot_current_flows_at_the_triple_points_only():
+    """Small bias: the series conducts only where three charge states are degenerate (van der Wiel et al. 2002,
+    from memory); no bias, no current (detailed balance of every rate, the interdot ones included)."""
+    dd, _ = _double()
+    dd = DoubleDot(capacitance_aF=dd.capacitance_aF, gate_capacitance_aF=dd.gate_capacitance_aF,
+                   tunnel_coupling_meV=0.02, source_rate_per_s=1e9, drain_rate_per_s=1e9)
+    e_af = constants.e / 1e-18
+    v1 = np.linspace(0.0, e_af / 20.0, 121)
+    v2 = np.linspace(0.0, e_af / 25.0, 121)
+    current_map = dd.current(v1, v2, 20e-6, 0.05)
+    assert np.abs(dd.current(v1[::10], v2[::10], 0.0, 0.05)).max() < 1e-25
+    from scipy.optimize import fsolve
+
+    def triple(a, b, c):
+        return fsolve(lambda v: [dd.energy_meV(*a, *v) - dd.energy_meV(*b, *v),
+                                 dd.energy_meV(*a, *v) - dd.energy_meV(*c, *v)], [v1[60], v2[60]])
+
+    points = [triple((0, 0), (1, 0), (0, 1)), triple((1, 1), (1, 0), (0, 1))]
+    strong = current_map > 0.05 * current_map.max()
+    g1, g2 = np.meshgrid(v1, v2)
+    # Every point carrying more than 5 % of the peak current lies at a triple point, within the bias triangle
+    # (e V_sd / (e alpha) ~ 0.2 mV here) plus kT: far inside a tenth of the cell (e / C_g1 = 8 mV).
+    near = np.min([np.hypot(g1 - p[0], g2 - p[1]) for p in points], axis=0)
+    assert strong.sum() > 2 and near[strong].max() < 0.1 * e_af / 20.0
