@@ -624,6 +624,49 @@ def _cmd_compare(args) -> int:
     return EXIT_OK
 
 
+def _cmd_blockade(args) -> int:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from rgftrans.io.blockade import SingleDotBlockade, blockade_from_config, write_blockade
+    from rgftrans.io.config import load_config
+    from rgftrans.io.store import check_group_writable
+    from rgftrans.constants import CONDUCTANCE_QUANTUM_S
+    from rgftrans.plots.charging import plot_coulomb_peaks, plot_diamonds, plot_stability
+
+    cfg = load_config(args.config)
+    target = Path(args.output or cfg.output.path)
+    if target.exists():
+        check_group_writable(target, "blockade", overwrite=args.overwrite)  # refused now, not after the work
+    caps = cfg.capacitances()
+    print(f"{args.config}: constant-interaction model from the layout (Thomas-Fermi electrostatics)")
+    for line in caps.summary().splitlines():
+        print(f"  {line}")
+    result = blockade_from_config(cfg)
+    for line in result.summary().splitlines():
+        print(f"  {line}")
+    prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    write_blockade(result, target, overwrite=args.overwrite)
+    if isinstance(result, SingleDotBlockade):
+        for t, g in zip(result.temperatures_K, result.conductance_S):
+            print(f"  T = {t:g} K: peak conductance {g.max():.3g} S ({g.max() / CONDUCTANCE_QUANTUM_S:.3g} x 2e^2/h)")
+        fig, _ = plot_coulomb_peaks(result)
+        fig.savefig(f"{prefix}_peaks.png", dpi=150)
+        fig, _ = plot_diamonds(result)
+        fig.savefig(f"{prefix}_diamonds.png", dpi=150)
+        written = f"{prefix}_peaks.png, {prefix}_diamonds.png"
+    else:
+        print(f"  triple-point current up to {abs(result.current_A).max():.3g} A at V_sd = {result.bias_V * 1e3:g} "
+              f"mV, {result.temperature_K:g} K")
+        fig, _ = plot_stability(result)
+        fig.savefig(f"{prefix}_stability.png", dpi=150)
+        written = f"{prefix}_stability.png"
+    print(f"  written: group 'blockade' in {target}; {written}")
+    return EXIT_OK
+
+
 def _cmd_waveguide(args) -> int:
     import matplotlib
     import numpy as np
@@ -828,6 +871,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--overwrite", action="store_true", help="replace an existing group of that name")
     p.add_argument("--out-prefix", metavar="PATH", help="prefix of the .txt and .png files (default: the result path)")
     p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("blockade", help="Coulomb peaks, diamonds or a double dot's stability diagram",
+                       description="Closed dots by sequential tunnelling ([blockade] table): charging energies and "
+                                   "lever arms from the screened electrostatics, levels from the dot's closed "
+                                   "spectrum, tunnel rates from the open device's poles; Coulomb peaks at every "
+                                   "configured temperature and the diamond map (one dot) or the charge-stability "
+                                   "diagram with a sensor signal and the triple-point current (two dots).")
+    p.add_argument("config", help="run config with [blockade] and [[gates.region]]")
+    p.add_argument("--out-prefix", metavar="PATH", help="figure prefix (default: the config path without .toml)")
+    p.add_argument("--output", metavar="H5", help="file for the group 'blockade' (default: [output] path)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing group 'blockade'")
+    p.set_defaults(func=_cmd_blockade)
 
     p = sub.add_parser("waveguide", help="TM light in a metal-walled waveguide with dielectrics",
                        description="Grid a waveguide config ([waveguide], [frequency], optional [[search.axis]]), "

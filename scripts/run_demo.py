@@ -258,6 +258,20 @@ def five_gate_dot(out: Path) -> None:
     fig.savefig(out / "five_gate_dot_conductance.png", dpi=150)
 
 
+def closed_dots(out: Path) -> None:
+    """Closed dots by sequential tunnelling: an invented single dot (Coulomb peaks at two temperatures, diamonds)
+    and an invented double dot (stability diagram, sensor, triple-point current), both from their layouts."""
+    from rgftrans.cli import main as rgftrans_main
+
+    for name in ("closed_dot", "double_dot"):
+        print(f"[{name.replace('_', ' ')}] invented example: sequential tunnelling from the layout "
+              f"(configs/{name}.toml)")
+        status = rgftrans_main(["blockade", str(ROOT / "configs" / f"{name}.toml"), "--out-prefix", str(out / name),
+                                "--output", str(out / f"{name}.h5"), "--overwrite"])
+        if status != 0:
+            raise RgftransError(f"rgftrans blockade {name} failed (exit status {status})")
+
+
 def synthetic_trace(out: Path) -> None:
     """A synthetic measured plunger trace made from the gated-dot sweep, then fitted back with `rgftrans compare`.
 
@@ -333,6 +347,7 @@ def main(argv=None) -> int:
             multi_terminal(args.out, "hall_cross", "Invented four-lead GaAs Hall cross")
             gated_dot(args.out)
             five_gate_dot(args.out)
+            closed_dots(args.out)
             synthetic_trace(args.out)
             dark_states(args.out)
             microwave_cavity(args.out)

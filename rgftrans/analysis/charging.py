@@ -51,6 +51,8 @@ HBAR_MEV_S = _codata.hbar / _codata.e * 1e3
 MAX_STATES = 4096
 #: Sequential tunnelling needs hbar Gamma << kT; above this ratio a warning says so.
 MAX_WIDTH_OVER_KT = 0.1
+#: Entries of the rate matrices built at once (points x states^2): 1.2e7 doubles, about 100 MB per array.
+CHUNK_ENTRIES = 12_000_000
 #: Bias step of the numerical dI/dV, in units of kT: small enough that the second-order error (step^2 / 24 of
 #: the curvature, ~1e-6 relative) is below the tests' tolerances, large against the solve's round-off.
 DIFFERENTIAL_STEP_KT = 5e-3
@@ -303,12 +305,19 @@ def sequential_current(dot: ChargingDot, gate_V, bias_V, temperature_K, *, drop:
     _warn_validity(dot, kt)
     gg, bb = np.meshgrid(gate_V, bias_V)
     mu_s, mu_d = _contacts(bb.ravel(), drop)
-    w, into, charge = _rate_matrices(dot, gg.ravel(), mu_s, mu_d, kt)
-    prob = _steady(w)
-    flow = np.einsum("pij,pj->p", into, prob)  # electrons per second from the source into the dot
+    states = (dot.max_electrons + 1) if dot.metallic else 2 ** dot.orbitals()[0].size
+    chunk = max(1, CHUNK_ENTRIES // (states * states))  # points per batch: the rate matrices stay ~100 MB
+    flow = np.empty(gg.size)
+    mean = np.empty(gg.size)
+    for start in range(0, gg.size, chunk):
+        part = slice(start, start + chunk)
+        w, into, charge = _rate_matrices(dot, gg.ravel()[part], mu_s[part], mu_d[part], kt)
+        prob = _steady(w)
+        flow[part] = np.einsum("pij,pj->p", into, prob)  # electrons per second from the source into the dot
+        mean[part] = prob @ charge
     # Sign: positive when electrons flow from the source (at +eV/2) into the dot, i.e. I > 0 for V > 0.
     return SequentialResult(gate_V=gate_V, bias_V=bias_V, current_A=(_codata.e * flow).reshape(bb.shape),
-                            mean_charge=(prob @ charge).reshape(bb.shape), temperature_K=t)
+                            mean_charge=mean.reshape(bb.shape), temperature_K=t)
 
 
 def sequential_conductance(dot: ChargingDot, gate_V, temperature_K) -> tuple[np.ndarray, np.ndarray]:
@@ -376,6 +385,8 @@ class DoubleDot:
         C_g[i, j]: gate j on dot i (gate 0 the plunger of dot 1, gate 1 of dot 2).
     offset_meV : (2,) float
         Constant shifts of each dot's electrochemical potential.
+    background_charge : (2,) float
+        Electrons already on each dot at zero gate voltage (N counts from there): q_i = e (N_i + n_i) - (C_g V)_i.
     source_rate_per_s, drain_rate_per_s : float
         Tunnel rates of dot 1 to the source and dot 2 to the drain (s^-1).
     tunnel_coupling_meV : float
@@ -388,6 +399,7 @@ class DoubleDot:
     source_rate_per_s: float = 1e9
     drain_rate_per_s: float = 1e9
     tunnel_coupling_meV: float = 0.01
+    background_charge: tuple = (0.0, 0.0)
 
     def __post_init__(self):
         c = np.asarray(self.capacitance_aF, float)
@@ -402,28 +414,32 @@ class DoubleDot:
         """U(N1, N2) = 1/2 (eN - C_g V)^T C^-1 (eN - C_g V) - sum_i N_i offset_i (meV), broadcast."""
         e_af = _codata.e / 1e-18  # e in aF V
         inv = np.linalg.inv(self.capacitance_aF)
-        q1 = e_af * np.asarray(n1, float) - (self.gate_capacitance_aF[0, 0] * v1 + self.gate_capacitance_aF[0, 1] * v2)
-        q2 = e_af * np.asarray(n2, float) - (self.gate_capacitance_aF[1, 0] * v1 + self.gate_capacitance_aF[1, 1] * v2)
+        b1, b2 = self.background_charge
+        q1 = e_af * (np.asarray(n1, float) + b1) - (self.gate_capacitance_aF[0, 0] * v1
+                                                    + self.gate_capacitance_aF[0, 1] * v2)
+        q2 = e_af * (np.asarray(n2, float) + b2) - (self.gate_capacitance_aF[1, 0] * v1
+                                                    + self.gate_capacitance_aF[1, 1] * v2)
         joules_per_af_v2 = 1e-18  # (aF V)^2 / aF = 1e-18 J
         u = 0.5 * (inv[0, 0] * q1 * q1 + 2 * inv[0, 1] * q1 * q2 + inv[1, 1] * q2 * q2) * joules_per_af_v2
         return u / _codata.e * 1e3 - np.asarray(n1) * self.offset_meV[0] - np.asarray(n2) * self.offset_meV[1]
 
     def charge_map(self, v1, v2, *, max_electrons: int = 6) -> tuple[np.ndarray, np.ndarray]:
-        """Ground-state (N1, N2) over the grid of plunger voltages (rows v2, columns v1)."""
+        """Ground-state (N1, N2) over the grid of plunger voltages (rows v2, columns v1), N_i in
+        -max_electrons..max_electrons (counted from the background charge)."""
         v1, v2 = np.asarray(v1, float), np.asarray(v2, float)
         g1, g2 = np.meshgrid(v1, v2)
         best = np.full(g1.shape, np.inf)
         n1_map = np.zeros(g1.shape, dtype=int)
         n2_map = np.zeros(g1.shape, dtype=int)
-        for n1 in range(max_electrons + 1):
-            for n2 in range(max_electrons + 1):
+        for n1 in range(-max_electrons, max_electrons + 1):
+            for n2 in range(-max_electrons, max_electrons + 1):
                 u = self.energy_meV(n1, n2, g1, g2)
                 better = u < best
                 best = np.where(better, u, best)
                 n1_map[better], n2_map[better] = n1, n2
         return n1_map, n2_map
 
-    def current(self, v1, v2, bias_V: float, temperature_K: float, *, max_electrons: int = 4) -> np.ndarray:
+    def current(self, v1, v2, bias_V: float, temperature_K: float, *, max_electrons: int = 3) -> np.ndarray:
         """Sequential current (A) through the series (source - dot 1 - dot 2 - drain) on the (v2, v1) grid.
 
         Rates: source into dot 1 ``Gamma_S f_S(mu_1)`` (out ``Gamma_S (1 - f_S)``), dot 2 into the drain
@@ -436,7 +452,8 @@ class DoubleDot:
         kt = BOLTZMANN_MEV_PER_K * _check_temperature(temperature_K)
         g1, g2 = np.meshgrid(np.asarray(v1, float), np.asarray(v2, float))
         pts = g1.size
-        states = [(a, b) for a in range(max_electrons + 1) for b in range(max_electrons + 1)]
+        states = [(a, b) for a in range(-max_electrons, max_electrons + 1)
+                  for b in range(-max_electrons, max_electrons + 1)]
         index = {st: i for i, st in enumerate(states)}
         s = len(states)
         energy = np.array([self.energy_meV(a, b, g1.ravel(), g2.ravel()) for a, b in states])  # (s, pts)

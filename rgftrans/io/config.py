@@ -489,6 +489,41 @@ class DisorderSpec(_Table):
     seed: Annotated[int, Field(ge=0)] = 0
 
 
+class BlockadeSpec(_Table):
+    """Closed dots by sequential tunnelling: which regions are the dots, which gates their plungers, the sweep.
+
+    One dot: Coulomb peaks G(V_plunger) at every configured temperature and the diamond map dI/dV(V_plunger,
+    V_sd).  Two dots (in series, the first touching the source): the charge-stability diagram over both
+    plungers, its sensor signal and the current at the triple points.  Charging energies, lever arms and
+    capacitances come from the layout's electrostatics ([[gates.region]]); single-dot levels from the region's
+    closed spectrum and tunnel rates from the open device's poles.
+    """
+
+    dots: Annotated[list[Name], Field(min_length=1, max_length=2)]
+    plungers: Annotated[list[Name], Field(min_length=1, max_length=2)]
+    #: Closed-system levels per dot kept in the constant-interaction model (spin doubles them).
+    levels: Annotated[int, Field(ge=1, le=8)] = 4
+    spin: bool = True
+    #: Plunger sweep: this span (V) centred on the configured voltage, with this many points.
+    plunger_span_V: PositiveFloat = 0.02
+    plunger_points: Annotated[int, Field(ge=3, le=4001)] = 201
+    #: Diamond map: source-drain bias from -bias_span_mV/2 to +bias_span_mV/2.
+    bias_span_mV: PositiveFloat = 3.0
+    bias_points: Annotated[int, Field(ge=3, le=1001)] = 81
+    #: Double dot: interdot tunnel coupling (meV), the bias of the current map (mV) and the sensor's coupling to
+    #: each dot (meV of sensor potential per electron).
+    tunnel_coupling_meV: PositiveFloat = 0.01
+    stability_bias_mV: float = 0.02
+    sensor_coupling_meV: Annotated[list[float], Field(min_length=2, max_length=2)] = [1.0, 0.5]
+
+    @model_validator(mode="after")
+    def _check_pairs(self):
+        if len(self.dots) != len(self.plungers):
+            raise _problem(f"one plunger per dot, got {len(self.dots)} dot(s) and {len(self.plungers)} plunger(s); "
+                           "list the gate that tunes each dot", "plungers")
+        return self
+
+
 class TemperatureSpec(_Table):
     """Temperatures (K) at which conductances are thermally averaged."""
 
@@ -722,6 +757,7 @@ class RunConfig(_Table):
     temperature: TemperatureSpec | None = None
     energy: EnergySpec
     sweep: SweepSpec | None = None
+    blockade: BlockadeSpec | None = None
     output: OutputSpec
     cluster: ClusterSpec = ClusterSpec()
 
@@ -773,6 +809,21 @@ class RunConfig(_Table):
                            "2DEG, got energy_origin = \"band_centre\" with relative_to_fermi or Thomas-Fermi "
                            "screening; both count energy from the band bottom, so use energy_origin = "
                            "\"band_bottom\"", "lattice.energy_origin")
+        if self.blockade is not None:
+            regions = [r.name for r in self.gates.region] if self.gates else []
+            gates = self.gates.names() if self.gates else []
+            for k, name in enumerate(self.blockade.dots):
+                if name not in regions:
+                    raise _problem(f"no [[gates.region]] named {name!r}, got regions {regions}; name each dot "
+                                   "as a region of the 2DEG", f"blockade.dots[{k}]")
+            for k, name in enumerate(self.blockade.plungers):
+                if name not in gates:
+                    raise _problem(f"no gate named {name!r}, got gates {gates}; name the gate that tunes the dot",
+                                   f"blockade.plungers[{k}]")
+            if not self.temperature or min(self.temperature.kelvin) <= 0:
+                raise _problem("sequential tunnelling needs the measurement temperature above 0 K, got "
+                               f"{self.temperature.kelvin if self.temperature else 'no [temperature] table'}; give "
+                               "kelvin = [...] with positive values", "blockade")
         if self.field.zeeman and not self.spin.enabled:
             raise _problem("a Zeeman term needs spin orbitals, got field.zeeman = true with spin.enabled = false; "
                            "set enabled = true in [spin], or remove zeeman (it defaults to on with spin)",

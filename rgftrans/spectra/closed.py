@@ -54,7 +54,8 @@ class ClosedLevels:
         return float(np.mean(np.diff(e))) if e.size > 1 else float("nan")
 
 
-def closed_levels(model, *, count: int = 6, target: float | None = None, region=None) -> ClosedLevels:
+def closed_levels(model, *, count: int = 6, target: float | None = None, region=None,
+                  sites=None) -> ClosedLevels:
     """The ``count`` levels of the device (or of ``region`` in it) nearest ``target``, or the lowest ones.
 
     Parameters
@@ -66,6 +67,8 @@ def closed_levels(model, *, count: int = 6, target: float | None = None, region=
         Default: the bottom of the spectrum (the lowest ``count`` levels).
     region : Region, optional
         Keep only the sites inside it (e.g. a dot between its barriers).
+    sites : (n_sites,) bool array_like, optional
+        Keep only these sites (e.g. a dot's island found by the electrostatics); not with ``region``.
 
     Returns
     -------
@@ -74,9 +77,19 @@ def closed_levels(model, *, count: int = 6, target: float | None = None, region=
     ham = sp.csr_matrix(model.hamiltonian)
     norbs = int(model.norbs)
     n_sites = model.positions.shape[0]
-    sites = np.arange(n_sites)
+    if region is not None and sites is not None:
+        raise RgftransError("give a region or a site mask, not both")
+    keep = None
     if region is not None:
-        sites = np.flatnonzero(region.contains(model.positions))
+        keep = np.flatnonzero(region.contains(model.positions))
+    elif sites is not None:
+        mask = np.asarray(sites, dtype=bool)
+        if mask.shape != (n_sites,):
+            raise RgftransError(f"sites must be a boolean mask of the model's {n_sites} sites, got shape {mask.shape}")
+        keep = np.flatnonzero(mask)
+    sites = np.arange(n_sites)
+    if keep is not None:
+        sites = keep
         if sites.size == 0:
             raise RgftransError("the region contains no site of the device; draw it over the device")
         orbitals = (sites[:, None] * norbs + np.arange(norbs)[None, :]).ravel()

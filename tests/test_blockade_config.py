@@ -1,0 +1,92 @@
+"""`rgftrans blockade`: closed dots from a layout (configs/closed_dot.toml, configs/double_dot.toml; invented).
+
+Sources of the expectations: the constant-interaction model (W. G. van der Wiel et al., Rev. Mod. Phys. 75, 1
+(2002), from memory): Coulomb peaks of one spin-degenerate orbital are E_C / (e alpha) apart in plunger
+voltage, a double dot's honeycomb repeats every e / C_g along each plunger.  Every printed and stored number
+carries its unit (common practice).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pytest
+from scipy import constants
+
+from rgftrans.cli import EXIT_BAD_INPUT, EXIT_OK, main
+from rgftrans.io.blockade import blockade_from_config
+from rgftrans.io.config import parse_config
+
+CONFIGS = Path(__file__).resolve().parents[1] / "configs"
+
+
+def _fast(name, tmp_path, **changes):
+    text = (CONFIGS / name).read_text()
+    for old, new in changes.items():
+        text = text.replace(old, new)
+    path = tmp_path / name
+    path.write_text(text.replace('path = "out/', f'path = "{tmp_path}/'))
+    return path
+
+
+@pytest.fixture(scope="module")
+def single(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("blockade")
+    path = _fast("closed_dot.toml", tmp, **{"levels = 3": "levels = 2", "plunger_points = 301": "plunger_points = 241",
+                                            "bias_points = 121": "bias_points = 31"})
+    return path, parse_config(path.read_text(), source=str(path))
+
+
+def test_single_dot_from_the_layout(single, capsys):
+    path, cfg = single
+    assert main(["blockade", str(path), "--out-prefix", str(path.with_suffix(""))]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "E_C = " in out and "lever arm" in out and "s^-1" in out and "regime: sequential tunnelling" in out
+    assert "x 2e^2/h" in out
+    with h5py.File(cfg.output.path, "r") as f:
+        g = f["blockade"]
+        assert g["conductance"].attrs["units"] == "S" and g["conductance_2e2h"].attrs["units"] == "2e^2/h"
+        assert g["plunger_voltage"].attrs["units"] == "V" and g["tunnel_rates"].attrs["units"] == "s^-1"
+        g0 = 2 * constants.e**2 / constants.h  # 2e^2/h in S (CODATA, exact)
+        assert np.allclose(g["conductance_2e2h"][()] * g0, g["conductance"][()], rtol=1e-12)
+        e_c, alpha = g.attrs["charging_energy_meV"], g.attrs["lever_arm"]
+        volts, g_cold = g["plunger_voltage"][()], g["conductance"][0]
+    assert Path(f"{path.with_suffix('')}_peaks.png").stat().st_size > 0
+    assert Path(f"{path.with_suffix('')}_diamonds.png").stat().st_size > 0
+    # Peaks of one spin-degenerate orbital (the first two) sit E_C / (e alpha) apart (to one voltage step).
+    inner = (g_cold[1:-1] > g_cold[:-2]) & (g_cold[1:-1] >= g_cold[2:]) & (g_cold[1:-1] > 0.05 * g_cold.max())
+    peaks = volts[1:-1][inner]
+    assert peaks.size == 4  # two orbitals, two spins each
+    step = volts[1] - volts[0]
+    assert peaks[1] - peaks[0] == pytest.approx(e_c / (1000 * alpha), abs=1.5 * step)
+
+
+def test_double_dot_from_the_layout(tmp_path, capsys):
+    path = _fast("double_dot.toml", tmp_path, **{"plunger_points = 161": "plunger_points = 81"})
+    assert main(["blockade", str(path), "--out-prefix", str(tmp_path / "dd")]) == EXIT_OK
+    assert "triple-point current" in capsys.readouterr().out
+    with h5py.File(tmp_path / "double_dot.h5", "r") as f:
+        g = f["blockade"]
+        n1, v1 = g["charge1"][()], g["plunger1_voltage"][()]
+        c_g = g["gate_capacitance"][()]
+        assert g["current"].attrs["units"] == "A" and g["sensor"].attrs["units"] == "meV"
+    # Along the first plunger the charge of dot 1 steps every e / C_g11 (cross-capacitance shifts the lines
+    # but not the period along a row).
+    row = n1[n1.shape[0] // 2]
+    steps = v1[1:][np.diff(row) != 0]
+    period = constants.e / (c_g[0, 0] * 1e-18)
+    assert np.allclose(np.diff(steps), period, atol=2 * (v1[1] - v1[0]))
+
+
+@pytest.mark.parametrize("change, fragment", [
+    (('dots = ["dot"]', 'dots = ["island"]'), "no [[gates.region]] named 'island'"),
+    (('plungers = ["plunger"]', 'plungers = ["gate9"]'), "no gate named 'gate9'"),
+    (("kelvin = [0.1, 0.5]", "kelvin = [0.0]"), "above 0 K"),
+])
+def test_bad_blockade_tables_are_one_line(tmp_path, capsys, change, fragment):
+    path = _fast("closed_dot.toml", tmp_path, **{change[0]: change[1]})
+    assert main(["blockade", str(path)]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and fragment in err[0], err
