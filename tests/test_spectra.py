@@ -79,7 +79,32 @@ def test_arpack_failure_is_one_line_with_advice(monkeypatch, hermitian, solver):
     message = str(info.value)
     assert "\n" not in message
     assert "did not converge" in message and f"{a.shape[0]} x {a.shape[0]}" in message
-    assert "2 of 6 eigenvalues found" in message and "ask for fewer eigenvalues" in message
+    assert "2 of 6 eigenvalues found" in message and "ask for fewer or more eigenvalues" in message
+    assert "dense=True" in message
+
+
+@pytest.mark.parametrize("hermitian", [False, True], ids=["general", "hermitian"])
+def test_arpack_that_really_does_not_converge_is_one_line(hermitian):
+    """No mock: one restart (maxiter=1) is too few for twelve shift-invert eigenvalues of this random 320 x 320
+    matrix, so ARPACK itself raises ArpackNoConvergence (20 of 20 repeated runs failed, whatever ARPACK's random
+    start vector; common practice, no source); the helper turns it into one EigenSolveFailed line with the advice,
+    and the dense route gives the answer."""
+    a = _random_matrix(DENSE_BELOW + 20, hermitian, seed=6)
+    target = 0.37 if hermitian else 0.37 + 0.05j
+    with pytest.raises(EigenSolveFailed) as info:
+        eigenvalues_near(a, target, 2 * COUNT, hermitian=hermitian, maxiter=1)
+    message = str(info.value)
+    assert "\n" not in message and "did not converge" in message and "in 1 restarts" in message
+    assert "raise maxiter" in message and "dense=True" in message and "degenerate" in message
+    w, _ = eigenvalues_near(a, target, COUNT, hermitian=hermitian, dense=True, vectors=False)
+    full = sla.eigvalsh(a.toarray()) if hermitian else sla.eigvals(a.toarray())
+    assert np.abs(w - full[np.argsort(np.abs(full - target))[:COUNT]]).max() <= RTOL * abs(a).max()
+
+
+@pytest.mark.parametrize("maxiter", [0, -3, 2.5, True])
+def test_bad_maxiter_is_refused(maxiter):
+    with pytest.raises(RgftransError, match="maxiter of the eigenvalue search must be a positive integer"):
+        eigenvalues_near(np.eye(3), 0.0, 1, maxiter=maxiter)
 
 
 def test_arpack_breakdown_is_one_line(monkeypatch):
