@@ -11,6 +11,10 @@ On it, the pole solver (module ``poles``): :class:`Resonance`,
 and ``analysis`` and uses only the layers below (``leads`` for the
 self-energies, ``system`` for the model); the searches that use these poles
 (dark states, BICs, resolution checks) are ``analysis``.
+
+The closed system (module ``closed``): :func:`closed_levels` gives the levels
+and normalised states of ``H`` without its leads, or of a region cut out of
+it, near a target or the lowest ones, as :class:`ClosedLevels`.
 """
 
 from rgftrans._lazy import lazy_exports
@@ -25,6 +29,8 @@ _EXPORTS = {
     "follow_pole": "poles",
     "window_poles": "poles",
     "POLE_TOL": "poles",
+    "ClosedLevels": "closed",
+    "closed_levels": "closed",
 }
 __all__ = list(_EXPORTS)
 __getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

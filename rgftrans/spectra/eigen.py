@@ -22,10 +22,15 @@ densely (``dense=True``; a full decomposition cannot fail to converge and costs
 O(n^3), seconds for a few thousand rows).  ``maxiter`` caps ARPACK's restarts
 (scipy's default, 10 n, when None).
 
-Shift-invert Lanczos (ARPACK) finds one copy of each eigenvalue per converged
-Ritz vector; for an exactly degenerate cluster it may return fewer copies than
-exist (round-off alone seeds the other directions).  Callers that need every
-member of a symmetric cluster should use ``dense=True`` on small matrices.
+Shift-invert Lanczos (ARPACK) resolves an exactly degenerate cluster only
+through round-off: it may return fewer copies than exist, and the copies it
+returns need not be orthogonal (two unit eigenvectors of a doubly degenerate
+level of a square box came back with overlap 0.96).  On the Hermitian route
+every cluster of eigenvalues equal to :data:`CLUSTER_TOL` of the matrix scale
+is therefore orthonormalised and re-diagonalised inside its span
+(Rayleigh-Ritz, common practice, no source); a cluster whose vectors span fewer
+directions than its size (a copy returned twice) is an
+:class:`~rgftrans.errors.EigenSolveFailed` advising ``dense=True``.
 """
 
 from __future__ import annotations
@@ -44,6 +49,12 @@ __all__ = ["DENSE_BELOW", "eigenvalues_near"]
 DENSE_BELOW = 300
 #: A target exactly on an eigenvalue (singular shifted matrix) is moved by this fraction of the matrix scale.
 SHIFT_NUDGE = 1e-9
+#: Hermitian shift-invert eigenvalues closer than this fraction of the matrix scale form one (degenerate)
+#: cluster, re-orthonormalised together: far above the 1e-14 round-off of the solve, far below any level spacing
+#: the callers resolve.
+CLUSTER_TOL = 1e-9
+#: Inside a cluster, directions whose singular value (of unit columns) falls below this are copies of others.
+_COPY_TOL = 1e-6
 
 
 def eigenvalues_near(matrix, target, count: int, *, hermitian: bool = False, vectors: bool = True,
@@ -139,4 +150,33 @@ def _shift_invert(matrix: sp.csc_matrix, target, k: int, hermitian: bool, vector
     w, v = out if vectors else (out, None)
     if hermitian:
         w = np.real(w)
+        if vectors:
+            w, v = _orthonormal_clusters(matrix, w, v, scale, target)
+    return w, v
+
+
+def _orthonormal_clusters(matrix, w: np.ndarray, v: np.ndarray, scale: float, target):
+    """Rayleigh-Ritz inside every cluster of (nearly) equal eigenvalues of a Hermitian ``matrix``.
+
+    ARPACK's copies of a degenerate level are eigenvectors but not necessarily orthogonal; an orthonormal basis
+    of their span, with ``matrix`` diagonalised in it, gives orthonormal eigenvectors of the same accuracy.
+    """
+    order = np.argsort(w, kind="stable")
+    w, v = w[order], v[:, order]
+    start = 0
+    while start < len(w):
+        stop = start + 1
+        while stop < len(w) and w[stop] - w[stop - 1] <= CLUSTER_TOL * scale:
+            stop += 1
+        if stop - start > 1:
+            u, sv, _ = np.linalg.svd(v[:, start:stop], full_matrices=False)
+            if sv[-1] < _COPY_TOL * sv[0]:
+                raise EigenSolveFailed(
+                    f"the shift-invert eigenvalue solve near {target:.6g} returned {stop - start} vectors for the "
+                    f"degenerate level at {w[start]:.10g} that span only {int(np.sum(sv >= _COPY_TOL * sv[0]))} "
+                    "directions; pass dense=True (a full decomposition) for this degenerate spectrum") from None
+            h_small = u.conj().T @ (matrix @ u)
+            w_c, y = np.linalg.eigh(0.5 * (h_small + h_small.conj().T))
+            w[start:stop], v[:, start:stop] = w_c, u @ y
+        start = stop
     return w, v
