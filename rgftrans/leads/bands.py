@@ -138,6 +138,7 @@ class LeadBands:
 
     @property
     def n_bands(self) -> int:
+        """Number of bands (orbitals per lead cell)."""
         return self.energies_meV.shape[1]
 
     @property
@@ -185,6 +186,7 @@ class OpenChannels:
 
     @property
     def count(self) -> int:
+        """Number of open channels."""
         return len(self.k_per_nm)
 
 
