@@ -11,12 +11,15 @@ in this list (a contract checked by the test suite):
 ``rgftrans.electrostatics``
     Surface gates: :class:`GateLayout` (voltages in V) as a device's potential.
 ``rgftrans.leads``
-    Lead modes, surface Green's functions and self-energies.
+    Lead modes, surface Green's functions and self-energies; band structures
+    (:func:`lead_bands`).
 ``rgftrans.transport``
     :func:`transmission`, :func:`transmission_matrix` (RGF), :func:`ldos` and the
     other local quantities, and the sparse direct reference solver.
 ``rgftrans.spectra``
-    Resonance poles (:func:`resonances`) and eigenvalues near an energy.
+    Resonance poles (:func:`resonances`) and their widths per lead
+    (:func:`partial_widths`), closed-system levels (:func:`closed_levels`) and
+    eigenvalues near an energy.
 ``rgftrans.analysis``
     Temperature (:func:`thermal_conductance`), the regime estimate, resolution
     checks, Fano fits and the search for bound states in the continuum.
@@ -67,6 +70,8 @@ _EXPORTS = {
     # analysis
     "thermal_conductance": "analysis.thermal", "landauer_current": "analysis.thermal",
     "regime_estimate": "analysis.regime", "resonances": "spectra.poles",
+    # spectra and leads
+    "closed_levels": "spectra.closed", "partial_widths": "spectra.widths", "lead_bands": "leads.bands",
     # io
     "load_config": "io.config", "read_result": "io.store", "run_sweep": "io.sweeps",
     # errors

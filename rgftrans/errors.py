@@ -69,6 +69,10 @@ class ResolutionWarning(RgftransWarning):
     """A discretisation or energy grid too coarse for the physics it should resolve."""
 
 
+class PrecisionWarning(RgftransWarning):
+    """A requested precision finer than the computation can deliver; the achievable precision is used instead."""
+
+
 class ValidityWarning(RgftransWarning):
     """The model is legal but the result may not describe the device (e.g. a closed dot where charging
     dominates, or a potential step at a lead interface that reflects spuriously)."""

@@ -55,6 +55,24 @@ def test_two_level_bic_found_to_1e6():
     assert bic.solves <= 40
 
 
+def test_rtol_below_round_off_is_clamped_with_a_warning_and_never_worse():
+    """The couplings vanish linearly, so Newton reaches round-off of the parameters; an rtol below 10 eps could
+    only be met by an exactly zero step (the search used all its solves and failed before the clamp).  Asking for
+    1e-17 warns, runs at 10 eps and lands at least as close to the closed form (Friedrich & Wintgen 1985, above)
+    as the default does: within 1e-14 relative (a few ulps of round-off in the residuals and the Jacobian solve)."""
+    from rgftrans.analysis.bic2d import RTOL_FLOOR_2D
+    from rgftrans.errors import PrecisionWarning
+
+    default = locate_bic_2d(two_levels, (0.30, 0.30), (0.05, 0.05), E_STAR + 0.05)
+    with pytest.warns(PrecisionWarning, match=r"rtol = 1e-17 is below what this search can deliver"):
+        fine = locate_bic_2d(two_levels, (0.30, 0.30), (0.05, 0.05), E_STAR + 0.05, rtol=1e-17)
+    exact = np.array([KAPPA_STAR, V_AR_STAR])
+    err_fine = np.abs(fine.parameter - exact) / exact
+    err_default = np.abs(default.parameter - exact) / exact
+    assert np.all(err_fine <= np.maximum(err_default, 1e-14)) and err_fine.max() <= 1e-14
+    assert RTOL_FLOOR_2D == pytest.approx(2.2e-15, rel=0.01)
+
+
 def test_fano_collapse_data_on_the_two_level_bic():
     """The data behind the fano-collapse figure: the width closes as |p - p*|^2 (a simple zero of the coupling, see
     locate_bic_2d; Gamma / d^2 tends to a constant, 0.139 meV per unit kappa^2 here, and the three nearest distances

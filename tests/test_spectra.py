@@ -79,7 +79,32 @@ def test_arpack_failure_is_one_line_with_advice(monkeypatch, hermitian, solver):
     message = str(info.value)
     assert "\n" not in message
     assert "did not converge" in message and f"{a.shape[0]} x {a.shape[0]}" in message
-    assert "2 of 6 eigenvalues found" in message and "ask for fewer eigenvalues" in message
+    assert "2 of 6 eigenvalues found" in message and "ask for fewer or more eigenvalues" in message
+    assert "dense=True" in message
+
+
+@pytest.mark.parametrize("hermitian", [False, True], ids=["general", "hermitian"])
+def test_arpack_that_really_does_not_converge_is_one_line(hermitian):
+    """No mock: one restart (maxiter=1) is too few for twelve shift-invert eigenvalues of this random 320 x 320
+    matrix, so ARPACK itself raises ArpackNoConvergence (20 of 20 repeated runs failed, whatever ARPACK's random
+    start vector; common practice, no source); the helper turns it into one EigenSolveFailed line with the advice,
+    and the dense route gives the answer."""
+    a = _random_matrix(DENSE_BELOW + 20, hermitian, seed=6)
+    target = 0.37 if hermitian else 0.37 + 0.05j
+    with pytest.raises(EigenSolveFailed) as info:
+        eigenvalues_near(a, target, 2 * COUNT, hermitian=hermitian, maxiter=1)
+    message = str(info.value)
+    assert "\n" not in message and "did not converge" in message and "in 1 restarts" in message
+    assert "raise maxiter" in message and "dense=True" in message and "degenerate" in message
+    w, _ = eigenvalues_near(a, target, COUNT, hermitian=hermitian, dense=True, vectors=False)
+    full = sla.eigvalsh(a.toarray()) if hermitian else sla.eigvals(a.toarray())
+    assert np.abs(w - full[np.argsort(np.abs(full - target))[:COUNT]]).max() <= RTOL * abs(a).max()
+
+
+@pytest.mark.parametrize("maxiter", [0, -3, 2.5, True])
+def test_bad_maxiter_is_refused(maxiter):
+    with pytest.raises(RgftransError, match="maxiter of the eigenvalue search must be a positive integer"):
+        eigenvalues_near(np.eye(3), 0.0, 1, maxiter=maxiter)
 
 
 def test_arpack_breakdown_is_one_line(monkeypatch):
@@ -122,3 +147,45 @@ def test_no_leads_gives_the_closed_levels_as_zero_width_poles():
     followed = follow_pole(model, found[1].energy_meV, found[1].state)
     assert followed.energy_meV == pytest.approx(found[1].energy_meV, abs=1e-12) and followed.width_meV == 0.0
     assert window_poles(model, (-2.0, 2.0)).shape == (0, 2)  # only poles of non-zero width are listed
+
+
+def _square_box_laplacian(n: int) -> sp.csr_matrix:
+    """The n x n hard-wall square-lattice box, hopping -1, onsite 4: levels (m, k) and (k, m) are equal."""
+    chain = sp.diags([-np.ones(n - 1), -np.ones(n - 1)], [-1, 1])
+    eye = sp.eye(n)
+    return (sp.kron(chain, eye) + sp.kron(eye, chain) + 4 * sp.eye(n * n)).tocsr()
+
+
+def test_degenerate_levels_come_back_orthonormal_from_shift_invert():
+    """ARPACK's two copies of a doubly degenerate level need not be orthogonal; the helper re-diagonalises the
+    cluster in an orthonormal basis of its span.  Reference: the dense decomposition (projector onto the pair,
+    1e-10: round-off over the gap 0.08 to the next level, Davis-Kahan, from memory)."""
+    a = _square_box_laplacian(18)  # 324 rows: shift-invert route
+    w, v = eigenvalues_near(a, 0.0, 6, hermitian=True)
+    assert np.abs(v.conj().T @ v - np.eye(6)).max() <= 1e-12
+    assert np.linalg.norm(a @ v - v * w, axis=0).max() <= RTOL * 8
+    full_w, full_v = sla.eigh(a.toarray())
+    pair = np.flatnonzero(np.abs(w - full_w[1]) < 1e-9)
+    assert len(pair) == 2
+    projector = v[:, pair] @ v[:, pair].conj().T
+    assert np.abs(projector - full_v[:, 1:3] @ full_v[:, 1:3].T).max() <= RTOL
+
+
+def test_a_degenerate_copy_returned_twice_is_one_line(monkeypatch):
+    """If ARPACK hands back the same vector twice for a degenerate level, nothing spans the second direction: a
+    one-line EigenSolveFailed advising dense=True instead of a silently missing state."""
+    a = _square_box_laplacian(18)
+    real_eigsh = spla.eigsh
+
+    def duplicate(*args, **kwargs):
+        w, v = real_eigsh(*args, **kwargs)
+        order = np.argsort(w)
+        w, v = w[order], v[:, order]
+        v[:, 2] = v[:, 1]  # the second member of the first degenerate pair replaced by the first
+        return w, v
+
+    monkeypatch.setattr(spla, "eigsh", duplicate)
+    with pytest.raises(EigenSolveFailed, match=r"returned 2 vectors for the degenerate level .* span only 1 "
+                                               r"directions; pass dense=True") as info:
+        eigenvalues_near(a, 0.0, 4, hermitian=True)
+    assert "\n" not in str(info.value)

@@ -38,6 +38,7 @@ _EXPORTS = {
     "track_resonance": "darkstates",
     "BicLocation": "darkstates",
     "locate_bic": "darkstates",
+    "BIC_RTOL_FLOOR": "darkstates",
     "inside_window": "darkstates",
     "follow_at": "darkstates",
     "progress_bar": "darkstates",

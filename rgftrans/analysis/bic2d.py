@@ -30,7 +30,8 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from rgftrans.analysis.darkstates import PROTECTED_WIDTH, WIDTH_FLOOR, inside_window, progress_bar, report_beside
+from rgftrans.analysis.darkstates import (PROTECTED_WIDTH, WIDTH_FLOOR, clamp_rtol, inside_window, progress_bar,
+                                          report_beside)
 from rgftrans.errors import EigenSolveFailed, RgftransError
 from rgftrans.leads.embedding import embedded_self_energy, lead_self_energies
 from rgftrans.spectra.eigen import eigenvalues_near
@@ -52,6 +53,11 @@ JACOBIAN_STEP = 1e-4
 EXPLAIN_LEVELS = 8
 #: Closed-dot levels nearest the window's centre that `plane_seeds` looks at (a window holding more keeps these).
 SEED_LEVELS = 60
+#: Finest relative precision of the Newton search: ten units of round-off (eps = 2.2e-16).  The residuals vanish
+#: linearly, so the zero is pinned to round-off of the parameters themselves (unlike a quadratic width zero, see
+#: darkstates.locate_bic); below a few ulps the step test |dp| <= rtol |p| can be met only by an exactly zero step,
+#: and the search would spend its solves in vain (common practice, no source).  A finer rtol is clamped.
+RTOL_FLOOR_2D = 10 * float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, eq=False)
@@ -299,9 +305,11 @@ def locate_bic_2d(build: Callable[[float, float], TightBindingModel], start, ste
     energy_guess : float
         Energy of the candidate state (meV).
     rtol : float
-        Relative precision of each parameter (relative to ``max(|p|, step)``).
+        Relative precision of each parameter (relative to ``max(|p|, step)``); below :data:`RTOL_FLOOR_2D` it is
+        clamped to it with a PrecisionWarning.
     reference : optional state to follow (from a grid search).
     """
+    rtol = clamp_rtol(rtol, RTOL_FLOOR_2D, "the parameters are doubles, known to a few units of round-off")
     step = np.asarray(step, float)
     x, res, solves = _newton(build, start, step, energy_guess, reference, rtol, max_solves)
     seed = res.state.astype(complex)
@@ -446,6 +454,7 @@ def search_grid(build: Callable[[float, float], TightBindingModel], p1, p2, ener
     A grid point counts as computed only where the state was followed and has
     exactly two finite residuals; elsewhere the residuals are NaN.
     """
+    rtol = clamp_rtol(rtol, RTOL_FLOOR_2D, "the parameters are doubles, known to a few units of round-off")
     p1, p2 = np.asarray(p1, float), np.asarray(p2, float)
     n1, n2 = len(p1), len(p2)
     if n1 < 2 or n2 < 2:

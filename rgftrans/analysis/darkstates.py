@@ -35,7 +35,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.optimize as sopt
 
-from rgftrans.errors import EigenSolveFailed, ResolutionWarning, RgftransError
+from rgftrans.errors import EigenSolveFailed, PrecisionWarning, ResolutionWarning, RgftransError
 from rgftrans.leads.embedding import gamma_columns, lead_self_energies
 from rgftrans.spectra.eigen import eigenvalues_near
 from rgftrans.spectra.poles import Resonance, follow_pole
@@ -45,7 +45,7 @@ from rgftrans.transport.rgf import transmission
 __all__ = [
     "CouplingDiagnostics", "coupling_diagnostics", "FanoFit", "fano_profile", "fit_fano", "find_resonances",
     "Track", "track_resonance", "BicLocation", "locate_bic", "inside_window", "follow_at", "progress_bar",
-    "report_beside", "FanoCollapse", "fano_collapse",
+    "report_beside", "FanoCollapse", "fano_collapse", "BIC_RTOL_FLOOR", "clamp_rtol",
 ]
 
 #: A coupling below this fraction of the largest one counts as zero (a symmetry-protected dark state).
@@ -59,6 +59,23 @@ WIDTH_FLOOR = 1e-14
 MIN_POINTS_PER_WIDTH = 3
 #: A search's progress bar (standard error) appears only once it has run this long (s): short searches stay quiet.
 PROGRESS_DELAY_S = 3.0
+#: Finest relative precision of a parameter located by minimising a width that vanishes quadratically:
+#: sqrt(machine epsilon) = 1.5e-8 (see locate_bic).  A finer rtol is clamped to it with a PrecisionWarning.
+BIC_RTOL_FLOOR = float(np.sqrt(np.finfo(float).eps))
+
+
+def clamp_rtol(rtol, floor: float, why: str) -> float:
+    """``rtol`` checked (a finite number in (0, 1)) and raised to ``floor`` with a PrecisionWarning saying ``why``."""
+    if isinstance(rtol, (bool, np.bool_, str, bytes)) or not np.isscalar(rtol) or not np.isreal(rtol) or not (
+            np.isfinite(rtol) and 0 < float(rtol) < 1):
+        raise RgftransError(f"rtol must be a relative precision between 0 and 1 (e.g. 1e-6), got {rtol!r}")
+    rtol = float(rtol)
+    if rtol < floor:
+        warnings.warn(f"rtol = {rtol:.3g} is below what this search can deliver ({floor:.2g}: {why}); using "
+                      f"rtol = {floor:.2g} -- the result is as good as the numbers allow, not worse",
+                      PrecisionWarning, stacklevel=3)
+        return floor
+    return rtol
 
 
 def stderr_is_terminal() -> bool:
@@ -417,11 +434,6 @@ class BicLocation:
     outside_stored_energies: bool = False
 
 
-#: Finest relative tolerance of :func:`locate_bic`: the width vanishes as (p - p*)^2 and is computed to about
-#: 1e-16 of the energy scale, so p* is fixed to about sqrt(1e-16) = 1e-8 relative; 1e-7 leaves a margin.
-MIN_BIC_RTOL = 1e-7
-
-
 def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: float, energy_guess: float, *,
                rtol: float = 1e-6, max_solves: int = 120, on_solve: Callable[[], None] | None = None) -> BicLocation:
     """Find the parameter in [p_lo, p_hi] where a resonance's width vanishes, to relative precision ``rtol``.
@@ -431,17 +443,34 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
     quadratic vanishing ``Gamma ~ (p - p*)^2`` on both sides.  ``on_solve`` is
     called after every pole solve (a progress bar).
 
-    A width that vanishes quadratically pins the parameter only to about the square root of the width's own
-    round-off (machine epsilon times the energy scale): near p* a change of 1e-8 relative moves Gamma by
-    about 1e-16 of the scale, below what the pole solve resolves.  A tolerance below :data:`MIN_BIC_RTOL` is
-    therefore raised to it, with a warning (asking for more only lets round-off pick the point).
+    Precision.  Near an accidental BIC the width vanishes quadratically,
+    ``Gamma(p) = c (p - p*)^2``, but it is computed as ``-2 Im z`` of an
+    eigenvalue, with an absolute round-off ``delta ~ eps t`` (eps = 2.2e-16,
+    t the energy scale).  Widths below delta are indistinguishable, so the
+    minimum is pinned only to ``|p - p*| ~ sqrt(delta / c)``: about
+    ``sqrt(eps) = 1.5e-8`` relative at best (when ``c p^2 ~ t``), worse for
+    weakly coupled levels.  Brent's minimiser itself never resolves a minimum
+    below ``sqrt(eps)`` relative, for the same reason (R. P. Brent, Algorithms
+    for Minimization without Derivatives, Prentice-Hall 1973, ch. 5, from
+    memory).  An ``rtol`` below :data:`BIC_RTOL_FLOOR` is therefore clamped to
+    it with a :class:`~rgftrans.errors.PrecisionWarning`; the location is then
+    as good as the default's or better.  (The two-parameter search of
+    :mod:`rgftrans.analysis.bic2d` finds simple zeros of signed couplings,
+    linear in ``p - p*``, and reaches machine precision instead.)
+
+    Raises
+    ------
+    RgftransError
+        An rtol that is not a number in (0, 1); a model without leads (its levels have no width to lose: they are
+        bound states, not BICs); more than ``max_solves`` pole solves.
     """
-    if not (isinstance(rtol, (int, float)) and rtol > 0):
-        raise RgftransError(f"rtol = {rtol!r} must be a positive relative tolerance, e.g. 1e-6")
-    if rtol < MIN_BIC_RTOL:
-        warnings.warn(f"rtol = {rtol:g} is below what a quadratically vanishing width can resolve (about "
-                      f"sqrt(machine epsilon), {MIN_BIC_RTOL:g} relative); using {MIN_BIC_RTOL:g}", stacklevel=2)
-        rtol = MIN_BIC_RTOL
+    rtol = clamp_rtol(rtol, BIC_RTOL_FLOOR, "a width that vanishes quadratically, computed with round-off eps t, "
+                                            "pins its zero to sqrt(eps) relative")
+    model_lo = build(p_lo)
+    if not model_lo.leads:
+        raise RgftransError(f"the model built at p = {p_lo:.6g} has no leads: its levels are bound states of zero "
+                            "width, not bound states in the continuum; attach leads, or use "
+                            "spectra.closed_levels for the closed system's levels")
     state = {"energy": energy_guess, "vec": None, "solves": 0}
     cache = {}
 
@@ -460,7 +489,7 @@ def locate_bic(build: Callable[[float], TightBindingModel], p_lo: float, p_hi: f
         return r.width_meV
 
     typical = max(width(p_lo), width(p_hi))
-    scale = build(p_lo).energy_scale
+    scale = model_lo.energy_scale
     if typical < PROTECTED_WIDTH * scale:
         r = cache[p_lo]
         return BicLocation(parameter=(p_lo, p_hi), energy_meV=r.energy_meV, width_meV=typical, typical_width_meV=typical,

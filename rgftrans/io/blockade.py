@@ -137,11 +137,13 @@ class DoubleDotBlockade:
 def _level_rates(model, levels):
     """Source and drain tunnel rates (s^-1) of each closed level: from the open device's pole nearest in energy
     among those whose state lies mostly on the dot (the same sites), within half a level spacing."""
-    from rgftrans.spectra.poles import resonances, tunnel_rates_per_s
+    from rgftrans.spectra.poles import resonances
+    from rgftrans.spectra.widths import partial_widths
 
     names = [lead.name for lead in model.leads][:2]
-    orbitals = (levels.sites[:, None] * levels.norbs + np.arange(levels.norbs)[None, :]).ravel()
-    spacing = levels.spacing_meV if np.isfinite(levels.spacing_meV) else np.inf
+    orbitals = (levels.site_indices[:, None] * levels.norbs + np.arange(levels.norbs)[None, :]).ravel()
+    e_all = levels.energies_meV
+    spacing = float(np.mean(np.diff(e_all))) if e_all.size > 1 else np.inf
     rates = np.zeros((levels.energies_meV.size, 2))
     for k, e in enumerate(levels.energies_meV):
         candidates = resonances(model, float(e), count=CANDIDATE_POLES)
@@ -156,7 +158,7 @@ def _level_rates(model, levels):
         # rates into each lead are those of the level itself.
         group = [p for p in candidates if abs(p.energy_meV - best.energy_meV) < DEGENERATE_MEV]
         for pole in group:
-            per_lead = tunnel_rates_per_s(model, pole)
+            per_lead = partial_widths(model, pole).rate_by_lead
             rates[k] += [per_lead[names[0]], per_lead[names[1]]]
     return rates
 
@@ -218,7 +220,7 @@ def _single(cfg) -> SingleDotBlockade:
     model = cfg.build_device().discretise()
     e_f = cfg.fermi_energy_meV
     levels = closed_levels(model, count=spec.levels, target=e_f, sites=_dot_sites(cfg, model, dot))
-    spacing = levels.spacing_meV if spec.levels > 1 else e_c
+    spacing = float(np.mean(np.diff(levels.energies_meV))) if spec.levels > 1 else e_c
     rates = _level_rates(model, levels)
     orbitals = spec.levels * (2 if spec.spin else 1)
     charging = ChargingDot(charging_energy_meV=e_c, lever_arm=alpha, levels_meV=levels.energies_meV - e_f,

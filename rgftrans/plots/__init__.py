@@ -26,6 +26,8 @@ _EXPORTS = {
     "plot_waveguide_field": "figures",
     "DEVICE_SITES_SHOWN": "figures",
     "plot_fit": "fits",
+    "plot_level_density": "spectra",
+    "plot_lead_bands": "spectra",
 }
 __all__ = list(_EXPORTS)
 __getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

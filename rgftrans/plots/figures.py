@@ -913,37 +913,3 @@ def plot_waveguide_field(model, magnitude, *, label: str, title: str | None = No
     return plot_map(model.model, magnitude, label=label, cmap="inferno", title=title, length_unit=model.unit, ax=ax,
                     lead_word="port")
 
-
-def plot_lead_bands(bands, *, window_meV=None, ax=None):
-    """A lead's bands E_n(k) (meV against k in 1/nm), its channel thresholds, and an energy window shaded.
-
-    ``bands`` is a :class:`rgftrans.leads.bands.LeadBands`; ``window_meV`` an optional (E_min, E_max), e.g. a
-    sweep's energy grid, so a user sees which subbands it spans.
-    """
-    fig, ax = _axes(ax)
-    ax.plot(bands.k_per_nm, bands.energies_meV, color="k", lw=1.0)
-    for e in bands.minima_meV:
-        ax.axhline(e, color="tab:blue", lw=0.6, ls=":")
-    if window_meV is not None:
-        lo, hi = (float(v) for v in window_meV)
-        ax.axhspan(lo, hi, color="tab:orange", alpha=0.2, lw=0, label="energy window")
-        ax.legend(frameon=False, fontsize="small", loc="upper center")
-    ax.set_xlim(bands.k_per_nm[0], bands.k_per_nm[-1])
-    ax.set_xlabel("wave number k along the lead (1/nm)")
-    ax.set_ylabel("energy E (meV)")
-    ax.set_title(f"lead '{bands.lead}': bands, channel thresholds dotted", fontsize="medium")
-    return fig, ax
-
-
-def plot_level_density(levels, level: int = 0, *, ax=None):
-    """|psi|^2 of one closed-system level on its sites (colour), with its energy in the title."""
-    fig, ax = _axes(ax)
-    density = levels.density(level)
-    points = ax.scatter(levels.positions_nm[:, 0], levels.positions_nm[:, 1], c=density, s=8, marker="s",
-                        cmap="magma", lw=0)
-    fig.colorbar(points, ax=ax, label="probability density |ψ|² per site", shrink=0.85)
-    ax.set_aspect("equal")
-    ax.set_xlabel("x position (nm)")
-    ax.set_ylabel("y position (nm)")
-    ax.set_title(f"closed level {level} at {levels.energies_meV[level]:.4g} meV", fontsize="medium")
-    return fig, ax

@@ -16,7 +16,21 @@ A target that is exactly an eigenvalue makes the shifted matrix singular; the
 shift is then moved by :data:`SHIFT_NUDGE` of the matrix scale (far below any
 tolerance of the callers) and the solve repeated.  An ARPACK run that does not
 converge becomes one line, :class:`rgftrans.errors.EigenSolveFailed`, with
-advice.
+advice: move the target off a cluster of (nearly) degenerate levels, ask for
+fewer or more eigenvalues (the Krylov space grows with ``count``), or decompose
+densely (``dense=True``; a full decomposition cannot fail to converge and costs
+O(n^3), seconds for a few thousand rows).  ``maxiter`` caps ARPACK's restarts
+(scipy's default, 10 n, when None).
+
+Shift-invert Lanczos (ARPACK) resolves an exactly degenerate cluster only
+through round-off: it may return fewer copies than exist, and the copies it
+returns need not be orthogonal (two unit eigenvectors of a doubly degenerate
+level of a square box came back with overlap 0.96).  On the Hermitian route
+every cluster of eigenvalues equal to :data:`CLUSTER_TOL` of the matrix scale
+is therefore orthonormalised and re-diagonalised inside its span
+(Rayleigh-Ritz, common practice, no source); a cluster whose vectors span fewer
+directions than its size (a copy returned twice) is an
+:class:`~rgftrans.errors.EigenSolveFailed` advising ``dense=True``.
 """
 
 from __future__ import annotations
@@ -35,9 +49,16 @@ __all__ = ["DENSE_BELOW", "eigenvalues_near"]
 DENSE_BELOW = 300
 #: A target exactly on an eigenvalue (singular shifted matrix) is moved by this fraction of the matrix scale.
 SHIFT_NUDGE = 1e-9
+#: Hermitian shift-invert eigenvalues closer than this fraction of the matrix scale form one (degenerate)
+#: cluster, re-orthonormalised together: far above the 1e-14 round-off of the solve, far below any level spacing
+#: the callers resolve.
+CLUSTER_TOL = 1e-9
+#: Inside a cluster, directions whose singular value (of unit columns) falls below this are copies of others.
+_COPY_TOL = 1e-6
 
 
-def eigenvalues_near(matrix, target, count: int, *, hermitian: bool = False, vectors: bool = True):
+def eigenvalues_near(matrix, target, count: int, *, hermitian: bool = False, vectors: bool = True,
+                     dense: bool | None = None, maxiter: int | None = None):
     """The ``count`` eigenvalues of ``matrix`` nearest ``target``, nearest first, with their eigenvectors.
 
     Parameters
@@ -52,6 +73,11 @@ def eigenvalues_near(matrix, target, count: int, *, hermitian: bool = False, vec
         Use the Hermitian solvers (real eigenvalues, orthonormal eigenvectors).
     vectors : bool
         Compute the eigenvectors too.
+    dense : bool or None
+        Force the full LAPACK decomposition (True) or shift-invert ARPACK (False); None chooses by size
+        (dense below :data:`DENSE_BELOW` rows).
+    maxiter : int or None
+        Cap on ARPACK's restarts (shift-invert route only); None is scipy's default, 10 n.
 
     Returns
     -------
@@ -79,42 +105,78 @@ def eigenvalues_near(matrix, target, count: int, *, hermitian: bool = False, vec
         raise RgftransError(f"count of eigenvalues must be at least 1, got {count}")
     if not np.isfinite(target):
         raise RgftransError(f"target of the eigenvalue search must be a finite number, got {target}")
+    if maxiter is not None and (isinstance(maxiter, bool) or not isinstance(maxiter, (int, np.integer))
+                                or maxiter < 1):
+        raise RgftransError(f"maxiter of the eigenvalue search must be a positive integer, got {maxiter!r}")
     target = float(np.real(target)) if hermitian else complex(target)
-    if n < DENSE_BELOW:
-        dense = matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
+    use_dense = n < DENSE_BELOW if dense is None else bool(dense)
+    if use_dense:
+        full = matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
         if hermitian:
-            w, v = sla.eigh(dense, eigvals_only=False) if vectors else (sla.eigvalsh(dense), None)
+            w, v = sla.eigh(full, eigvals_only=False) if vectors else (sla.eigvalsh(full), None)
         else:
-            w, v = sla.eig(dense) if vectors else (sla.eigvals(dense), None)
+            w, v = sla.eig(full) if vectors else (sla.eigvals(full), None)
     else:
-        w, v = _shift_invert(sp.csc_matrix(matrix), target, min(count, n - 2), hermitian, vectors)
+        w, v = _shift_invert(sp.csc_matrix(matrix), target, min(count, n - 2), hermitian, vectors, maxiter)
     order = np.argsort(np.abs(w - target), kind="stable")[:count]
     return w[order], (None if v is None else v[:, order])
 
 
-def _shift_invert(matrix: sp.csc_matrix, target, k: int, hermitian: bool, vectors: bool):
+def _shift_invert(matrix: sp.csc_matrix, target, k: int, hermitian: bool, vectors: bool, maxiter: int | None):
     """ARPACK in shift-invert mode, the shift nudged once if it sits exactly on an eigenvalue."""
     solve = spla.eigsh if hermitian else spla.eigs
     scale = max(abs(target), float(abs(matrix).max()) if matrix.nnz else 0.0, 1e-300)
     n = matrix.shape[0]
     try:
         try:
-            out = solve(matrix, k=k, sigma=target, which="LM", return_eigenvectors=vectors)
+            out = solve(matrix, k=k, sigma=target, which="LM", return_eigenvectors=vectors, maxiter=maxiter)
         except RuntimeError as err:  # an exactly singular factor of matrix - target (ArpackError is not one)
             if isinstance(err, spla.ArpackError):
                 raise
-            out = solve(matrix, k=k, sigma=target + SHIFT_NUDGE * scale, which="LM", return_eigenvectors=vectors)
+            out = solve(matrix, k=k, sigma=target + SHIFT_NUDGE * scale, which="LM", return_eigenvectors=vectors,
+                        maxiter=maxiter)
     except spla.ArpackNoConvergence as err:
         raise EigenSolveFailed(
             f"the shift-invert eigenvalue solve near {target:.6g} did not converge for the {n} x {n} matrix "
-            f"({len(err.eigenvalues)} of {k} eigenvalues found); ask for fewer eigenvalues or move the target "
-            "off a dense cluster of levels") from None
+            f"({len(err.eigenvalues)} of {k} eigenvalues found{'' if maxiter is None else f' in {maxiter} restarts'}); "
+            "move the target off a cluster of (nearly) degenerate levels, ask for fewer or more eigenvalues, "
+            f"{'raise maxiter, ' if maxiter is not None else ''}or pass dense=True (a full decomposition, "
+            "seconds up to a few thousand rows)") from None
     except (spla.ArpackError, RuntimeError) as err:
         reason = str(err).splitlines()[0] if str(err) else type(err).__name__
         raise EigenSolveFailed(
             f"the shift-invert eigenvalue solve near {target:.6g} broke down for the {n} x {n} matrix ({reason}); "
-            "move the target slightly or ask for fewer eigenvalues") from None
+            "move the target slightly, ask for fewer eigenvalues or pass dense=True") from None
     w, v = out if vectors else (out, None)
     if hermitian:
         w = np.real(w)
+        if vectors:
+            w, v = _orthonormal_clusters(matrix, w, v, scale, target)
+    return w, v
+
+
+def _orthonormal_clusters(matrix, w: np.ndarray, v: np.ndarray, scale: float, target):
+    """Rayleigh-Ritz inside every cluster of (nearly) equal eigenvalues of a Hermitian ``matrix``.
+
+    ARPACK's copies of a degenerate level are eigenvectors but not necessarily orthogonal; an orthonormal basis
+    of their span, with ``matrix`` diagonalised in it, gives orthonormal eigenvectors of the same accuracy.
+    """
+    order = np.argsort(w, kind="stable")
+    w, v = w[order], v[:, order]
+    start = 0
+    while start < len(w):
+        stop = start + 1
+        while stop < len(w) and w[stop] - w[stop - 1] <= CLUSTER_TOL * scale:
+            stop += 1
+        if stop - start > 1:
+            u, sv, _ = np.linalg.svd(v[:, start:stop], full_matrices=False)
+            if sv[-1] < _COPY_TOL * sv[0]:
+                raise EigenSolveFailed(
+                    f"the shift-invert eigenvalue solve near {target:.6g} returned {stop - start} vectors for the "
+                    f"degenerate level at {w[start]:.10g} that span only {int(np.sum(sv >= _COPY_TOL * sv[0]))} "
+                    "directions; pass dense=True (a full decomposition) for this degenerate spectrum") from None
+            h_small = u.conj().T @ (matrix @ u)
+            w_c, y = np.linalg.eigh(0.5 * (h_small + h_small.conj().T))
+            w[start:stop], v[:, start:stop] = w_c, u @ y
+        start = stop
     return w, v

@@ -32,8 +32,7 @@ from rgftrans.leads.embedding import embedded_self_energy, lead_self_energies
 from rgftrans.spectra.eigen import eigenvalues_near
 from rgftrans.system.device import TightBindingModel
 
-__all__ = ["Resonance", "effective_hamiltonian", "resonances", "follow_pole", "window_poles", "POLE_TOL",
-           "partial_widths", "tunnel_rates_per_s"]
+__all__ = ["Resonance", "effective_hamiltonian", "resonances", "follow_pole", "window_poles", "POLE_TOL"]
 
 #: Self-consistency: stop when the pole moves less than this fraction of the energy scale.
 POLE_TOL = 1e-12
@@ -219,34 +218,3 @@ def window_poles(model: TightBindingModel, window, *, targets: int = POLE_TARGET
         poles.append((e, w, k))
     return np.array([(e, w) for e, w, _ in poles], dtype=float).reshape(-1, 2)
 
-
-def partial_widths(model: TightBindingModel, resonance: Resonance) -> dict[str, float]:
-    """The width of a pole split by lead: Gamma_p = <psi| Gamma_p(E) |psi> (meV), psi normalised, E = Re z.
-
-    ``Gamma_p = i (Sigma_p - Sigma_p^dag)`` is lead p's broadening (Fermi's golden rule for a narrow level).
-    The partial widths add up to the pole width exactly: psi is a normalised right eigenvector of
-    ``H_eff = H + sum_p Sigma_p(Re z)`` with eigenvalue z, so ``Im z = psi^dag (H_eff - H_eff^dag) psi / 2i =
-    -1/2 sum_p psi^dag Gamma_p psi`` (H Hermitian).
-
-    Returns
-    -------
-    dict of lead name to width (meV)
-    """
-    if not model.leads:
-        return {}
-    sigmas, _ = lead_self_energies(model, resonance.energy_meV, warn=False)
-    psi = resonance.state / np.linalg.norm(resonance.state)
-    out = {}
-    for lead, sigma in zip(model.leads, sigmas):
-        part = psi[lead.interface]
-        gamma = 1j * (sigma - sigma.conj().T)
-        out[lead.name] = float(np.real(part.conj() @ gamma @ part))
-    return out
-
-
-def tunnel_rates_per_s(model: TightBindingModel, resonance: Resonance) -> dict[str, float]:
-    """Tunnel rates Gamma_p / hbar (s^-1) of a quasi-bound level into each lead (see :func:`partial_widths`)."""
-    from scipy import constants
-
-    hbar_mev_s = constants.hbar / constants.e * 1e3
-    return {name: width / hbar_mev_s for name, width in partial_widths(model, resonance).items()}
