@@ -536,7 +536,66 @@ def _column(text):
     return int(text) if text is not None and text.isdigit() else text
 
 
+def _compare_peaks(args) -> int:
+    """compare --coulomb-peaks: fit the trace with sequential-tunnelling peaks, starting from the layout's lever arm."""
+    import h5py
+    import matplotlib.pyplot as plt
+    import numpy as np
+
+    from rgftrans.analysis.peakfit import fit_coulomb_peaks
+    from rgftrans.io.compare import read_trace
+    from rgftrans.io.store import StoredArray, check_group_writable, write_group
+
+    check_group_writable(args.save or args.result, args.group, overwrite=args.overwrite)
+    predicted = None
+    with h5py.File(args.result, "r") as f:
+        if "blockade" in f and "lever_arm" in f["blockade"].attrs:
+            predicted = float(f["blockade"].attrs["lever_arm"])
+    trace = read_trace(args.trace, gate_column=_column(args.gate_column), value_column=_column(args.value_column),
+                       kind=args.kind, units=args.units, bias_V=args.bias, description=args.description)
+    alpha = None if args.lever_arm is None else args.lever_arm / 1000.0  # --lever-arm is in meV/V, as elsewhere
+    fit = fit_coulomb_peaks(trace.gate_V, trace.conductance_S, temperature_K=args.temperature,
+                            lever_arm=alpha, fit_temperature=args.fit_temperature, spin=args.spin,
+                            count=args.peaks, noise_S=args.noise, predicted_lever_arm=predicted)
+    text = f"trace {args.trace} ({trace.description}) against {args.result}\n" + fit.summary()
+    print(text)
+    base = Path(args.out_prefix or Path(args.result).with_suffix(""))
+    prefix = base.with_name(f"{base.name}_{args.group}")
+    target = args.save or args.result
+    items = {
+        "gate_voltage": StoredArray(fit.gate_V, "V", "measured gate voltage", scale=True),
+        "measured_conductance": StoredArray(fit.measured_S, "S", "measured conductance", dims=("gate_voltage",)),
+        "model_conductance": StoredArray(fit.model_S, "S", "fitted sequential-tunnelling peaks",
+                                         dims=("gate_voltage",)),
+        "peak_position": StoredArray(fit.positions_V, "V", "fitted peak positions",
+                                     attrs={"stderr": fit.positions_err_V}),
+        "tunnel_rate": StoredArray(fit.rates_per_s, "s^-1", "series tunnel rate of each peak",
+                                   attrs={"stderr": fit.rates_err_per_s}),
+    }
+    attrs = {"lever_arm": fit.lever_arm, "lever_arm_stderr": fit.lever_arm_err, "temperature_K": fit.temperature_K,
+             "temperature_stderr_K": fit.temperature_err_K, "spin": fit.spin,
+             "reduced_chi_square": fit.reduced_chi_square, "noise_S": fit.noise_S,
+             "predicted_lever_arm": fit.predicted_lever_arm, "source": str(args.trace)}
+    write_group(target, args.group, items, attrs=attrs, overwrite=args.overwrite)
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    Path(f"{prefix}.txt").write_text(text + "\n", encoding="utf-8")
+    fig, (ax, res) = plt.subplots(2, 1, figsize=(6.5, 5), sharex=True, height_ratios=(3, 1), layout="constrained")
+    ax.plot(fit.gate_V * 1e3, fit.measured_S * 1e9, ".", ms=2, color="0.4", label=trace.description or "measured")
+    ax.plot(fit.gate_V * 1e3, fit.model_S * 1e9, lw=1.2, color="tab:red", label="sequential-tunnelling fit")
+    ax.set_ylabel("conductance G (nS)")
+    ax.legend(frameon=False, fontsize="small")
+    ax.set_title(f"Coulomb peaks: lever arm {fit.lever_arm:.4g}, T = {fit.temperature_K:.3g} K", fontsize="medium")
+    res.plot(fit.gate_V * 1e3, (fit.measured_S - fit.model_S) * 1e9, lw=0.8, color="0.3")
+    res.set_xlabel("gate voltage (mV)")
+    res.set_ylabel("residual (nS)")
+    fig.savefig(f"{prefix}.png", dpi=150)
+    print(f"  written: group '{args.group}' in {target}; {prefix}.txt; {prefix}.png")
+    return EXIT_OK
+
+
 def _cmd_compare(args) -> int:
+    if args.coulomb_peaks:
+        return _compare_peaks(args)
     import matplotlib
 
     matplotlib.use("Agg")
@@ -844,6 +903,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--select", action="append", metavar="NAME=VALUE",
                    help="value of another sweep axis (repeat for each)")
     p.add_argument("--lever-arm", type=float, metavar="MEV_PER_V", help="lever arm (start value, or fixed)")
+    p.add_argument("--coulomb-peaks", action="store_true",
+                   help="fit the trace with sequential-tunnelling Coulomb peaks (closed dots), starting from the "
+                        "lever arm stored by `rgftrans blockade` in RESULT; --lever-arm, --fit-temperature, --noise "
+                        "apply; the fitted peaks, rates and lever arm go to the group")
+    p.add_argument("--spin", action="store_true", help="with --coulomb-peaks: spin-degenerate levels")
+    p.add_argument("--peaks", type=int, metavar="N", help="with --coulomb-peaks: fit the N highest peaks")
     p.add_argument("--lever-arm-from", metavar="REGION:GATE", help="start from the lever arm of GATE on dot "
                                                                     "REGION that the run predicted from the layout "
                                                                     "([[gates.region]]), and report the distance")

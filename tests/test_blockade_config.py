@@ -34,7 +34,7 @@ def _fast(name, tmp_path, **changes):
 @pytest.fixture(scope="module")
 def single(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("blockade")
-    path = _fast("closed_dot.toml", tmp, **{"levels = 3": "levels = 2", "plunger_points = 301": "plunger_points = 241",
+    path = _fast("closed_dot.toml", tmp, **{"levels = 3": "levels = 2", "plunger_points = 1201": "plunger_points = 601",
                                             "bias_points = 121": "bias_points = 31"})
     return path, parse_config(path.read_text(), source=str(path))
 
@@ -55,12 +55,16 @@ def test_single_dot_from_the_layout(single, capsys):
         volts, g_cold = g["plunger_voltage"][()], g["conductance"][0]
     assert Path(f"{path.with_suffix('')}_peaks.png").stat().st_size > 0
     assert Path(f"{path.with_suffix('')}_diamonds.png").stat().st_size > 0
-    # Peaks of one spin-degenerate orbital (the first two) sit E_C / (e alpha) apart (to one voltage step).
+    # Peaks of one spin-degenerate orbital (the first two): their addition energies differ by E_C, and each
+    # maximum sits (kT/2) ln 2 from its crossing, outward (test_charging.py): apart by (E_C + kT ln 2) / (e alpha).
+    # Tolerance: two voltage steps plus the pull of the thermally excited next orbital (about 1.5 % here).
     inner = (g_cold[1:-1] > g_cold[:-2]) & (g_cold[1:-1] >= g_cold[2:]) & (g_cold[1:-1] > 0.05 * g_cold.max())
     peaks = volts[1:-1][inner]
     assert peaks.size == 4  # two orbitals, two spins each
     step = volts[1] - volts[0]
-    assert peaks[1] - peaks[0] == pytest.approx(e_c / (1000 * alpha), abs=1.5 * step)
+    kt = constants.k * 0.1 / constants.e * 1e3  # meV
+    expected = (e_c + kt * np.log(2)) / (1000 * alpha)
+    assert peaks[1] - peaks[0] == pytest.approx(expected, abs=2 * step + 0.015 * expected)
 
 
 def test_double_dot_from_the_layout(tmp_path, capsys):
@@ -90,3 +94,33 @@ def test_bad_blockade_tables_are_one_line(tmp_path, capsys, change, fragment):
     assert main(["blockade", str(path)]) == EXIT_BAD_INPUT
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and fragment in err[0], err
+
+
+def test_compare_fits_coulomb_peaks_from_the_stored_lever_arm(single, tmp_path, capsys):
+    """A synthetic trace (the stored model's own peaks, invented noise) fitted back: the lever arm within a few
+    per cent of the layout's (the single-level line shape ignores thermally excited orbitals), exit 0; a flat
+    trace fails loudly with exit 1."""
+    path, cfg = single
+    if not Path(cfg.output.path).exists():
+        assert main(["blockade", str(path), "--out-prefix", str(path.with_suffix(""))]) == EXIT_OK
+    with h5py.File(cfg.output.path, "r") as f:
+        volts, g = f["blockade/plunger_voltage"][()], f["blockade/conductance"][0]
+        alpha = f["blockade"].attrs["lever_arm"]
+    noise = 0.01 * g.max()
+    csv = tmp_path / "peaks.csv"
+    measured = g + np.random.default_rng(5).normal(0.0, noise, g.size)
+    np.savetxt(csv, np.column_stack([volts, measured * 1e9]), delimiter=",", header="Vg [V],G [nS]", comments="")
+    args = ["compare", str(cfg.output.path), str(csv), "--coulomb-peaks", "--spin", "--temperature", "0.1",
+            "--noise", f"{noise:.6g}", "--group", "peaks", "--out-prefix", str(tmp_path / "fit")]
+    assert main(args) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "fitted / predicted" in out
+    with h5py.File(cfg.output.path, "r") as f:
+        fitted = f["peaks"].attrs["lever_arm"]
+        assert f["peaks/tunnel_rate"].attrs["units"] == "s^-1"
+    assert fitted == pytest.approx(alpha, rel=0.05)
+    flat = tmp_path / "flat.csv"
+    np.savetxt(flat, np.column_stack([volts, np.full(volts.size, 1.0)]), delimiter=",", header="Vg [V],G [nS]",
+               comments="")
+    assert main(["compare", str(cfg.output.path), str(flat), "--coulomb-peaks", "--temperature", "0.1",
+                 "--group", "flat", "--out-prefix", str(tmp_path / "flat")]) == 1

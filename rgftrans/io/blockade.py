@@ -43,10 +43,12 @@ class SingleDotBlockade:
     dot, plunger : str
     model : ChargingDot
     plunger_V : (n,) float ndarray, V
+    diamond_plunger_V : (n_d,) float ndarray, V
+        The plunger values of the diamond map (at most DIAMOND_GATE_POINTS of the same span).
     temperatures_K : (n_T,) float ndarray, K
     conductance_S : (n_T, n) float ndarray, S
     bias_V : (m,) float ndarray, V
-    current_A, differential_S : (m, n) float ndarray
+    current_A, differential_S : (m, n_d) float ndarray
         Current and dI/dV at the lowest temperature (the diamond map).
     levels_meV : (M,) float ndarray
         The closed levels used, relative to E_F.
@@ -63,6 +65,7 @@ class SingleDotBlockade:
     plunger: str
     model: ChargingDot
     plunger_V: np.ndarray
+    diamond_plunger_V: np.ndarray
     temperatures_K: np.ndarray
     conductance_S: np.ndarray
     bias_V: np.ndarray
@@ -163,6 +166,8 @@ def _level_rates(model, levels):
     return rates
 
 
+#: Most plunger values of a diamond map.
+DIAMOND_GATE_POINTS = 301
 #: Poles of the open device examined per closed level, and the share of a pole's weight that must lie on the
 #: dot's sites for it to be the dot's level (the others live in the reservoirs between the leads and barriers).
 CANDIDATE_POLES = 8
@@ -231,11 +236,14 @@ def _single(cfg) -> SingleDotBlockade:
     temps = cfg.temperatures()
     g = np.array([sequential_conductance(charging, offsets, t)[0] for t in temps])
     bias = np.linspace(-0.5, 0.5, spec.bias_points) * spec.bias_span_mV * 1e-3
-    didv, result = stability_map(charging, offsets, bias, float(temps.min()))
+    # The diamond map on at most DIAMOND_GATE_POINTS plunger values (its cost is gate x bias master equations).
+    diamond = np.linspace(-0.5, 0.5, min(spec.plunger_points, DIAMOND_GATE_POINTS)) * spec.plunger_span_V
+    didv, result = stability_map(charging, diamond, bias, float(temps.min()))
     width = HBAR_MEV_S * float(np.max(rates.sum(axis=1))) if rates.size else 0.0
     regime = blockade_regime(charging_energy_meV=e_c, level_spacing_meV=spacing, width_meV=width,
                              temperature_K=float(temps.min()))
     return SingleDotBlockade(dot=dot, plunger=plunger, model=charging, plunger_V=base + offsets,
+                             diamond_plunger_V=base + diamond,
                              temperatures_K=temps, conductance_S=g, bias_V=bias, current_A=result.current_A,
                              differential_S=didv, levels_meV=levels.energies_meV - e_f, rates_per_s=rates,
                              charging_energy_meV=e_c, lever_arm=alpha, total_capacitance_aF=float(caps.total_aF[i]),
@@ -299,15 +307,17 @@ def write_blockade(result, path, *, overwrite: bool = False) -> None:
             "plunger_voltage": StoredArray(result.plunger_V, "V", f"voltage on gate '{result.plunger}'", scale=True),
             "temperature": StoredArray(result.temperatures_K, "K", "electron temperature", scale=True),
             "bias": StoredArray(result.bias_V, "V", "source-drain bias (split symmetrically)", scale=True),
+            "diamond_plunger_voltage": StoredArray(result.diamond_plunger_V, "V", "plunger voltage of the diamond map",
+                                                   scale=True),
             "conductance": StoredArray(result.conductance_S, "S", "linear conductance, sequential tunnelling",
                                        dims=("temperature", "plunger_voltage")),
             "conductance_2e2h": StoredArray(result.conductance_S / CONDUCTANCE_QUANTUM_S, "2e^2/h",
                                             "linear conductance in units of 2e^2/h",
                                             dims=("temperature", "plunger_voltage")),
             "current": StoredArray(result.current_A, "A", "current at the lowest temperature",
-                                   dims=("bias", "plunger_voltage")),
+                                   dims=("bias", "diamond_plunger_voltage")),
             "differential_conductance": StoredArray(result.differential_S, "S", "dI/dV at the lowest temperature",
-                                                    dims=("bias", "plunger_voltage")),
+                                                    dims=("bias", "diamond_plunger_voltage")),
             "levels": StoredArray(result.levels_meV, "meV", "closed levels relative to E_F"),
             "tunnel_rates": StoredArray(result.rates_per_s, "s^-1", "tunnel rates of each level to source, drain"),
         }

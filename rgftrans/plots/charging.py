@@ -46,7 +46,7 @@ def plot_diamonds(result, *, ax=None):
     fig, ax = _axes(ax)
     didv = result.differential_S
     scale = float(np.abs(didv).max()) or 1.0
-    mesh = ax.pcolormesh(result.plunger_V * 1e3, result.bias_V * 1e3, didv, shading="auto", cmap="RdBu_r",
+    mesh = ax.pcolormesh(result.diamond_plunger_V * 1e3, result.bias_V * 1e3, didv, shading="auto", cmap="RdBu_r",
                          norm=SymLogNorm(linthresh=1e-3 * scale, vmin=-scale, vmax=scale), rasterized=True)
     fig.colorbar(mesh, ax=ax, label="differential conductance dI/dV (S)", shrink=0.85)
     ax.set_xlabel(f"plunger gate voltage, '{result.plunger}' (mV)")
