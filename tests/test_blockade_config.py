@@ -124,3 +124,30 @@ def test_compare_fits_coulomb_peaks_from_the_stored_lever_arm(single, tmp_path, 
                comments="")
     assert main(["compare", str(cfg.output.path), str(flat), "--coulomb-peaks", "--temperature", "0.1",
                  "--group", "flat", "--out-prefix", str(tmp_path / "flat")]) == 1
+
+
+def test_interdot_coupling_is_half_the_bonding_antibonding_splitting():
+    """Two 3 x 3 boxes (t = 1) joined corner to corner by one bond tau: degenerate perturbation theory splits
+    their ground states by 2 tau psi(corner)^2, psi(corner) = (2/4) sin(pi/4)^2 = 1/4 (common practice), so
+    t_c = tau / 16 to first order in tau."""
+    import scipy.sparse as sp
+
+    from rgftrans.io.blockade import interdot_coupling
+    from rgftrans.system.device import TightBindingModel
+
+    tau = 1e-3
+    box = sp.diags([-np.ones(8), -np.ones(8), -np.ones(6), -np.ones(6)], [1, -1, 3, -3]).tolil()
+    for i in (2, 5):  # no bonds across rows
+        box[i, i + 1] = box[i + 1, i] = 0.0
+    ham = sp.block_diag([box, box]).tolil()
+    ham[8, 9] = ham[9, 8] = -tau  # corner (2, 2) of the first box to corner (0, 0) of the second
+    xy = np.array([[i % 3, i // 3] for i in range(9)] + [[3 + i % 3, 3 + i // 3] for i in range(9)], float)
+    model = TightBindingModel(sp.csr_matrix(ham, dtype=complex), xy, ())
+    first = np.arange(18) < 9
+    t_c = interdot_coupling(model, first, ~first, target=-2 * np.sqrt(2), count=2)
+    assert t_c == pytest.approx(tau / 16, rel=1e-2)
+    # Uncoupled boxes: no shared pair (each degenerate level is resolved on one box or mixed arbitrarily; either
+    # way the splitting is zero to round-off).
+    apart = interdot_coupling(TightBindingModel(sp.csr_matrix(sp.block_diag([box, box]), dtype=complex), xy, ()),
+                              first, ~first, target=-2 * np.sqrt(2), count=2)
+    assert apart is None or apart < 1e-12

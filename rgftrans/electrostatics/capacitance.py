@@ -284,6 +284,10 @@ def gate_capacitances(layout, structure: Heterostructure, regions: Mapping[str, 
                           "so its charge is not quantised and a charging energy describes it only roughly; close "
                           "its barriers (more negative voltages) for the numbers of a Coulomb-blockaded dot",
                           stacklevel=2)
+        for other, w_other in zip(names, weights):
+            if island is not None and np.array_equal(island, w_other):
+                raise RgftransError(f"regions {other!r} and {name!r} lie on one island of 2DEG; draw one region "
+                                    "there, or close the barrier between them (more negative gates)")
         weights.append(drawn[len(weights)] if island is None else island)
     area = float(base.x_nm[1] - base.x_nm[0]) ** 2
 

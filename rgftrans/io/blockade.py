@@ -15,7 +15,8 @@ triple-point current (two dots in series).  Conventions (stated in the result): 
 voltages centred on the configured ones; a single dot's electrons are counted in the window of levels nearest
 E_F, half of which are filled at the configured plunger voltage (the Thomas-Fermi electron number fixes the
 peak series only to within a charging energy); a double dot's charges count from the whole electrons the
-electrostatics puts on each dot.  The interdot tunnel coupling is the config's ``tunnel_coupling_meV``.
+electrostatics puts on each dot.  The interdot tunnel coupling is half the bonding-antibonding splitting of
+the closed double dot's levels near E_F (or the config's ``tunnel_coupling_meV``).
 """
 
 from __future__ import annotations
@@ -31,7 +32,7 @@ from rgftrans.constants import CONDUCTANCE_QUANTUM_S
 from rgftrans.electrostatics.capacitance import E2_OVER_AF_MEV
 from rgftrans.errors import RgftransError
 
-__all__ = ["SingleDotBlockade", "DoubleDotBlockade", "blockade_from_config", "write_blockade"]
+__all__ = ["SingleDotBlockade", "DoubleDotBlockade", "blockade_from_config", "write_blockade", "interdot_coupling"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -124,6 +125,7 @@ class DoubleDotBlockade:
     gate_capacitance_aF: np.ndarray
     charging_energy_meV: np.ndarray
     mutual_energy_meV: float
+    coupling_source: str = ""
 
     def summary(self) -> str:
         c = self.capacitance_aF
@@ -133,8 +135,8 @@ class DoubleDotBlockade:
                 f"{g[0, 0]:.3g} / {g[1, 1]:.3g} aF (cross {g[0, 1]:.3g} / {g[1, 0]:.3g} aF); E_C = "
                 f"{self.charging_energy_meV[0]:.3g} / {self.charging_energy_meV[1]:.3g} meV, mutual "
                 f"{self.mutual_energy_meV:.3g} meV; tunnel rates source {self.model.source_rate_per_s:.3g}, drain "
-                f"{self.model.drain_rate_per_s:.3g} s^-1, interdot coupling {self.model.tunnel_coupling_meV:g} meV "
-                "(given)")
+                f"{self.model.drain_rate_per_s:.3g} s^-1, interdot coupling t_c = {self.model.tunnel_coupling_meV:.3g} meV "
+                f"({self.coupling_source})")
 
 
 def _level_rates(model, levels):
@@ -166,6 +168,8 @@ def _level_rates(model, levels):
     return rates
 
 
+#: Levels of the closed double dot examined for the bonding-antibonding pair.
+COUPLING_LEVELS = 6
 #: Most plunger values of a diamond map.
 DIAMOND_GATE_POINTS = 301
 #: Poles of the open device examined per closed level, and the share of a pole's weight that must lie on the
@@ -250,6 +254,43 @@ def _single(cfg) -> SingleDotBlockade:
                              closed=bool(caps.closed[i]), regime=regime)
 
 
+def interdot_coupling(model, first, second, *, target: float, count: int = 6) -> float | None:
+    """t_c of two dots (boolean site masks ``first`` and ``second`` of ``model``): half the bonding-antibonding
+    splitting of the closed double dot's levels nearest ``target`` (meV).
+
+    The closed system of both dots' sites; a level shared about equally by the two (a quarter to three
+    quarters of its weight on the first) belongs to a bonding-antibonding pair, split by 2 t_c for aligned dots
+    (degenerate perturbation theory; common practice).  Of the adjacent shared pairs, the one whose mean lies
+    nearest ``target``.  None when every level sits on one dot (coupling below resolution, or dots detuned).
+    """
+    from rgftrans.spectra.closed import closed_levels
+
+    levels = closed_levels(model, count=count, target=target, sites=np.asarray(first) | np.asarray(second))
+    on_first = np.isin(levels.site_indices, np.flatnonzero(first))
+    weight = np.sum(np.abs(levels.states.reshape(levels.site_indices.size, levels.norbs, -1)[on_first]) ** 2,
+                    axis=(0, 1))
+    shared = (weight > 0.25) & (weight < 0.75)
+    e = levels.energies_meV
+    pairs = [k for k in range(e.size - 1) if shared[k] and shared[k + 1]]
+    if not pairs:
+        return None
+    k = min(pairs, key=lambda j: abs(0.5 * (e[j] + e[j + 1]) - target))
+    return 0.5 * float(e[k + 1] - e[k])
+
+
+def _tunnel_coupling(cfg, model, masks, e_f) -> tuple[float, str]:
+    """The interdot coupling: the config's value if it gives one, else :func:`interdot_coupling`."""
+    if cfg.blockade.tunnel_coupling_meV is not None:
+        return float(cfg.blockade.tunnel_coupling_meV), "given"
+    t_c = interdot_coupling(model, masks[0], masks[1], target=e_f, count=COUPLING_LEVELS)
+    if t_c is None:
+        warnings.warn("the closed double dot's levels near E_F are each on one dot (the interdot barrier is too "
+                      "opaque to split them measurably); the interdot coupling is taken as 0 -- give "
+                      "tunnel_coupling_meV in [blockade] to override", stacklevel=3)
+        return 0.0, "below resolution"
+    return t_c, "half the bonding-antibonding splitting"
+
+
 def _double(cfg) -> DoubleDotBlockade:
     from rgftrans.spectra.closed import closed_levels
 
@@ -267,10 +308,11 @@ def _double(cfg) -> DoubleDotBlockade:
         alone = _without(model, masks[1 - k])  # the other dot walled off: no degenerate partner
         lv = closed_levels(alone, count=1, target=e_f, sites=masks[k][~masks[1 - k]])
         lead_rates.append(_level_rates(alone, lv)[0, k])  # dot 1 to the source, dot 2 to the drain
+    t_c, t_c_source = _tunnel_coupling(cfg, model, masks, e_f)
     n_tf = caps.electron_number[rows]
     background = tuple(float(np.floor(n) - n) for n in n_tf)  # the configured point sits at N_TF on each dot
     dd = DoubleDot(capacitance_aF=c, gate_capacitance_aF=c_g, source_rate_per_s=max(lead_rates[0], 1.0),
-                   drain_rate_per_s=max(lead_rates[1], 1.0), tunnel_coupling_meV=spec.tunnel_coupling_meV,
+                   drain_rate_per_s=max(lead_rates[1], 1.0), tunnel_coupling_meV=t_c,
                    background_charge=background)
     volts = cfg.gates.voltages()
     base = np.array([volts[p] for p in spec.plungers])
@@ -285,7 +327,8 @@ def _double(cfg) -> DoubleDotBlockade:
                              plunger1_V=base[0] + offsets, plunger2_V=base[1] + offsets, charge1=n1, charge2=n2,
                              sensor_meV=sensor, current_A=current, bias_V=spec.stability_bias_mV * 1e-3,
                              temperature_K=temperature, capacitance_aF=c, gate_capacitance_aF=c_g,
-                             charging_energy_meV=np.diag(inv).copy(), mutual_energy_meV=float(inv[0, 1]))
+                             charging_energy_meV=np.diag(inv).copy(), mutual_energy_meV=float(inv[0, 1]),
+                             coupling_source=t_c_source)
 
 
 def blockade_from_config(cfg):
@@ -341,7 +384,7 @@ def write_blockade(result, path, *, overwrite: bool = False) -> None:
         }
         attrs = {"kind": "double dot", "dots": " ".join(result.dots), "plungers": " ".join(result.plungers),
                  "bias_V": result.bias_V, "temperature_K": result.temperature_K,
-                 "tunnel_coupling_meV": result.model.tunnel_coupling_meV,
+                 "tunnel_coupling_meV": result.model.tunnel_coupling_meV, "coupling_source": result.coupling_source,
                  "source_rate_per_s": result.model.source_rate_per_s,
                  "drain_rate_per_s": result.model.drain_rate_per_s}
     write_group(path, "blockade", items, attrs=attrs, overwrite=overwrite)

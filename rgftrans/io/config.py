@@ -510,9 +510,9 @@ class BlockadeSpec(_Table):
     #: Diamond map: source-drain bias from -bias_span_mV/2 to +bias_span_mV/2.
     bias_span_mV: PositiveFloat = 3.0
     bias_points: Annotated[int, Field(ge=3, le=1001)] = 81
-    #: Double dot: interdot tunnel coupling (meV), the bias of the current map (mV) and the sensor's coupling to
-    #: each dot (meV of sensor potential per electron).
-    tunnel_coupling_meV: PositiveFloat = 0.01
+    #: Double dot: interdot tunnel coupling (meV; default: half the closed double dot's bonding-antibonding
+    #: splitting), the bias of the current map (mV) and the sensor's coupling to each dot (meV per electron).
+    tunnel_coupling_meV: PositiveFloat | None = None
     stability_bias_mV: float = 0.02
     sensor_coupling_meV: Annotated[list[float], Field(min_length=2, max_length=2)] = [1.0, 0.5]
 

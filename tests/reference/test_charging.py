@@ -216,3 +216,18 @@ def test_double_dot_current_flows_at_the_triple_points_only():
     # (e V_sd / (e alpha) ~ 0.2 mV here) plus kT: far inside a tenth of the cell (e / C_g1 = 8 mV).
     near = np.min([np.hypot(g1 - p[0], g2 - p[1]) for p in points], axis=0)
     assert strong.sum() > 2 and near[strong].max() < 0.1 * e_af / 20.0
+
+
+def test_diamond_edges_have_slopes_two_alpha():
+    """Constant-interaction model with the bias split symmetrically and no capacitance to the leads: current
+    starts where a lead's chemical potential reaches the nearer addition energy, |e V_sd| / 2 = e alpha |V_g -
+    V_k|, so the diamond's edges are the lines |V_sd| = 2 alpha |V_g - V_k| (common practice, closed form)."""
+    dot = ChargingDot(charging_energy_meV=2.0, lever_arm=ALPHA, level_spacing_meV=1e-3, rates_per_s=[1e8, 1e8])
+    bias = np.linspace(0.0, 3e-3, 601)
+    v_k = 1.5 * 2.0 / (1000 * ALPHA)  # mu(2) = 1.5 E_C crosses E_F here
+    for distance in (1e-3, 3e-3, 6e-3):  # V, inside the N = 1 diamond (its half-width is E_C / (2 e alpha) = 10 mV)
+        res = current(dot, [v_k - distance], bias, 0.02)
+        conducting = np.abs(res.current_A[:, 0]) > 1e-3 * np.abs(res.current_A).max()
+        onset = bias[np.argmax(conducting)]
+        # To the bias step (5 uV) plus a few kT (1.7 ueV at 20 mK) of thermal onset.
+        assert onset == pytest.approx(2 * ALPHA * distance, abs=2e-5)
