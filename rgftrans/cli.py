@@ -116,9 +116,19 @@ def _print_regime(cfg, device, model, poles) -> None:
         return
     energies = cfg.energies()
     temps = cfg.temperatures()
+    layout_e_c = None
+    if cfg.gates is not None and cfg.charge_regions():
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # an open region is reported with the capacitances below
+            caps = cfg.capacitances()
+        layout_e_c = (float(caps.charging_energy_meV[0]), float(caps.total_aF[0]),
+                      f"region {caps.region_names[0]!r} from the layout's electrostatics")
     est = regime_estimate(device, model, fermi_energy=cfg.fermi_energy_meV,
                           temperature_K=float(temps.min()) if temps.size else 0.0,
-                          energy_window=(float(energies[0]), float(energies[-1])), poles=poles, warn=False)
+                          energy_window=(float(energies[0]), float(energies[-1])), poles=poles, warn=False,
+                          charging_energy=layout_e_c)
     lines = est.lines()
     print(f"  regime: {lines[0]}")
     for line in lines[1:-1]:

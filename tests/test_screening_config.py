@@ -197,6 +197,7 @@ def test_named_regions_get_capacitances_in_check_run_and_the_file(tmp_path, caps
     out = capsys.readouterr().out
     assert "region 'gap' (OPEN to the reservoirs)" in out and "E_C = e^2/C_Sigma" in out
     assert "capacitance matrix C (aF)" in out and "note: region 'gap' is open" in out
+    assert "region 'gap' from the layout's electrostatics" in out  # the regime estimate uses the layout's E_C
     assert main(["run", str(path), "--quiet", "--workers", "1"]) == EXIT_OK
     cfg = parse_config(text.format(out=tmp_path / "r.h5"), source="regions.toml")
     caps = cfg.capacitances()

@@ -180,6 +180,7 @@ class RegimeEstimate:
     mean_conductance_g0: float | None
     coulomb_blockade: bool
     verdict: str
+    charging_source: str = "disk"
 
     def lines(self) -> list[str]:
         """Human-readable lines for ``rgftrans check`` and ``run``."""
@@ -190,8 +191,9 @@ class RegimeEstimate:
                                                           "x 2e^2/h over the energy window")
         return [
             f"dot area {self.area_nm2:.4g} nm^2 ({self.area_source})",
-            f"level spacing {self.level_spacing_meV:.3g} meV, charging energy <= {self.charging_energy_meV:.3g} meV "
-            f"(disk, C = {self.capacitance_F * 1e18:.3g} aF), level width {width}, kT = {kT:.3g} meV "
+            f"level spacing {self.level_spacing_meV:.3g} meV, charging energy "
+            f"{'<= ' if self.charging_source == 'disk' else ''}{self.charging_energy_meV:.3g} meV "
+            f"({self.charging_source}, C = {self.capacitance_F * 1e18:.3g} aF), level width {width}, kT = {kT:.3g} meV "
             f"at {self.temperature_K:g} K{g}",
             self.verdict,
         ]
@@ -199,7 +201,8 @@ class RegimeEstimate:
 
 def regime_estimate(device, model=None, *, fermi_energy: float | None = None, temperature_K: float = 0.0,
                     widths: bool = True, energy_window: tuple[float, float] | None = None,
-                    area_nm2: float | None = None, poles=None, warn: bool = True) -> RegimeEstimate:
+                    area_nm2: float | None = None, poles=None, warn: bool = True,
+                    charging_energy: tuple[float, float, str] | None = None) -> RegimeEstimate:
     """Estimate Δ, E_C and Γ of a dot and say whether Coulomb blockade would dominate a measurement.
 
     Parameters
@@ -225,6 +228,9 @@ def regime_estimate(device, model=None, *, fermi_energy: float | None = None, te
         The dot's area if you know it better; overrides the estimate.
     warn : bool
         Issue the ValidityWarning below (the command line prints the verdict itself).
+    charging_energy : (float, float, str), optional
+        E_C (meV), C_Sigma (aF) and where they come from (e.g. the layout's electrostatics), instead of the
+        disk's upper bound.
 
     Warns
     -----
@@ -241,6 +247,9 @@ def regime_estimate(device, model=None, *, fermi_energy: float | None = None, te
         area, source = _positive(area_nm2, "area_nm2"), "given"
     spacing = level_spacing_meV(area, material.m_eff)
     e_c, capacitance = disk_charging_energy_meV(area, material.eps_r)
+    e_c_source = "disk"
+    if charging_energy is not None:
+        e_c, capacitance, e_c_source = float(charging_energy[0]), float(charging_energy[1]) * 1e-18, charging_energy[2]
     gamma, n_widths = (None, 0)
     if widths and energy_window is not None:
         if poles is None:
@@ -255,9 +264,10 @@ def regime_estimate(device, model=None, *, fermi_energy: float | None = None, te
     kT = constants.k * temp / _MEV
     open_contacts = g_mean is not None and g_mean >= OPEN_CONTACT_G0
     blockade = e_c > kT and (gamma is None or e_c > gamma) and not open_contacts
+    bound = "<= " if e_c_source == "disk" else "= "
     if blockade:
         against = f"the level width ({gamma:.3g} meV) and " if gamma is not None else ""
-        verdict = (f"Coulomb blockade would dominate a measured trace: E_C <= {e_c:.3g} meV exceeds {against}kT "
+        verdict = (f"Coulomb blockade would dominate a measured trace: E_C {bound}{e_c:.3g} meV exceeds {against}kT "
                    f"({kT:.3g} meV at {temp:g} K) and the contacts conduct less than e^2/h; this coherent, "
                    "single-particle result describes the dot only when it is open (E_C << level width)")
         if warn:
@@ -267,12 +277,12 @@ def regime_estimate(device, model=None, *, fermi_energy: float | None = None, te
                    "open and the charge is not quantised; the coherent result applies")
     else:
         why = f"the level width {gamma:.3g} meV" if gamma is not None and gamma >= e_c else f"kT = {kT:.3g} meV"
-        verdict = (f"coherent regime: {why} exceeds the charging energy (<= {e_c:.3g} meV), so charging "
+        verdict = (f"coherent regime: {why} exceeds the charging energy ({bound}{e_c:.3g} meV), so charging "
                    "smears out and the coherent result applies")
     return RegimeEstimate(area_nm2=area, area_source=source, level_spacing_meV=spacing,
                           charging_energy_meV=e_c, capacitance_F=capacitance, level_width_meV=gamma,
                           n_widths=n_widths, temperature_K=temp, mean_conductance_g0=g_mean,
-                          coulomb_blockade=blockade, verdict=verdict)
+                          coulomb_blockade=blockade, verdict=verdict, charging_source=e_c_source)
 
 
 def mean_conductance_g0(model, energy_window, *, samples: int = CONDUCTANCE_SAMPLES) -> float:
