@@ -223,8 +223,8 @@ def _print_capacitances(cfg) -> None:
 
     if cfg.gates is None or not cfg.charge_regions():
         return
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # said below, from the result (it may come from the cache)
         result = cfg.capacitances()
     print("  capacitances at these voltages (Thomas-Fermi response; constant-interaction model):")
     for line in result.summary().splitlines():
@@ -232,8 +232,14 @@ def _print_capacitances(cfg) -> None:
     names = result.region_names
     print("    capacitance matrix C (aF), rows and columns " + ", ".join(map(repr, names)) + ": " +
           "; ".join(" ".join(f"{v:.4g}" for v in row) for row in result.capacitance_matrix_aF))
-    for w in caught:
-        print(f"    note: {w.message}")
+    for name, closed, n in zip(result.region_names, result.closed, result.electron_number):
+        if not closed:
+            print(f"    note: region {name!r} is open: its 2DEG connects to the reservoirs through undepleted 2DEG, "
+                  "so its charge is not quantised and a charging energy describes it only roughly; close its "
+                  "barriers (more negative voltages) for the numbers of a Coulomb-blockaded dot")
+        if n < 2.0:
+            print(f"    note: region {name!r} holds only {n:.2g} electrons: a continuum (Thomas-Fermi) description "
+                  "of so few is rough, and its capacitances are too")
 
 
 def _density_at(solution, x, y) -> float:
