@@ -117,13 +117,20 @@ class ModelCache:
         The default slicing of the model cut into dense layer blocks (:func:`rgftrans.transport.rgf.layer_blocks`).
     spectral_bounds : (float, float) or None
         An interval holding the spectrum, meV (:func:`rgftrans.system.inputs.spectral_bounds`).
+    slicing : Slicing or None
+        The default RGF slicing alone (:func:`rgftrans.transport.slicing.default_slicing`): what the solver
+        choice needs, without cutting the layer blocks.
+    dissection : DissectionPlan or None
+        The nested-dissection tree with this model's matrix values (:func:`rgftrans.transport.dissection.dissection_plan`).
     """
 
-    __slots__ = ("layer_blocks", "spectral_bounds")
+    __slots__ = ("layer_blocks", "spectral_bounds", "slicing", "dissection")
 
     def __init__(self):
         self.layer_blocks = None
         self.spectral_bounds = None
+        self.slicing = None
+        self.dissection = None
 
 
 @dataclass(frozen=True, eq=False)
