@@ -1,7 +1,9 @@
-"""Transport solvers: slicing into layers, recursive Green's functions, the sparse direct reference.
+"""Transport solvers: slicing into layers, recursive Green's functions, nested dissection, the sparse direct reference.
 
 :func:`transmission` and :func:`transmission_matrix` (RGF over the layers of
-:func:`slice_layers`, numba kernels), :func:`transmission_direct` and
+:func:`slice_layers`, numba kernels; or nested dissection with multifrontal
+elimination for wide devices, :func:`dissection_tree`; :func:`choose_solver`
+picks the route predicted faster), :func:`transmission_direct` and
 :func:`scattering_matrix` (sparse LU, the independent reference), and local
 quantities (LDOS, lead-resolved densities, scattering states, bond currents).
 Builds on ``leads`` and ``system``.
@@ -34,6 +36,13 @@ _EXPORTS = {
     "four_terminal_resistance": "rgf",
     "Slicing": "slicing",
     "slice_layers": "slicing",
+    "default_slicing": "slicing",
+    "SolverChoice": "choice",
+    "choose_solver": "choice",
+    "DissectionTree": "dissection",
+    "DissectionPlan": "dissection",
+    "dissection_tree": "dissection",
+    "dissection_plan": "dissection",
 }
 __all__ = list(_EXPORTS)
 __getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -45,9 +45,16 @@ _KIND = ord("z")  # complex128
 _NOTRANS = ord("N")
 
 
+#: Column panel width of the lower-triangle update of symmetric fronts (see :func:`_eliminate`).
+SYMMETRIC_PANEL = 32
+
+
 @njit(cache=True)
-def _eliminate(front, f, k, b, ipiv, scal):
+def _eliminate(front, f, k, b, ipiv, scal, symmetric):
     """Partial factorisation of one front: ``F22 <- F22 - F21 F11^-1 F12`` in place.
+
+    With ``symmetric`` (a complex symmetric front, ``F = F^T``: real H, no field) the update is symmetric
+    too and only its lower triangle is formed, panel by panel: about half the ``k b^2`` of the product.
 
     Returns the smallest ``|U_jj|`` over the largest (1.0 when nothing is
     eliminated); 0.0 when F11 is exactly singular.
@@ -64,15 +71,21 @@ def _eliminate(front, f, k, b, ipiv, scal):
         u = abs(front[j * f + j])
         small = min(small, u)
         large = max(large, u)
-    if b > 0:
+    if b > 0 and not symmetric:
         _xxgemm(_KIND, _NOTRANS, _NOTRANS, b, b, k, scal.ctypes, front[k:].ctypes, f, front[k * f:].ctypes, f,
                 scal[1:].ctypes, front[k * f + k:].ctypes, f)
+    elif b > 0:
+        for j0 in range(0, b, SYMMETRIC_PANEL):
+            w = min(SYMMETRIC_PANEL, b - j0)
+            # F22[j0:, j0:j0+w] -= F21[j0:, :] X[:, j0:j0+w]
+            _xxgemm(_KIND, _NOTRANS, _NOTRANS, b - j0, w, k, scal.ctypes, front[k + j0:].ctypes, f,
+                    front[(k + j0) * f:].ctypes, f, scal[1:].ctypes, front[(k + j0) * f + k + j0:].ctypes, f)
     return small / large if large > 0 else 0.0
 
 
 @njit(cache=True)
 def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_pos,
-                    entry_val, front_max, stack_max, out_root, out_pivot):
+                    entry_val, front_max, stack_max, symmetric, out_root, out_pivot):
     """Eliminate every non-root unknown and return the root's Schur complement, for many energies.
 
     Parameters
@@ -92,6 +105,9 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
         the diagonal of the fully summed block (of every root unknown at the root).
     front_max, stack_max : int
         Largest front (rows) and the peak of the update stack (entries), from the plan.
+    symmetric : bool
+        The matrix ``z - H`` is complex symmetric (real H): update matrices are formed and read as their
+        lower triangles only.
     out_root : (n_E, k_root, k_root) complex
         Filled with ``(z - H)_II - H_IX (z - H_XX)^-1 H_XI`` on the root unknowns I.
     out_pivot : (n_E,) float
@@ -126,11 +142,22 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
                 bc = n_bound[c]
                 src = upd_off[c]
                 m0 = map_ptr[c]
-                for j in range(bc):
-                    col = parent_pos[m0 + j] * f
-                    for i in range(bc):
-                        front[col + parent_pos[m0 + i]] += stack[src + i]
-                    src += bc
+                if symmetric:
+                    for j in range(bc):
+                        pj = parent_pos[m0 + j]
+                        front[pj * f + pj] += stack[src + j]
+                        for i in range(j + 1, bc):
+                            pi = parent_pos[m0 + i]
+                            val = stack[src + i]
+                            front[pj * f + pi] += val
+                            front[pi * f + pj] += val
+                        src += bc
+                else:
+                    for j in range(bc):
+                        col = parent_pos[m0 + j] * f
+                        for i in range(bc):
+                            front[col + parent_pos[m0 + i]] += stack[src + i]
+                        src += bc
             if c1 > c0:
                 sp = upd_off[children[c0]]  # pop them all: they were the top of the stack
             if v == root:
@@ -138,7 +165,7 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
                     for i in range(k):
                         out_root[e, i, j] = front[j * f + i]
                 break
-            worst = min(worst, _eliminate(front, f, k, b, ipiv, scal))
+            worst = min(worst, _eliminate(front, f, k, b, ipiv, scal, symmetric))
             upd_off[v] = sp
             for j in range(b):  # push the update matrix F22 (b x b, column-major)
                 src = (k + j) * f + k

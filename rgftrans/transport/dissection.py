@@ -50,10 +50,10 @@ from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg as sla
+from scipy.linalg import lapack
 import scipy.sparse as sp
 
-from rgftrans.leads.embedding import broadening, device_energy, gamma_columns, lead_self_energies
+from rgftrans.leads.embedding import broadening, device_energy, gamma_factor, lead_self_energies
 from rgftrans.system.device import TightBindingModel
 
 __all__ = ["DissectionTree", "DissectionPlan", "dissection_tree", "dissection_plan", "root_schur",
@@ -68,6 +68,8 @@ LEAF_ORBITALS = 48
 #: energy amplifies round-off by ~t/delta), so 1e-8 bounds that amplification to ~1e-8 of the
 #: transmission; energies below it are redone by the caller.
 PIVOT_RTOL = 1e-8
+#: Use the symmetric update for real Hamiltonians (see :func:`rgftrans.transport._frontal._eliminate`).
+SYMMETRIC_FRONTS = True
 #: Geometries whose trees are kept (sweeps revisit a few geometries; each tree holds O(N log N) integers).
 TREE_CACHE_SIZE = 4
 
@@ -263,24 +265,25 @@ def clear_tree_cache() -> None:
     _TREES.clear()
 
 
-def dissection_tree(model: TightBindingModel, *, leaf_orbitals: int = LEAF_ORBITALS) -> DissectionTree:
+def dissection_tree(model: TightBindingModel, *, leaf_orbitals: int | None = None) -> DissectionTree:
     """The elimination tree of the model's geometry (cached by site graph, positions and lead interfaces).
 
     Parameters
     ----------
     model : TightBindingModel
-    leaf_orbitals : int
-        Largest subdomain eliminated densely in one front (orbitals).
+    leaf_orbitals : int, optional
+        Largest subdomain eliminated densely in one front (orbitals); default :data:`LEAF_ORBITALS`.
 
     Returns
     -------
     DissectionTree
     """
+    leaf_orbitals = LEAF_ORBITALS if leaf_orbitals is None else int(leaf_orbitals)
     adj = _site_graph(model)
-    key = (_fingerprint(model, adj), int(leaf_orbitals))
+    key = (_fingerprint(model, adj), leaf_orbitals)
     tree = _TREES.get(key)
     if tree is None:
-        tree = _build_tree(model, adj, max(1, int(leaf_orbitals) // model.norbs))
+        tree = _build_tree(model, adj, max(1, leaf_orbitals // model.norbs))
         _TREES[key] = tree
         while len(_TREES) > TREE_CACHE_SIZE:
             _TREES.popitem(last=False)
@@ -392,10 +395,15 @@ def _build_tree(model: TightBindingModel, adj: sp.csr_matrix, leaf_sites: int) -
 
 @dataclass(frozen=True, eq=False)
 class DissectionPlan:
-    """A :class:`DissectionTree` with the model's ``-H`` entries in assembly order (``entry_val``, meV)."""
+    """A :class:`DissectionTree` with the model's ``-H`` entries in assembly order (``entry_val``, meV).
+
+    ``symmetric``: H is real (no field, no spin-orbit), so every front is complex symmetric and the kernel
+    forms only the lower triangles of the update matrices.
+    """
 
     tree: DissectionTree
     entry_val: np.ndarray
+    symmetric: bool
 
 
 def dissection_plan(model: TightBindingModel) -> DissectionPlan:
@@ -411,7 +419,8 @@ def dissection_plan(model: TightBindingModel) -> DissectionPlan:
             raise RuntimeError("dissection tree does not cover the Hamiltonian's pattern")
         values = np.zeros(len(sorted_keys), dtype=complex)
         np.add.at(values, tree._key_order[at], -coo.data)
-        plan = DissectionPlan(tree=tree, entry_val=values)
+        plan = DissectionPlan(tree=tree, entry_val=values,
+                              symmetric=bool(SYMMETRIC_FRONTS and not np.any(coo.data.imag)))
         model.cache.dissection = plan
     return plan
 
@@ -443,7 +452,7 @@ def root_schur(plan: DissectionPlan, z_all) -> tuple[np.ndarray, np.ndarray]:
     schur = np.empty((len(z_all), k, k), dtype=complex)
     pivot = np.empty(len(z_all))
     schur_onto_root(z_all, t.n_elim, t.n_bound, t.child_ptr, t.children, t.map_ptr, t.parent_pos, t.entry_ptr,
-                    t.entry_pos, plan.entry_val, t.front_max, t.stack_max, schur, pivot)
+                    t.entry_pos, plan.entry_val, t.front_max, t.stack_max, plan.symmetric, schur, pivot)
     return schur, pivot
 
 
@@ -504,30 +513,33 @@ def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float 
 
 
 def _lead_matrix(schur: np.ndarray, sigmas, n_open, lead_slots) -> tuple[np.ndarray, float]:
-    """``T_pq`` and ``R_pp`` from the root's Schur complement: ``G_II = (S - Sigma)^-1``, ``M = W^dag G_II W``."""
-    a = schur.copy()
-    w_cols, owner = [], []
-    for p, (sigma, slots) in enumerate(zip(sigmas, lead_slots)):
+    """``T_pq`` and ``R_pp`` from the root's Schur complement: ``G_II = (S - Sigma)^-1``, ``M = W^dag G_II W``.
+
+    ``schur`` is overwritten.  Returns the matrix and the smallest relative pivot of the root's LU.
+    """
+    a = schur
+    n_leads = len(sigmas)
+    w_all = []
+    for sigma, slots in zip(sigmas, lead_slots):
         a[np.ix_(slots, slots)] -= sigma
-        w = gamma_columns(broadening(sigma))
+        w = gamma_factor(broadening(sigma))
         full = np.zeros((len(a), w.shape[1]), dtype=complex)
         full[slots] = w
-        w_cols.append(full)
-        owner.append(np.full(w.shape[1], p))
-    w_all = np.hstack(w_cols)
-    owner = np.concatenate(owner)
-    n_leads = len(sigmas)
-    out = np.zeros((n_leads, n_leads))
-    lu, piv = sla.lu_factor(a, check_finite=False)
+        w_all.append(full)
+    edges = np.cumsum([0] + [w.shape[1] for w in w_all])
+    w_all = np.hstack(w_all)
+    lu, piv, info = lapack.zgetrf(a, overwrite_a=True)
     diag = np.abs(np.diag(lu))
-    pivot = float(diag.min() / diag.max()) if diag.max() > 0 else 0.0
-    if pivot == 0.0 or w_all.shape[1] == 0:
-        return out if pivot > 0 else np.full_like(out, np.nan), pivot
-    m = w_all.conj().T @ sla.lu_solve((lu, piv), w_all, check_finite=False)
+    pivot = float(diag.min() / diag.max()) if info == 0 and diag.max() > 0 else 0.0
+    if pivot == 0.0:
+        return np.full((n_leads, n_leads), np.nan), pivot
+    x, _ = lapack.zgetrs(lu, piv, w_all)
+    m = w_all.conj().T @ x
+    out = np.empty((n_leads, n_leads))
     for p in range(n_leads):
-        rp = owner == p
+        rp = slice(edges[p], edges[p + 1])
         for q in range(n_leads):
-            block = m[np.ix_(rp, owner == q)]
+            block = m[rp, edges[q]:edges[q + 1]]
             out[p, q] = np.sum(block.real**2 + block.imag**2)
-        out[p, p] += n_open[p] + 2 * np.trace(m[np.ix_(rp, rp)]).imag
+        out[p, p] += n_open[p] + 2 * np.trace(m[rp, rp]).imag
     return out, pivot

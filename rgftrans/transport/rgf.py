@@ -30,7 +30,7 @@ from rgftrans.leads.embedding import (broadening, device_energy, gamma_columns, 
                                       warn_thresholds)
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S, conductance_g0
 from rgftrans.transport.buffers import EndTerms, LayerBuffers
-from rgftrans.transport.slicing import Slicing, slice_layers
+from rgftrans.transport.slicing import Slicing, default_slicing
 
 __all__ = [
     "TransmissionResult", "transmission", "layer_blocks", "GreenBlocks", "green_blocks",
@@ -56,6 +56,8 @@ class TransmissionResult:
         2 for a spinless model (each channel stands for both spins), 1 when
         the model has explicit spin orbitals (``transmission`` then counts
         both spins); see :attr:`TightBindingModel.spin_degeneracy`.
+    solver : {"rgf", "dissection"}
+        The route that computed it (:func:`rgftrans.transport.choice.choose_solver`).
     """
 
     energies: np.ndarray
@@ -64,6 +66,7 @@ class TransmissionResult:
     at_threshold: np.ndarray
     lead_names: tuple
     spin_degeneracy: int = 2
+    solver: str = "rgf"
 
     @property
     def conductance_g0(self) -> np.ndarray:
@@ -109,9 +112,7 @@ def layer_blocks(model: TightBindingModel, slicing: Slicing | None = None) -> La
     """
     if slicing is None:
         if model.cache.layer_blocks is None:
-            auto = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
-                                positions=model.orbital_positions())
-            model.cache.layer_blocks = _cut_blocks(model, auto)
+            model.cache.layer_blocks = _cut_blocks(model, default_slicing(model))
         return model.cache.layer_blocks
     return _cut_blocks(model, slicing)
 
@@ -152,8 +153,8 @@ def _cut_blocks(model: TightBindingModel, slicing: Slicing) -> LayerBlocks:
 
 
 def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
-                 slicing: Slicing | None = None) -> TransmissionResult:
-    """Two-terminal transmission T(E) by recursive Green's functions.
+                 slicing: Slicing | None = None, solver: str = "auto") -> TransmissionResult:
+    """Two-terminal transmission T(E) by recursive Green's functions or nested dissection.
 
     Parameters
     ----------
@@ -164,13 +165,19 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
         Optional imaginary part added to the device energies (broadening);
         the leads are always evaluated exactly.  Default 0.
     slicing : Slicing, optional
-        Layers to use; computed from the leads if not given.
+        Layers for RGF; computed from the leads if not given.  Giving one asks for RGF.
+    solver : {"auto", "rgf", "dissection"}
+        "auto" (default) takes the route predicted faster for this model
+        (:func:`rgftrans.transport.choice.choose_solver`): RGF for narrow
+        devices, nested dissection (:mod:`rgftrans.transport.dissection`) for
+        wide ones.  Both give the same T to round-off.
 
     Returns
     -------
     TransmissionResult
-        Energies on a channel threshold are moved into the upper half plane by
-        a tiny amount and flagged; one :class:`ThresholdWarning` names them.
+        ``solver`` says which route ran.  Energies on a channel threshold are
+        moved into the upper half plane by a tiny amount and flagged; one
+        :class:`ThresholdWarning` names them.
     """
     check_model(model)
     energies = check_energies(energies, model)
@@ -180,14 +187,18 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
             f"transmission() needs exactly two leads, the model has {len(model.leads)}; use transmission_matrix()"
         )
     check_resolution(model, energies)
-    blocks = layer_blocks(model, slicing)
+    choice = _choose(model, solver, slicing)
     n_e = len(energies)
-    trans = np.empty(n_e)
-    n_open = np.zeros((n_e, 2), dtype=np.int64)
-    flagged = np.zeros(n_e, dtype=bool)
-    for start in range(0, n_e, ENERGY_CHUNK):
-        chunk = slice(start, min(start + ENERGY_CHUNK, n_e))
-        trans[chunk], n_open[chunk], flagged[chunk] = _two_terminal_chunk(model, blocks, energies[chunk], eta)
+    if choice.solver == "dissection":
+        trans, n_open, flagged = _two_terminal_dissection(model, energies, eta, choice)
+    else:
+        blocks = layer_blocks(model, slicing)
+        trans = np.empty(n_e)
+        n_open = np.zeros((n_e, 2), dtype=np.int64)
+        flagged = np.zeros(n_e, dtype=bool)
+        for start in range(0, n_e, ENERGY_CHUNK):
+            chunk = slice(start, min(start + ENERGY_CHUNK, n_e))
+            trans[chunk], n_open[chunk], flagged[chunk] = _two_terminal_chunk(model, blocks, energies[chunk], eta)
     warn_thresholds(energies, flagged)
     return TransmissionResult(
         energies=energies,
@@ -196,7 +207,48 @@ def transmission(model: TightBindingModel, energies, *, eta: float = 0.0,
         at_threshold=flagged,
         lead_names=tuple(lead.name for lead in model.leads),
         spin_degeneracy=model.spin_degeneracy,
+        solver=choice.solver,
     )
+
+
+def _choose(model, solver: str, slicing):
+    """The solver choice of a transport call: an explicit slicing asks for RGF (unless the tree is forced)."""
+    from rgftrans.transport.choice import SolverChoice, choose_solver
+
+    if slicing is not None and solver == "auto":
+        nan = float("nan")
+        return SolverChoice("rgf", nan, nan, nan, nan, "explicit slicing")
+    return choose_solver(model, solver=solver, slicing=slicing)
+
+
+#: Energies the tree could not trust (a front pivot below its tolerance: the energy sits near an eigenvalue of a
+#: closed subdomain) are redone by RGF when its layer blocks take at most this many bytes, else by a sparse
+#: direct solve (both are unaffected by closed subdomains: RGF's left-connected blocks contain a lead).
+FALLBACK_RGF_BYTES = 2**30
+
+
+def _rgf_affordable(model, choice) -> bool:
+    from rgftrans.transport.choice import rgf_bytes
+
+    need = choice.rgf_bytes
+    if not np.isfinite(need):
+        need = rgf_bytes([len(layer) for layer in default_slicing(model).layers], len(model.leads))
+    return model.cache.layer_blocks is not None or need <= FALLBACK_RGF_BYTES
+
+
+def _two_terminal_dissection(model, energies, eta, choice):
+    """T, open channels and threshold flags by nested dissection; untrusted energies redone by RGF or directly."""
+    from rgftrans.transport.dissection import dissection_solve
+
+    res = dissection_solve(model, energies, eta)
+    trans = res.matrix[:, 1, 0].copy()
+    redo = np.flatnonzero(~res.trusted)
+    if len(redo):
+        if _rgf_affordable(model, choice):
+            trans[redo] = _two_terminal_chunk(model, layer_blocks(model), energies[redo], eta)[0]
+        else:
+            trans[redo] = [_direct_fallback(model, energies[k], eta) for k in redo]
+    return trans, res.n_open, res.at_threshold
 
 
 #: Below this transmission (per open channel) the Ward-identity shortcut of wide devices is replaced by the
@@ -436,6 +488,8 @@ class TransmissionMatrixResult:
     lead_names : tuple of str
     spin_degeneracy : {1, 2}
         As in :class:`TransmissionResult`.
+    solver : {"rgf", "dissection"}
+        As in :class:`TransmissionResult`.
     """
 
     energies: np.ndarray
@@ -444,6 +498,7 @@ class TransmissionMatrixResult:
     at_threshold: np.ndarray
     lead_names: tuple
     spin_degeneracy: int = 2
+    solver: str = "rgf"
 
     def conductance_matrix(self) -> np.ndarray:
         """Büttiker conductance matrix in units of 2e^2/h, shape (n_E, n_leads, n_leads).
@@ -458,50 +513,73 @@ class TransmissionMatrixResult:
 
 
 def transmission_matrix(model: TightBindingModel, energies, *, eta: float = 0.0,
-                        slicing: Slicing | None = None) -> TransmissionMatrixResult:
-    """Transmissions ``T_pq(E)`` between all leads (any number) by RGF.
+                        slicing: Slicing | None = None, solver: str = "auto") -> TransmissionMatrixResult:
+    """Transmissions ``T_pq(E)`` between all leads (any number) by RGF or nested dissection.
 
     ``T_pq = Tr[Gamma_p G_pq Gamma_q G_pq^dag]`` for p != q, and the
     reflection from the Fisher-Lee form ``r = -1 + i W^dag G W``
     (``Gamma = W W^dag``): ``R_pp = N_p - i Tr[Gamma_p (G_pp - G_pp^dag)]
-    + Tr[Gamma_p G_pp Gamma_p G_pp^dag]``.
+    + Tr[Gamma_p G_pp Gamma_p G_pp^dag]``.  ``slicing`` and ``solver`` as in
+    :func:`transmission`; the result's ``solver`` says which route ran.
     """
     check_model(model)
     energies = check_energies(energies, model)
     eta = check_eta(eta)
     check_resolution(model, energies)
-    blocks = layer_blocks(model, slicing)
+    choice = _choose(model, solver, slicing)
     n_leads = len(model.leads)
     n_e = len(energies)
-    need_columns = len(set(blocks.slicing.lead_layer)) > 1
-    trans = np.zeros((n_e, n_leads, n_leads))
-    n_open = np.zeros((n_e, n_leads), dtype=np.int64)
-    flagged = np.zeros(n_e, dtype=bool)
-    for k, energy in enumerate(energies):
-        sigmas, modes = lead_self_energies(model, energy, warn=False)
-        flagged[k] = any(m.at_threshold for m in modes)
-        n_open[k] = [m.n_open for m in modes]
-        try:
-            gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, columns=need_columns)
-        except np.linalg.LinAlgError:  # singular partial system at exactly this energy: solve directly
-            from rgftrans.transport.direct import transmission_direct
+    if choice.solver == "dissection":
+        from rgftrans.transport.dissection import dissection_solve
 
-            trans[k] = transmission_direct(model, [energy], eta=eta)[0]
-            for p in range(n_leads):
-                trans[k, p, p] = n_open[k, p] - (trans[k, :, p].sum() - trans[k, p, p])
-            continue
-        gammas = [broadening(s) for s in sigmas]
-        for p in range(n_leads):
-            for q in range(n_leads):
-                g_pq = _interface_block(gb, blocks, p, q)
-                t = np.trace(gammas[p] @ g_pq @ gammas[q] @ g_pq.conj().T).real
-                if p == q:
-                    t += n_open[k, p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real
-                trans[k, p, q] = t
+        res = dissection_solve(model, energies, eta)
+        trans, n_open, flagged = res.matrix, res.n_open, res.at_threshold
+        redo = np.flatnonzero(~res.trusted)
+        blocks = layer_blocks(model) if len(redo) and _rgf_affordable(model, choice) else None
+        for k in redo:
+            trans[k] = _matrix_at(model, blocks, energies[k], eta)[0]
+    else:
+        blocks = layer_blocks(model, slicing)
+        trans = np.zeros((n_e, n_leads, n_leads))
+        n_open = np.zeros((n_e, n_leads), dtype=np.int64)
+        flagged = np.zeros(n_e, dtype=bool)
+        for k, energy in enumerate(energies):
+            trans[k], n_open[k], flagged[k] = _matrix_at(model, blocks, energy, eta)
     warn_thresholds(energies, flagged)
     return TransmissionMatrixResult(energies=energies, matrix=trans, n_open=n_open,
                                     at_threshold=flagged, lead_names=tuple(l.name for l in model.leads),
-                                    spin_degeneracy=model.spin_degeneracy)
+                                    spin_degeneracy=model.spin_degeneracy, solver=choice.solver)
+
+
+def _matrix_at(model, blocks, energy, eta):
+    """``T_pq`` and ``R_pp`` at one energy by RGF (``blocks``), or by a sparse direct solve when ``blocks`` is
+    None or a partial system of the recursion is singular there; with the open channels and threshold flag."""
+    n_leads = len(model.leads)
+    sigmas, modes = lead_self_energies(model, energy, warn=False)
+    flagged = any(m.at_threshold for m in modes)
+    n_open = np.array([m.n_open for m in modes], dtype=np.int64)
+    trans = np.zeros((n_leads, n_leads))
+    try:
+        if blocks is None:
+            raise np.linalg.LinAlgError
+        need_columns = len(set(blocks.slicing.lead_layer)) > 1
+        gb = green_blocks(device_energy(energy, modes, eta), blocks, sigmas, columns=need_columns)
+    except np.linalg.LinAlgError:  # singular partial system at exactly this energy: solve directly
+        from rgftrans.transport.direct import transmission_direct
+
+        trans[:] = transmission_direct(model, [energy], eta=eta)[0]
+        for p in range(n_leads):
+            trans[p, p] = n_open[p] - (trans[:, p].sum() - trans[p, p])
+        return trans, n_open, flagged
+    gammas = [broadening(s) for s in sigmas]
+    for p in range(n_leads):
+        for q in range(n_leads):
+            g_pq = _interface_block(gb, blocks, p, q)
+            t = np.trace(gammas[p] @ g_pq @ gammas[q] @ g_pq.conj().T).real
+            if p == q:
+                t += n_open[p] - np.trace(1j * gammas[p] @ (g_pq - g_pq.conj().T)).real
+            trans[p, q] = t
+    return trans, n_open, flagged
 
 
 def four_terminal_resistance(conductance: np.ndarray, current: tuple[int, int], voltage: tuple[int, int]) -> float:

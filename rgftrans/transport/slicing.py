@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["Slicing", "slice_layers"]
+__all__ = ["Slicing", "slice_layers", "default_slicing"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -187,3 +187,12 @@ def slice_layers(hamiltonian: sp.spmatrix, interfaces: list[np.ndarray], *,
     bounds = np.searchsorted(level[order], np.arange(level.max() + 2))
     layers = tuple(order[bounds[k]:bounds[k + 1]] for k in range(len(bounds) - 1))
     return Slicing(layers=layers, lead_layer=lead_layer)
+
+
+def default_slicing(model) -> Slicing:
+    """The model's own slicing (from its leads and site positions), computed once and kept in
+    ``model.cache.slicing``: RGF's layers, and what the solver choice costs RGF by."""
+    if model.cache.slicing is None:
+        model.cache.slicing = slice_layers(model.hamiltonian, [lead.interface for lead in model.leads],
+                                           positions=model.orbital_positions())
+    return model.cache.slicing

@@ -1,0 +1,145 @@
+"""Which solver runs a transport call: RGF or nested dissection, from their predicted cost per energy.
+
+RGF (:mod:`rgftrans.transport.rgf`) costs one dense inversion per layer, about
+``sum_i m_i^3`` for layers of ``m_i`` orbitals; nested dissection
+(:mod:`rgftrans.transport.dissection`) costs its fronts' partial factorisations,
+about ``sum (k^3/3 + k^2 b + k b^2)`` over fronts eliminating ``k`` of ``k + b``
+unknowns, plus the root's LU.  Long narrow strips favour RGF (its layers are
+small and it carries no boundary), square devices favour the tree (``N^1.5``
+against RGF's ``N^2``).  Each route's time per energy is predicted from its own
+structure with constants measured on this project's machine (AMD EPYC, 2 cores,
+OpenBLAS, one BLAS thread; ``scripts/bench.py --calibrate`` refits them and
+DEVELOPERS.md records the fit):
+
+* RGF: ``RGF_SECONDS = (a, b, c)`` per layer, ``a m^3 + b m^2 + c``, plus ``RGF_PER_ENERGY``
+  (lead terms);
+* the tree: ``DISSECTION_SECONDS = (a, b, c)``: ``a`` per complex multiply-add of the fronts,
+  ``b`` per front entry assembled (zeroing, extend-add, copies), ``c`` per front (calls), plus the
+  root's LU at RGF's ``a`` per ``k^3`` and ``DISSECTION_PER_ENERGY``.
+
+The prediction only has to rank the two near their crossover; away from it one
+route wins by far.  Devices whose RGF is predicted below ``RGF_ALWAYS_BELOW``
+seconds per energy run RGF without building the tree at all: there nothing
+worth the planning can be gained.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from rgftrans.errors import RgftransError
+from rgftrans.system.budget import MEMORY_SHARE, available_memory_bytes
+from rgftrans.system.device import TightBindingModel
+from rgftrans.transport.slicing import Slicing, default_slicing
+
+__all__ = ["SOLVERS", "SolverChoice", "choose_solver", "rgf_seconds", "rgf_bytes", "dissection_seconds"]
+
+#: Solver names a transport call accepts.
+SOLVERS = ("auto", "rgf", "dissection")
+
+#: RGF seconds per layer of m orbitals: a m^3 + b m^2 + c (fitted to strips W x 400 and squares, W = 8..256,
+#: one BLAS thread; see DEVELOPERS.md "Solver choice").
+RGF_SECONDS = (1.9e-10, 1.0e-8, 4.0e-6)
+#: RGF seconds per energy besides the layers (lead self-energies and broadening, kernel call).
+RGF_PER_ENERGY = 1.0e-4
+#: Tree seconds: per complex multiply-add of the fronts, per front entry assembled, per front.
+DISSECTION_SECONDS = (5.5e-11, 2.0e-9, 2.0e-6)
+#: Tree seconds per energy besides the fronts (lead terms, root solve for the open channels).
+DISSECTION_PER_ENERGY = 3.0e-4
+#: Below this predicted RGF time per energy (s) RGF runs without the tree being built or costed.
+RGF_ALWAYS_BELOW = 1.0e-3
+
+
+@dataclass(frozen=True)
+class SolverChoice:
+    """The solver a transport call uses, and why.
+
+    Attributes
+    ----------
+    solver : {"rgf", "dissection"}
+    rgf_seconds, dissection_seconds : float
+        Predicted time per energy of each route (s); NaN where it was not costed.
+    rgf_bytes, dissection_bytes : float
+        Work memory each route needs (bytes; RGF's layer blocks, the tree's fronts, stack and index
+        arrays); NaN where not costed.
+    reason : str
+        One line: "asked for", "explicit slicing", "cheaper (predicted ...)", ...
+    """
+
+    solver: str
+    rgf_seconds: float
+    dissection_seconds: float
+    rgf_bytes: float
+    dissection_bytes: float
+    reason: str
+
+
+def rgf_seconds(sizes) -> float:
+    """Predicted RGF time per energy (s) for layers of ``sizes`` orbitals (see :data:`RGF_SECONDS`)."""
+    m = np.asarray(sizes, dtype=float)
+    a, b, c = RGF_SECONDS
+    return float(np.sum(a * m**3 + b * m**2 + c) + RGF_PER_ENERGY)
+
+
+def rgf_bytes(sizes, n_leads: int = 2) -> float:
+    """Memory of RGF's layer blocks (bytes): the diagonal blocks and couplings, three times that for the
+    full Green's-function sweeps of more than two leads (left-connected and diagonal blocks kept)."""
+    m = np.asarray(sizes, dtype=float)
+    blocks = 16.0 * (np.sum(m**2) + np.sum(m[:-1] * m[1:]))
+    return blocks * (1 if n_leads == 2 else 3)
+
+
+def dissection_seconds(tree) -> float:
+    """Predicted tree time per energy (s) from a :class:`~rgftrans.transport.dissection.DissectionTree`."""
+    a, b, c = DISSECTION_SECONDS
+    k = float(tree.root_size)
+    return float(a * tree.flops + b * tree.assembly + c * tree.n_nodes + RGF_SECONDS[0] * k**3 / 3
+                 + DISSECTION_PER_ENERGY)
+
+
+def choose_solver(model: TightBindingModel, *, solver: str = "auto", slicing: Slicing | None = None) -> SolverChoice:
+    """Pick RGF or nested dissection for ``model`` by predicted time per energy.
+
+    Parameters
+    ----------
+    model : TightBindingModel
+    solver : {"auto", "rgf", "dissection"}
+        "auto" compares the predictions; the others force a route (and still report the predictions
+        that were cheap to make).
+    slicing : Slicing, optional
+        The layers RGF would use (default: the model's own slicing).
+
+    Returns
+    -------
+    SolverChoice
+        RGF is taken when it is predicted faster, or when it is predicted below
+        :data:`RGF_ALWAYS_BELOW` (the tree is then not built); the tree when it is faster or RGF's
+        layer blocks would not fit in memory.
+    """
+    if solver not in SOLVERS:
+        raise RgftransError(f"solver={solver!r} is not one of {', '.join(map(repr, SOLVERS))}; use 'auto' to let "
+                            "the package choose from the predicted cost")
+    from rgftrans.transport.dissection import dissection_tree
+
+    layers = slicing if slicing is not None else default_slicing(model)
+    sizes = [len(layer) for layer in layers.layers]
+    t_rgf, m_rgf = rgf_seconds(sizes), rgf_bytes(sizes, len(model.leads))
+    nan = float("nan")
+    if solver == "rgf":
+        return SolverChoice("rgf", t_rgf, nan, m_rgf, nan, "asked for")
+    if solver == "auto" and t_rgf < RGF_ALWAYS_BELOW:
+        return SolverChoice("rgf", t_rgf, nan, m_rgf, nan,
+                            f"RGF predicted at {t_rgf * 1e3:.2g} ms per energy: too small to plan a tree for")
+    tree = dissection_tree(model)
+    t_tree, m_tree = dissection_seconds(tree), float(tree.work_bytes + tree.nbytes)
+    if solver == "dissection":
+        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, "asked for")
+    fits = m_rgf < MEMORY_SHARE * available_memory_bytes()
+    if t_tree < t_rgf or not fits:
+        why = (f"predicted {t_tree:.3g} s per energy against RGF's {t_rgf:.3g} s" if fits else
+               f"RGF's layer blocks ({m_rgf / 1e9:.3g} GB) would not fit in memory")
+        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, why)
+    return SolverChoice("rgf", t_rgf, t_tree, m_rgf, m_tree,
+                        f"predicted {t_rgf:.3g} s per energy against the tree's {t_tree:.3g} s")
