@@ -7,22 +7,42 @@ interfaces that its subtree touches).  In postorder, each front is assembled
 from ``z - H`` (the entries whose first-eliminated end lies in this node) and
 the update matrices of its children (extend-add), and partially factorised:
 
-    F = [[F11, F12], [F21, F22]],   F11 = P L U (LAPACK zgetrf),
-    update = F22 - F21 F11^-1 F12   (zgesv, then zgemm),
+    F = [[F11, F12], [F21, F22]],   F11 = P L U,   F12 <- F11^-1 F12   (LAPACK zgesv),
+    update = F22 - F21 F12                                          (zgemm),
 
 the Schur complement of the subtree onto its boundary, which is pushed on a
 stack until the parent pops it.  The root's front holds the lead interface
-unknowns only; it is returned assembled and not factorised (the caller adds
-the self-energies and inverts it).  Multifrontal method: Duff & Reid, ACM
-TOMS 9, 302 (1983); nested dissection: George, SIAM J. Numer. Anal. 10, 345
-(1973) (both from memory).
+unknowns; it is returned assembled and not factorised (the caller adds the
+self-energies, which make it an open system, and solves it).  Multifrontal
+method: Duff & Reid, ACM TOMS 9, 302 (1983); nested dissection: George, SIAM
+J. Numer. Anal. 10, 345 (1973) (both from memory).
+
+Delayed pivots.  A subtree is a closed system: ``F11`` is singular when the
+energy is an eigenvalue of the subtree (clean rectangles have them at simple
+energies: the band centre, 4t +- t, ...; a disordered device at the energy of
+a state localised inside the subtree), and nearly so close to one, where the
+update grows like ``1/delta`` and its round-off reaches the result.  When
+``F11``'s smallest relative pivot falls below ``pivot_delay``, its near-null
+space is found by two steps of block inverse iteration with the LU just
+computed (8 starting vectors, Rayleigh-Ritz on the result); for each
+near-null direction the unknown carrying most of it is *delayed*: left out of
+this front's elimination and passed to the parent with the boundary, where it
+joins the parent's fully summed block (delayed pivoting, as in
+threshold-pivoting multifrontal solvers; Duff & Reid 1983).  What remains is
+eliminated with a regular pivot block; the singular direction travels up as a
+small diagonal entry instead of a ``1/delta`` update, and at the root the
+leads' self-energies open the system.  If that does not give a regular block
+(more near-null directions than starting vectors) the whole front is
+delayed.  Delays are capped (``delay_max`` extra unknowns per front, the
+stack's headroom); an energy that exceeds a cap is reported as failed and the
+caller redoes it by another route.
 
 Fronts are stored column-major (Fortran) in one flat work buffer, so the
 blocks ``F11``, ``F12``, ``F21``, ``F22`` are LAPACK submatrices with leading
-dimension ``f = k + b`` and nothing is copied for a BLAS call.  LAPACK and BLAS
-are scipy's (``scipy.linalg.cython_lapack`` / ``cython_blas``), called through
-their C addresses, so one compiled loop runs the whole tree with no Python
-and no allocation per node.
+dimension ``f`` and nothing is copied for a BLAS call.  LAPACK and BLAS are
+scipy's, through numba's own bindings (resolved by name when a compiled
+function loads, so the kernel caches like any other); one compiled loop runs
+the whole tree with no Python and no allocation per node.
 """
 
 from __future__ import annotations
@@ -31,8 +51,6 @@ import numpy as np
 from numba import njit, types
 from numba.np.linalg import ensure_blas, ensure_lapack
 
-# numba's own bindings to scipy's LAPACK and BLAS (resolved by name when a compiled function loads, so the
-# kernel caches like any other): zgesv = zgetrf + zgetrs in one call, and zgemm.
 ensure_blas()
 ensure_lapack()
 _C = types.CPointer(types.complex128)
@@ -44,24 +62,20 @@ _xxgemm = types.ExternalFunction("numba_xxgemm", types.intc(
 _KIND = ord("z")  # complex128
 _NOTRANS = ord("N")
 
-
-#: Column panel width of the lower-triangle update of symmetric fronts (see :func:`_eliminate`).
+#: Column panel width of the lower-triangle update of symmetric fronts (see :func:`_update`).
 SYMMETRIC_PANEL = 32
+#: Status codes per energy (``out_status``).
+OK, TOO_MANY_DELAYS, STACK_FULL = 0, 1, 2
 
 
 @njit(cache=True)
-def _eliminate(front, f, k, b, ipiv, scal, symmetric):
-    """Partial factorisation of one front: ``F22 <- F22 - F21 F11^-1 F12`` in place.
+def _factor(front, f, k, b, ipiv):
+    """``F11 = P L U`` and ``F12 <- F11^-1 F12`` in place (zgesv); the smallest relative pivot of ``U``.
 
-    With ``symmetric`` (a complex symmetric front, ``F = F^T``: real H, no field) the update is symmetric
-    too and only its lower triangle is formed, panel by panel: about half the ``k b^2`` of the product.
-
-    Returns the smallest ``|U_jj|`` over the largest (1.0 when nothing is
-    eliminated); 0.0 when F11 is exactly singular.
+    Returns ``min |U_jj| / max |U_jj|`` (1.0 when ``k = 0``, 0.0 when F11 is exactly singular).
     """
     if k == 0:
         return 1.0
-    # F11 = P L U and F12 <- F11^-1 F12 (zgesv), then F22 -= F21 F12 (zgemm).
     info = _xgesv(_KIND, k, b, front.ctypes, f, ipiv.ctypes, front[k * f:].ctypes, f)
     if info != 0:
         return 0.0
@@ -71,22 +85,218 @@ def _eliminate(front, f, k, b, ipiv, scal, symmetric):
         u = abs(front[j * f + j])
         small = min(small, u)
         large = max(large, u)
-    if b > 0 and not symmetric:
-        _xxgemm(_KIND, _NOTRANS, _NOTRANS, b, b, k, scal.ctypes, front[k:].ctypes, f, front[k * f:].ctypes, f,
-                scal[1:].ctypes, front[k * f + k:].ctypes, f)
-    elif b > 0:
-        for j0 in range(0, b, SYMMETRIC_PANEL):
-            w = min(SYMMETRIC_PANEL, b - j0)
-            # F22[j0:, j0:j0+w] -= F21[j0:, :] X[:, j0:j0+w]
-            _xxgemm(_KIND, _NOTRANS, _NOTRANS, b - j0, w, k, scal.ctypes, front[k + j0:].ctypes, f,
-                    front[(k + j0) * f:].ctypes, f, scal[1:].ctypes, front[(k + j0) * f + k + j0:].ctypes, f)
     return small / large if large > 0 else 0.0
 
 
 @njit(cache=True)
-def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_pos,
-                    entry_val, front_max, stack_max, symmetric, out_root, out_pivot):
-    """Eliminate every non-root unknown and return the root's Schur complement, for many energies.
+def _update(front, f, k, b, scal, symmetric):
+    """``F22 <- F22 - F21 F12`` (zgemm); with ``symmetric`` (``F = F^T``: real H) only the lower triangle,
+    column panel by column panel: about half of the ``k b^2`` multiply-adds."""
+    if b == 0 or k == 0:
+        return
+    if not symmetric:
+        _xxgemm(_KIND, _NOTRANS, _NOTRANS, b, b, k, scal.ctypes, front[k:].ctypes, f, front[k * f:].ctypes, f,
+                scal[1:].ctypes, front[k * f + k:].ctypes, f)
+        return
+    for j0 in range(0, b, SYMMETRIC_PANEL):
+        w = min(SYMMETRIC_PANEL, b - j0)
+        # F22[j0:, j0:j0+w] -= F21[j0:, :] F12[:, j0:j0+w]
+        _xxgemm(_KIND, _NOTRANS, _NOTRANS, b - j0, w, k, scal.ctypes, front[k + j0:].ctypes, f,
+                front[(k + j0) * f:].ctypes, f, scal[1:].ctypes, front[(k + j0) * f + k + j0:].ctypes, f)
+
+
+@njit(cache=True)
+def _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children, map_ptr,
+              parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric):
+    """Front of node v: ``z - H`` entries, then every child's pushed square (update, or a whole delayed front).
+
+    The front is ``[delayed-in (d), eliminated (k), boundary]``; a child's first ``d_out[c]`` unknowns are
+    delayed ones and take the next delayed slots, its others map through ``parent_pos`` (shifted by d).
+    """
+    front[:f * f] = 0.0
+    for t in range(entry_ptr[v], entry_ptr[v + 1]):
+        front[(entry_col[t] + d) * f + entry_row[t] + d] += entry_val[t]
+    for i in range(k):
+        front[(d + i) * f + d + i] += z
+    slot = 0
+    for ci in range(child_ptr[v], child_ptr[v + 1]):
+        c = children[ci]
+        s = sq_out[c]
+        dc = d_out[c]
+        for i in range(dc):
+            pos_buf[i] = slot + i
+        slot += dc
+        m0 = map_ptr[c]
+        for i in range(s - dc):
+            pos_buf[dc + i] = d + parent_pos[m0 + i]
+        src = upd_off[c]
+        if symmetric:  # the pushed square holds its lower triangle
+            for j in range(s):
+                pj = pos_buf[j]
+                front[pj * f + pj] += stack[src + j]
+                for i in range(j + 1, s):
+                    pi = pos_buf[i]
+                    val = stack[src + i]
+                    front[pj * f + pi] += val
+                    front[pi * f + pj] += val
+                src += s
+        else:
+            for j in range(s):
+                col = pos_buf[j] * f
+                for i in range(s):
+                    front[col + pos_buf[i]] += stack[src + i]
+                src += s
+
+
+@njit(cache=True)
+def _push(front, f, first, size, stack, sp, symmetric):
+    """Copy the square ``front[first:first+size, first:first+size]`` onto the stack at ``sp`` (lower triangle
+    only when symmetric); returns the largest ``|re| + |im|`` copied."""
+    growth = 0.0
+    for j in range(size):
+        src = (first + j) * f + first
+        for i in range(j if symmetric else 0, size):
+            val = front[src + i]
+            stack[sp + j * size + i] = val
+            growth = max(growth, abs(val.real) + abs(val.imag))
+    return growth
+
+
+#: Starting vectors of the block inverse iteration that finds a front's near-null space.
+NULL_BLOCK = 8
+#: A Ritz direction whose residual ``||F11 q||`` is below this fraction of ``max |U_jj|`` counts as near-null
+#: (ten times the delay threshold's scale, so that removing it lifts the pivots above that threshold).
+NULL_RESIDUAL = 1e-4
+
+
+@njit(cache=True)
+def _lu_solve(lu, f, n, ipiv, x, m):
+    """``x <- F11^-1 x`` for ``m`` columns (``x`` column-major, leading dimension n) with F11 = P L U
+    stored in ``lu`` (leading dimension f, LAPACK getrf layout).  An exactly zero pivot is replaced by
+    ``1e-14 max |U_jj|``: the solve then amplifies that null direction, which is what it is used for."""
+    tiny = 0.0
+    for j in range(n):
+        tiny = max(tiny, abs(lu[j * f + j]))
+    tiny = max(tiny * 1e-14, 1e-300)
+    for i in range(n):
+        p = ipiv[i] - 1
+        if p != i:
+            for c in range(m):
+                tmp = x[c * n + i]
+                x[c * n + i] = x[c * n + p]
+                x[c * n + p] = tmp
+    for c in range(m):
+        o = c * n
+        for j in range(n):
+            xj = x[o + j]
+            if xj != 0:
+                for i in range(j + 1, n):
+                    x[o + i] -= lu[j * f + i] * xj
+        for j in range(n - 1, -1, -1):
+            u = lu[j * f + j]
+            x[o + j] /= u if u != 0 else tiny
+            xj = x[o + j]
+            for i in range(j):
+                x[o + i] -= lu[j * f + i] * xj
+
+
+@njit(cache=True)
+def _lu_apply(lu, f, n, ipiv, x, y, m):
+    """``y <- F11 x`` from the factors: ``P (L (U x))``."""
+    for c in range(m):
+        o = c * n
+        for i in range(n):
+            acc = 0j
+            for j in range(i, n):
+                acc += lu[j * f + i] * x[o + j]
+            y[o + i] = acc
+        for i in range(n - 1, -1, -1):
+            acc = y[o + i]
+            for j in range(i):
+                acc += lu[j * f + i] * y[o + j]
+            y[o + i] = acc
+    for i in range(n - 1, -1, -1):
+        p = ipiv[i] - 1
+        if p != i:
+            for c in range(m):
+                tmp = y[c * n + i]
+                y[c * n + i] = y[c * n + p]
+                y[c * n + p] = tmp
+
+
+@njit(cache=True)
+def _near_null_unknowns(lu, f, n, ipiv, chosen):
+    """Unknowns to delay: one per near-null direction of F11 (factored in ``lu``); returns their count.
+
+    Block inverse iteration (two solves on ``NULL_BLOCK`` fixed pseudo-random vectors), Rayleigh-Ritz on
+    the result, the directions with residual below ``NULL_RESIDUAL max |U_jj|``, then greedy selection
+    (QR with column pivoting on the transposed basis): the unknown with the largest weight in what is
+    left of the near-null space, deflated, and again.  At least one unknown is chosen.
+    """
+    m = min(n, NULL_BLOCK)
+    x = np.empty(n * m, dtype=np.complex128)
+    seed = 12345
+    for i in range(n * m):  # fixed linear congruential sequence: reproducible results
+        seed = (seed * 1103515245 + 12345) % 2147483648
+        re = seed / 2147483648.0 - 0.5
+        seed = (seed * 1103515245 + 12345) % 2147483648
+        x[i] = re + 1j * (seed / 2147483648.0 - 0.5)
+    _lu_solve(lu, f, n, ipiv, x, m)
+    for c in range(m):  # normalise between the two solves (the amplification can reach 1/delta^2)
+        nrm = np.sqrt(np.sum(np.abs(x[c * n:(c + 1) * n]) ** 2))
+        if nrm > 0:
+            x[c * n:(c + 1) * n] /= nrm
+    _lu_solve(lu, f, n, ipiv, x, m)
+    q = x.reshape(m, n).T.copy()  # (n, m)
+    q, _ = np.linalg.qr(q)
+    y = np.empty(n * m, dtype=np.complex128)
+    qf = q.T.copy().reshape(n * m)
+    _lu_apply(lu, f, n, ipiv, qf, y, m)
+    ym = y.reshape(m, n).T.copy()
+    gram = ym.conj().T @ ym
+    lam, z = np.linalg.eigh(gram)  # ascending: the smallest residuals first
+    scale = 0.0
+    for j in range(n):
+        scale = max(scale, abs(lu[j * f + j]))
+    r = 0
+    for j in range(m):
+        if np.sqrt(max(lam[j], 0.0)) < NULL_RESIDUAL * scale:
+            r += 1
+    r = max(r, 1)
+    basis = np.ascontiguousarray(q) @ np.ascontiguousarray(z[:, :r])  # (n, r) near-null directions
+    weight = np.zeros(n)
+    for i in range(n):
+        weight[i] = np.sum(np.abs(basis[i, :]) ** 2)
+    for t in range(r):
+        best = np.argmax(weight)
+        chosen[t] = best
+        row = basis[best, :].copy()
+        nrm = np.sqrt(np.sum(np.abs(row) ** 2))
+        if nrm == 0:
+            return t
+        row /= nrm
+        for i in range(n):  # deflate: remove that direction from every unknown's row
+            proj = np.sum(basis[i, :] * np.conj(row))
+            basis[i, :] -= proj * row
+            weight[i] = np.sum(np.abs(basis[i, :]) ** 2)
+        weight[best] = -1.0
+    return r
+
+
+@njit(cache=True)
+def _permute(src, dst, f, perm):
+    """``dst[i, j] = src[perm[i], perm[j]]`` for f x f column-major squares."""
+    for j in range(f):
+        cj = perm[j] * f
+        for i in range(f):
+            dst[j * f + i] = src[cj + perm[i]]
+
+
+@njit(cache=True)
+def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_row,
+                    entry_col, entry_val, front_max, stack_max, symmetric, pivot_delay, delay_max,
+                    out_root, out_delayed, out_pivot, out_growth, out_status):
+    """Eliminate every non-root unknown and return the root's front, for many energies.
 
     Parameters
     ----------
@@ -96,80 +306,124 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
         Fully summed and boundary unknowns of each node, postorder (root last, ``n_bound = 0`` there).
     child_ptr, children : int64
         Children of node v are ``children[child_ptr[v]:child_ptr[v + 1]]``, in the order they were
-        processed (so their update matrices lie on the stack in that order).
+        processed (so their pushed squares lie on the stack in that order).
     map_ptr, parent_pos : int64
-        Positions of node v's boundary unknowns in its parent's front: ``parent_pos[map_ptr[v]:map_ptr[v+1]]``.
-    entry_ptr, entry_pos, entry_val
-        Matrix entries ``-H`` assembled into node v's front at flat column-major positions
-        ``entry_pos[entry_ptr[v]:entry_ptr[v+1]]`` (values ``entry_val``, complex, meV); ``z`` is added on
-        the diagonal of the fully summed block (of every root unknown at the root).
+        Positions of node v's boundary unknowns in its parent's (undelayed) front:
+        ``parent_pos[map_ptr[v]:map_ptr[v + 1]]``.
+    entry_ptr, entry_row, entry_col, entry_val
+        Entries of ``-H`` assembled into node v's front (undelayed row and column, value in meV):
+        ``[entry_ptr[v]:entry_ptr[v + 1]]``; ``z`` is added on the diagonal of the eliminated block (of every
+        root unknown at the root).
     front_max, stack_max : int
-        Largest front (rows) and the peak of the update stack (entries), from the plan.
+        Largest front (rows) and the peak of the update stack (entries) without delays, from the plan.
     symmetric : bool
-        The matrix ``z - H`` is complex symmetric (real H): update matrices are formed and read as their
-        lower triangles only.
-    out_root : (n_E, k_root, k_root) complex
-        Filled with ``(z - H)_II - H_IX (z - H_XX)^-1 H_XI`` on the root unknowns I.
+        ``z - H`` is complex symmetric (real H): pushed squares are formed and read as lower triangles.
+    pivot_delay : float
+        A front whose ``F11`` has a relative pivot below this is delayed instead of eliminated.
+    delay_max : int
+        Most delayed unknowns one front (the root included) may receive.
+    out_root : (n_E, m, m) complex, m >= k_root + delay_max
+        Filled with the root's front: ``[delayed (out_delayed[e]), root unknowns]`` square, the Schur
+        complement of everything else, ``(z - H)_II - H_IX (z - H_XX)^-1 H_XI`` when nothing was delayed.
+    out_delayed : (n_E,) int64
+        Delayed unknowns that reached the root.
     out_pivot : (n_E,) float
-        Filled with the smallest relative pivot ``min |U_jj| / max |U_jj|`` met in any front (0 if one was
-        exactly singular): a small value marks an energy near an eigenvalue of a closed subdomain, where
-        the elimination loses accuracy.
+        Smallest relative pivot of the eliminations that were accepted.
+    out_growth : (n_E,) float
+        Largest ``|re| + |im|`` of any pushed update entry (meV): the elimination's growth.
+    out_status : (n_E,) int64
+        ``OK``, or why the energy was abandoned (``TOO_MANY_DELAYS``, ``STACK_FULL``).
     """
     n_nodes = n_elim.shape[0]
-    front = np.empty(max(front_max * front_max, 1), dtype=np.complex128)
-    stack = np.empty(max(stack_max, 1), dtype=np.complex128)
+    f_cap = front_max + delay_max
+    front = np.empty(max(f_cap * f_cap, 1), dtype=np.complex128)
+    spare = np.empty(max(f_cap * f_cap, 1), dtype=np.complex128)
+    perm = np.empty(max(f_cap, 1), dtype=np.int64)
+    chosen = np.empty(NULL_BLOCK, dtype=np.int64)
+    stack_cap = stack_max + 2 * f_cap * f_cap
+    stack = np.empty(max(stack_cap, 1), dtype=np.complex128)
     upd_off = np.zeros(n_nodes, dtype=np.int64)
-    ipiv = np.empty(max(front_max, 1), dtype=np.int32)
+    d_out = np.zeros(n_nodes, dtype=np.int64)
+    sq_out = np.zeros(n_nodes, dtype=np.int64)
+    ipiv = np.empty(max(f_cap, 1), dtype=np.int32)
+    pos_buf = np.empty(max(f_cap, 1), dtype=np.int64)
     scal = np.array([-1.0 + 0j, 1.0 + 0j])
     root = n_nodes - 1
     for e in range(z_all.shape[0]):
         z = z_all[e]
         sp = 0
         worst = 1.0
+        growth = 0.0
+        status = OK
+        out_delayed[e] = 0
         for v in range(n_nodes):
             k = n_elim[v]
             b = n_bound[v]
-            f = k + b
-            front[:f * f] = 0.0
-            for t in range(entry_ptr[v], entry_ptr[v + 1]):
-                front[entry_pos[t]] += entry_val[t]
-            for i in range(k):
-                front[i * f + i] += z
+            d = 0
             c0 = child_ptr[v]
             c1 = child_ptr[v + 1]
-            for ci in range(c0, c1):  # extend-add of the children's update matrices
-                c = children[ci]
-                bc = n_bound[c]
-                src = upd_off[c]
-                m0 = map_ptr[c]
-                if symmetric:
-                    for j in range(bc):
-                        pj = parent_pos[m0 + j]
-                        front[pj * f + pj] += stack[src + j]
-                        for i in range(j + 1, bc):
-                            pi = parent_pos[m0 + i]
-                            val = stack[src + i]
-                            front[pj * f + pi] += val
-                            front[pi * f + pj] += val
-                        src += bc
-                else:
-                    for j in range(bc):
-                        col = parent_pos[m0 + j] * f
-                        for i in range(bc):
-                            front[col + parent_pos[m0 + i]] += stack[src + i]
-                        src += bc
-            if c1 > c0:
-                sp = upd_off[children[c0]]  # pop them all: they were the top of the stack
-            if v == root:
-                for j in range(k):
-                    for i in range(k):
-                        out_root[e, i, j] = front[j * f + i]
+            for ci in range(c0, c1):
+                d += d_out[children[ci]]
+            if d > delay_max:
+                status = TOO_MANY_DELAYS
                 break
-            worst = min(worst, _eliminate(front, f, k, b, ipiv, scal, symmetric))
-            upd_off[v] = sp
-            for j in range(b):  # push the update matrix F22 (b x b, column-major)
-                src = (k + j) * f + k
-                for i in range(b):
-                    stack[sp + i] = front[src + i]
-                sp += b
+            f = d + k + b
+            _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                      map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+            base = upd_off[children[c0]] if c1 > c0 else sp  # pop the children: they are the stack's top
+            if v == root:
+                for j in range(f):
+                    for i in range(f):
+                        out_root[e, i, j] = front[j * f + i]
+                out_delayed[e] = d
+                break
+            kk = d + k
+            pivot = _factor(front, f, kk, b, ipiv)
+            r = 0
+            if pivot < pivot_delay:
+                # Partial delay: the unknowns carrying F11's near-null directions go to the parent.
+                r = _near_null_unknowns(front, f, kk, ipiv, chosen)
+                _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                          map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+                n_keep = 0
+                for i in range(kk):
+                    keep = True
+                    for t in range(r):
+                        if chosen[t] == i:
+                            keep = False
+                    if keep:
+                        perm[n_keep] = i
+                        n_keep += 1
+                for t in range(r):
+                    perm[n_keep + t] = chosen[t]
+                for i in range(kk, f):
+                    perm[i] = i
+                _permute(front, spare, f, perm)
+                front, spare = spare, front
+                pivot = _factor(front, f, kk - r, b + r, ipiv)
+            if pivot >= pivot_delay:
+                worst = min(worst, pivot)
+                _update(front, f, kk - r, b + r, scal, symmetric)
+                sq = b + r
+                if base + sq * sq > stack_cap:
+                    status = STACK_FULL
+                    break
+                growth = max(growth, _push(front, f, kk - r, sq, stack, base, symmetric))
+                d_out[v] = r
+                sq_out[v] = sq
+                upd_off[v] = base
+                sp = base + sq * sq
+            else:  # delay everything: re-assemble (the children's squares are still on the stack), push whole
+                if base + f * f > stack_cap:
+                    status = STACK_FULL
+                    break
+                _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                          map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+                _push(front, f, 0, f, stack, base, symmetric)
+                d_out[v] = kk
+                sq_out[v] = f
+                upd_off[v] = base
+                sp = base + f * f
         out_pivot[e] = worst
+        out_growth[e] = growth
+        out_status[e] = status

@@ -36,11 +36,14 @@ potentials or the field share it); the Hamiltonian's values are scattered into
 it once per model (:func:`dissection_plan`, cached on the model).  Per energy
 only the compiled elimination runs (:mod:`rgftrans.transport._frontal`).
 
-Accuracy: a subdomain is a *closed* system, singular at its own eigenvalues.
-An energy that falls within about ``PIVOT_RTOL`` (relative) of one of them
-makes the elimination lose accuracy (exactly on one -- a clean square's band
-centre, for instance -- it fails outright).  The kernel reports the smallest
-relative pivot met; the callers redo such energies by another route.
+Accuracy: a subdomain is a *closed* system, singular at its own eigenvalues
+(a clean square has them at the band centre and at 4t +- t, among others).
+A front whose pivot falls below ``PIVOT_DELAY`` is not eliminated: its
+unknowns are delayed to the parent, whose larger subdomain is regular there
+(:mod:`rgftrans.transport._frontal`); at the root the leads open the system.
+An energy where the delays exceed their cap, or the growth or the root's
+pivot is out of bounds, is reported untrusted and the callers redo it by
+another route.
 """
 
 from __future__ import annotations
@@ -57,17 +60,29 @@ from rgftrans.leads.embedding import broadening, device_energy, gamma_factor, le
 from rgftrans.system.device import TightBindingModel
 
 __all__ = ["DissectionTree", "DissectionPlan", "dissection_tree", "dissection_plan", "root_schur",
-           "DissectionSolve", "dissection_solve", "LEAF_ORBITALS", "PIVOT_RTOL"]
+           "DissectionSolve", "dissection_solve", "clear_tree_cache"]
 
 #: Subdomains of at most this many orbitals are leaves (eliminated densely in one front).  Leaves of
 #: ~30-60 orbitals balance the leaf's own cubic cost against per-front overhead (measured on the square
 #: lattice: 32-64 within 10 % of each other; see DEVELOPERS.md, "Nested dissection").
 LEAF_ORBITALS = 48
-#: Smallest relative pivot ``min |U_jj| / max |U_jj|`` of a front that is trusted.  The elimination's
-#: error grows like machine epsilon over this ratio (a subdomain eigenvalue at distance delta from the
-#: energy amplifies round-off by ~t/delta), so 1e-8 bounds that amplification to ~1e-8 of the
-#: transmission; energies below it are redone by the caller.
-PIVOT_RTOL = 1e-8
+#: A front whose ``F11`` has a relative pivot ``min |U_jj| / max |U_jj|`` below this is not eliminated but
+#: delayed to its parent (:mod:`rgftrans.transport._frontal`).  Clean devices near an energy where nested
+#: subdomains are singular at once lose ~eps / pivot^3 (measured on clean 8..24-site squares: pivots of
+#: 2e-6 cost 1e-10 of T, pivots of 2e-5 nothing above round-off), disordered ones ~eps / pivot; 1e-5
+#: keeps both at round-off, and delays in disordered devices stay rare (under 10 % of energies at 256^2,
+#: each moving one front's unknowns up one level).
+PIVOT_DELAY = 1e-5
+#: Delayed unknowns one front may receive, as a fraction of the largest planned front (and at least
+#: ``DELAY_MIN``): more means whole regions are singular at this energy, and the energy is redone by RGF or
+#: a sparse direct solve.
+DELAY_FRACTION = 0.5
+DELAY_MIN = 64
+#: An energy is trusted only if the elimination's growth (largest update entry over the largest entry of
+#: ``z - H``) stays below this and the root's LU (which includes the leads) has a relative pivot above
+#: ``ROOT_PIVOT_MIN``; round-off then stays below ~1e-6 relative even in the worst case.
+GROWTH_MAX = 1e10
+ROOT_PIVOT_MIN = 1e-13
 #: Use the symmetric update for real Hamiltonians (see :func:`rgftrans.transport._frontal._eliminate`).
 SYMMETRIC_FRONTS = True
 #: Geometries whose trees are kept (sweeps revisit a few geometries; each tree holds O(N log N) integers).
@@ -98,8 +113,10 @@ class DissectionTree:
         Children of node v: ``children[child_ptr[v]:child_ptr[v + 1]]``, in processing order.
     map_ptr, parent_pos : int64 ndarray
         Positions of node v's boundary unknowns in its parent's front.
-    entry_ptr, entry_pos : int64 ndarray
-        Flat column-major positions in node v's front of the Hamiltonian entries it assembles.
+    entry_ptr : int64 ndarray
+        Entries assembled into node v: ``[entry_ptr[v]:entry_ptr[v + 1]]``.
+    entry_row, entry_col : int32 ndarray
+        Row and column of each assembled Hamiltonian entry in its node's front.
     entry_key : (n_entries,) int64 ndarray
         ``row * n_orbitals + col`` of each assembled entry (the plan looks the values up by it).
     front_max, stack_max : int
@@ -118,7 +135,8 @@ class DissectionTree:
     map_ptr: np.ndarray
     parent_pos: np.ndarray
     entry_ptr: np.ndarray
-    entry_pos: np.ndarray
+    entry_row: np.ndarray
+    entry_col: np.ndarray
     entry_key: np.ndarray
     front_max: int
     stack_max: int
@@ -155,7 +173,7 @@ class DissectionTree:
         """Memory held by the tree's index arrays (bytes)."""
         return sum(getattr(self, name).nbytes for name in (
             "root_orbitals", "n_elim", "n_bound", "child_ptr", "children", "map_ptr", "parent_pos", "entry_ptr",
-            "entry_pos", "entry_key", "elim_orbitals", "_key_order"))
+            "entry_row", "entry_col", "entry_key", "elim_orbitals", "_key_order"))
 
 
 def _site_graph(model: TightBindingModel) -> sp.csr_matrix:
@@ -347,7 +365,7 @@ def _build_tree(model: TightBindingModel, adj: sp.csr_matrix, leaf_sites: int) -
     o = np.arange(norbs)
     child_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
     children, parent_pos, map_len = [], [], np.zeros(n_nodes, dtype=np.int64)
-    entry_pos, entry_key = [], []
+    entry_row, entry_col, entry_key = [], [], []
     for node in order:
         v = node.index
         front_sites = np.concatenate([node.sites, node.bound])
@@ -363,7 +381,9 @@ def _build_tree(model: TightBindingModel, adj: sp.csr_matrix, leaf_sites: int) -
         s, t = pair_s[sel], pair_t[sel]
         rows = (where[s][:, None, None] * norbs + o[None, :, None])  # (n_pairs, norbs, 1)
         cols = (where[t][:, None, None] * norbs + o[None, None, :])  # (n_pairs, 1, norbs)
-        entry_pos.append((cols * f + rows).ravel())
+        rows, cols = np.broadcast_arrays(rows, cols)
+        entry_row.append(rows.ravel())
+        entry_col.append(cols.ravel())
         orb_s = (s[:, None, None] * norbs + o[None, :, None])
         orb_t = (t[:, None, None] * norbs + o[None, None, :])
         entry_key.append((orb_s * n_orb + orb_t).ravel())
@@ -372,8 +392,9 @@ def _build_tree(model: TightBindingModel, adj: sp.csr_matrix, leaf_sites: int) -
     flat_pos = np.zeros(map_ptr[-1], dtype=np.int64)
     for index, pos in parent_pos:
         flat_pos[map_ptr[index]:map_ptr[index + 1]] = pos
-    entry_ptr = np.concatenate([[0], np.cumsum([len(p) for p in entry_pos])]).astype(np.int64)
-    entry_pos = np.concatenate(entry_pos).astype(np.int64)
+    entry_ptr = np.concatenate([[0], np.cumsum([len(p) for p in entry_row])]).astype(np.int64)
+    entry_row = np.concatenate(entry_row).astype(np.int32)
+    entry_col = np.concatenate(entry_col).astype(np.int32)
     entry_key = np.concatenate(entry_key).astype(np.int64)
 
     root_orbitals = (lead_sites[:, None] * norbs + o).ravel()
@@ -382,7 +403,7 @@ def _build_tree(model: TightBindingModel, adj: sp.csr_matrix, leaf_sites: int) -
     return DissectionTree(
         n_orbitals=n_orb, root_orbitals=root_orbitals, lead_slots=lead_slots, n_elim=n_elim, n_bound=n_bound,
         child_ptr=child_ptr, children=np.array(children, dtype=np.int64), map_ptr=map_ptr, parent_pos=flat_pos,
-        entry_ptr=entry_ptr, entry_pos=entry_pos, entry_key=entry_key,
+        entry_ptr=entry_ptr, entry_row=entry_row, entry_col=entry_col, entry_key=entry_key,
         front_max=int(np.max(n_elim + n_bound)), stack_max=int(top.peak),
         elim_orbitals=(elim_sites[:, None] * norbs + o).ravel().astype(np.int64),
         _key_order=np.argsort(entry_key, kind="stable"),
@@ -406,11 +427,16 @@ class DissectionPlan:
     symmetric: bool
 
 
-def dissection_plan(model: TightBindingModel) -> DissectionPlan:
-    """The model's dissection tree and assembly values, computed once and kept in ``model.cache.dissection``."""
-    plan = model.cache.dissection
+def dissection_plan(model: TightBindingModel, tree: DissectionTree | None = None) -> DissectionPlan:
+    """The model's dissection tree and assembly values.
+
+    Without ``tree`` the default tree is used and the plan is computed once and kept in
+    ``model.cache.dissection``; with one (e.g. another leaf size) the plan is built for it and not kept.
+    """
+    plan = model.cache.dissection if tree is None else None
     if plan is None:
-        tree = dissection_tree(model)
+        keep = tree is None
+        tree = dissection_tree(model) if tree is None else tree
         coo = model.hamiltonian.tocoo()
         keys = coo.row.astype(np.int64) * tree.n_orbitals + coo.col
         sorted_keys = tree.entry_key[tree._key_order]
@@ -421,7 +447,8 @@ def dissection_plan(model: TightBindingModel) -> DissectionPlan:
         np.add.at(values, tree._key_order[at], -coo.data)
         plan = DissectionPlan(tree=tree, entry_val=values,
                               symmetric=bool(SYMMETRIC_FRONTS and not np.any(coo.data.imag)))
-        model.cache.dissection = plan
+        if keep:
+            model.cache.dissection = plan
     return plan
 
 
@@ -429,8 +456,13 @@ def dissection_plan(model: TightBindingModel) -> DissectionPlan:
 ROOT_CHUNK_BYTES = 64 * 2**20
 
 
-def root_schur(plan: DissectionPlan, z_all) -> tuple[np.ndarray, np.ndarray]:
-    """Schur complements ``S_II(z) = (z - H)_II - H_IX (z - H_XX)^-1 H_XI`` on the root unknowns.
+def delay_max(tree: DissectionTree) -> int:
+    """Most delayed unknowns one front may receive (see :data:`DELAY_FRACTION`)."""
+    return max(DELAY_MIN, int(DELAY_FRACTION * tree.front_max))
+
+
+def root_schur(plan: DissectionPlan, z_all):
+    """The root's front after eliminating everything else, at each energy.
 
     Parameters
     ----------
@@ -439,21 +471,28 @@ def root_schur(plan: DissectionPlan, z_all) -> tuple[np.ndarray, np.ndarray]:
 
     Returns
     -------
-    schur : (n_E, k, k) complex ndarray, meV
-        Rows and columns in the order of ``plan.tree.root_orbitals``.
-    pivot : (n_E,) float ndarray
-        Smallest relative pivot met in any front (see :data:`PIVOT_RTOL`).
+    root : (n_E, m, m) complex ndarray, meV
+        ``root[e, :d+k, :d+k]`` with ``d = delayed[e]``: the ``d`` delayed unknowns first, then the root
+        unknowns in the order of ``plan.tree.root_orbitals``.  With ``d = 0`` it is the Schur complement
+        ``S_II(z) = (z - H)_II - H_IX (z - H_XX)^-1 H_XI``.
+    delayed, pivot, growth, status : (n_E,) ndarrays
+        See :func:`rgftrans.transport._frontal.schur_onto_root`.
     """
     from rgftrans.transport._frontal import schur_onto_root
 
     t = plan.tree
     z_all = np.atleast_1d(np.asarray(z_all, dtype=complex))
-    k = t.root_size
-    schur = np.empty((len(z_all), k, k), dtype=complex)
-    pivot = np.empty(len(z_all))
+    n_e = len(z_all)
+    cap = delay_max(t)
+    m = t.root_size + cap
+    root = np.empty((n_e, m, m), dtype=complex)
+    delayed = np.zeros(n_e, dtype=np.int64)
+    pivot, growth = np.empty(n_e), np.empty(n_e)
+    status = np.zeros(n_e, dtype=np.int64)
     schur_onto_root(z_all, t.n_elim, t.n_bound, t.child_ptr, t.children, t.map_ptr, t.parent_pos, t.entry_ptr,
-                    t.entry_pos, plan.entry_val, t.front_max, t.stack_max, plan.symmetric, schur, pivot)
-    return schur, pivot
+                    t.entry_row, t.entry_col, plan.entry_val, t.front_max, t.stack_max, plan.symmetric, PIVOT_DELAY,
+                    cap, root, delayed, pivot, growth, status)
+    return root, delayed, pivot, growth, status
 
 
 # --------------------------------------------------------------------------
@@ -472,10 +511,14 @@ class DissectionSolve:
     n_open : (n_E, n_leads) int ndarray
     at_threshold : (n_E,) bool ndarray
     trusted : (n_E,) bool ndarray
-        False where a front's pivot fell below :data:`PIVOT_RTOL` or the root was singular: the caller
-        redoes those energies.
+        False where the delays exceeded their cap, the growth exceeded :data:`GROWTH_MAX` or the root's
+        pivot fell below :data:`ROOT_PIVOT_MIN`: the caller redoes those energies.
     pivot : (n_E,) float ndarray
-        Smallest relative pivot of the elimination (fronts and root).
+        Smallest relative pivot of the eliminations that were accepted.
+    delayed : (n_E,) int ndarray
+        Delayed unknowns that reached the root (0 unless a large region is singular at that energy).
+    growth : (n_E,) float ndarray
+        Largest update-matrix entry over the largest entry of ``z - H`` (the elimination's growth factor).
     """
 
     matrix: np.ndarray
@@ -483,39 +526,59 @@ class DissectionSolve:
     at_threshold: np.ndarray
     trusted: np.ndarray
     pivot: np.ndarray
+    growth: np.ndarray
+    delayed: np.ndarray
 
 
-def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float = 0.0) -> DissectionSolve:
-    """All ``T_pq`` and ``R_pp`` by nested dissection (energies and eta checked by the caller; meV)."""
-    plan = dissection_plan(model)
+def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float = 0.0, *,
+                     plan: DissectionPlan | None = None) -> DissectionSolve:
+    """All ``T_pq`` and ``R_pp`` by nested dissection (energies and eta in meV, checked by the caller).
+
+    ``plan`` defaults to the model's own (:func:`dissection_plan`).
+    """
+    energies = np.atleast_1d(np.asarray(energies, dtype=float))
+    plan = dissection_plan(model) if plan is None else plan
     tree = plan.tree
     n_e, n_leads = len(energies), len(model.leads)
-    k = tree.root_size
-    chunk = max(1, min(64, ROOT_CHUNK_BYTES // (16 * k * k)))
+    m = tree.root_size + delay_max(tree)
+    chunk = max(1, min(64, ROOT_CHUNK_BYTES // (16 * m * m)))
     matrix = np.full((n_e, n_leads, n_leads), np.nan)
     n_open = np.zeros((n_e, n_leads), dtype=np.int64)
     at_threshold = np.zeros(n_e, dtype=bool)
     pivot = np.zeros(n_e)
+    growth = np.zeros(n_e)
+    delayed = np.zeros(n_e, dtype=np.int64)
+    ok = np.zeros(n_e, dtype=bool)
+    h_max = float(np.abs(plan.entry_val).max(initial=0.0))
     for start in range(0, n_e, chunk):
         sel = range(start, min(start + chunk, n_e))
         lead_terms = [lead_self_energies(model, energies[i], warn=False) for i in sel]
         z_all = [device_energy(energies[i], modes, eta) for i, (_, modes) in zip(sel, lead_terms)]
-        schur, piv = root_schur(plan, z_all)
+        root, dly, piv, grow, status = root_schur(plan, z_all)
         for j, i in enumerate(sel):
             sigmas, modes = lead_terms[j]
             at_threshold[i] = any(m.at_threshold for m in modes)
             n_open[i] = [m.n_open for m in modes]
-            matrix[i], root_pivot = _lead_matrix(schur[j], sigmas, n_open[i], tree.lead_slots)
-            pivot[i] = min(piv[j], root_pivot)
-    trusted = (pivot >= PIVOT_RTOL) & np.all(np.isfinite(matrix), axis=(1, 2))
+            delayed[i] = dly[j]
+            growth[i] = grow[j] / (h_max + abs(z_all[j]))
+            pivot[i] = piv[j]
+            if status[j] != 0:
+                continue
+            size = dly[j] + tree.root_size
+            matrix[i], root_pivot = _lead_matrix(root[j, :size, :size], sigmas, n_open[i],
+                                                 [dly[j] + slots for slots in tree.lead_slots])
+            ok[i] = root_pivot >= ROOT_PIVOT_MIN
+    trusted = ok & (growth <= GROWTH_MAX) & np.all(np.isfinite(matrix), axis=(1, 2))
     matrix[~trusted] = np.nan
-    return DissectionSolve(matrix=matrix, n_open=n_open, at_threshold=at_threshold, trusted=trusted, pivot=pivot)
+    return DissectionSolve(matrix=matrix, n_open=n_open, at_threshold=at_threshold, trusted=trusted, pivot=pivot,
+                           growth=growth, delayed=delayed)
 
 
 def _lead_matrix(schur: np.ndarray, sigmas, n_open, lead_slots) -> tuple[np.ndarray, float]:
-    """``T_pq`` and ``R_pp`` from the root's Schur complement: ``G_II = (S - Sigma)^-1``, ``M = W^dag G_II W``.
+    """``T_pq`` and ``R_pp`` from the root's front: ``G = (S - Sigma)^-1`` on it, ``M = W^dag G W``.
 
-    ``schur`` is overwritten.  Returns the matrix and the smallest relative pivot of the root's LU.
+    ``schur`` (the root front, delayed unknowns first) is overwritten; ``lead_slots`` are the leads' rows in
+    it.  Returns the matrix and the smallest relative pivot of the LU.
     """
     a = schur
     n_leads = len(sigmas)
