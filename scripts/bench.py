@@ -1,23 +1,39 @@
-"""Benchmark: RGF transmission against a sparse direct solve and the LAPACK floor.
+"""Benchmark: the package's transmission (RGF or nested dissection, as it chooses) against a careful sparse solve.
 
-Prints tables, asserts nothing.  Every figure is a median over repeats, all in
-one process, so the ratios compare like with like on this machine:
+Prints tables, asserts nothing.  Every figure is the fastest of a few runs in one
+process, so the ratios compare like with like on this machine:
 
-* ours    -- rgftrans.transport.rgf.transmission, seconds per energy (energies batched);
-* sparse  -- scipy.sparse.linalg.splu of (E - H - Sigma_L - Sigma_R), solved for
-             the columns of the first interface, then Caroli's formula: the
-             route a user would write by hand (same lead self-energies);
-* floor   -- L back-to-back inversions of a dense W x W complex matrix, the
-             faster of numpy.linalg.inv on a stack and a compiled loop of
-             LAPACK inverses: the irreducible work of one RGF sweep;
-* LDOS    -- the full diagonal of G per energy (rgftrans.transport.local.ldos), as a ratio to ours.
+* ours    -- rgftrans.transport.rgf.transmission with solver="auto", seconds per
+             energy (energies batched), and the solver the package chose
+             ("rgf" or "dissection");
+* careful -- the sparse direct solve a careful user writes by hand: H converted
+             to CSC once, per energy ``E I - H - Sigma`` with the two
+             self-energy blocks added as one sparse COO matrix,
+             scipy.sparse.linalg.splu with the best of its column orderings
+             (COLAMD, MMD_AT_PLUS_A and MMD_ATA are each timed and the fastest
+             is kept, per size), solved for the first lead's interface columns,
+             then Caroli's formula (the lead self-energies are computed before
+             its timing starts, in its favour; ours computes them inside);
+* RGF     -- the package's RGF forced (``solver="rgf"``), for reference where it is
+             affordable (predicted under RGF_REFERENCE_MAX_S per energy);
+* floor   -- strips only: L back-to-back inversions of a dense W x W complex matrix
+             (the irreducible work of one RGF sweep);
+* LDOS    -- strips only: the diagonal of G by RGF per energy, as a ratio to RGF.
 
-System: a square-lattice strip, W x L sites, onsite disorder uniform in
-[-t/2, t/2] (seeded), clean leads, t = 1, energies in the lower quarter of the
-band where a semiconductor device works (E = 0.6 t .. 1.0 t above the band
-bottom: about W/6 open channels).
+Systems: square-lattice strips W x 400 and squares n x n, onsite disorder
+uniform in [-t/2, t/2] (seeded), clean leads on the left and right edges,
+t = 1, energies in the lower quarter of the band (E = 0.6 t .. 1.0 t above the
+band bottom).  The N-exponent is the slope of log(time) against log(N) over
+the square devices (N = n^2 sites).
 
-Usage: scripts/bench [--quick]
+An ordering that lost to the best by more than ORDERING_DROP at one square size
+is not tried at the next larger one (it only falls further behind; trying
+MMD_AT_PLUS_A at 512^2 would take many minutes).  That can only remove a
+losing candidate from the baseline, never a winner at the size where it was
+last measured.
+
+Usage: scripts/bench [--quick] [--squares 64 128 ...] [--widths 8 64 ...] [--big] [--calibrate]
+                     [--part length|memory|processes]
 """
 
 from __future__ import annotations
@@ -34,16 +50,22 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numba import njit
 
+from rgftrans.leads.embedding import lead_self_energies
+from rgftrans.leads.modes import clear_lead_cache
 from rgftrans.system.device import Device, Lead
 from rgftrans.system.fields import Disorder
 from rgftrans.system.geometry import rectangle
 from rgftrans.system.lattices import square
-from rgftrans.leads.modes import clear_lead_cache
+from rgftrans.transport.choice import choose_solver
 from rgftrans.transport.local import ldos
 from rgftrans.transport.rgf import transmission
-from rgftrans.leads.embedding import lead_self_energies
 
 ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
+ORDERINGS = ("COLAMD", "MMD_AT_PLUS_A", "MMD_ATA")
+#: An ordering slower than the best by this factor at one square size is not retried at the next.
+ORDERING_DROP = 3.0
+#: The forced-RGF reference column is measured only where RGF is predicted below this (s per energy).
+RGF_REFERENCE_MAX_S = 20.0
 
 
 def strip(width: int, length: int):
@@ -52,40 +74,63 @@ def strip(width: int, length: int):
     return Device(region, leads, lattice=square(1.0), hopping=1.0, disorder=Disorder(1.0, seed=1)).discretise()
 
 
-def median_time(fn, repeats: int) -> float:
+def best_time(fn, repeats: int) -> float:
+    """Fastest of ``repeats`` runs (s): on a machine shared with other work the minimum is the least disturbed
+    estimate, and every route in a table is measured the same way."""
     times = []
     for _ in range(repeats):
         t0 = time.perf_counter()
         fn()
         times.append(time.perf_counter() - t0)
-    return float(np.median(times))
+    return float(np.min(times))
 
 
-def ours_per_energy(model, repeats, energies=ENERGIES):
-    transmission(model, energies[:2])  # compile / warm the lead cache
-    return median_time(lambda: transmission(model, energies), repeats) / len(energies)
+def ours_per_energy(model, repeats, energies=ENERGIES, solver="auto"):
+    """Seconds per energy of the package's transmission and the solver it used (plans built before timing)."""
+    res = transmission(model, energies[:1], solver=solver)  # compile, plan, warm the lead cache
+    return best_time(lambda: transmission(model, energies, solver=solver), repeats) / len(energies), res.solver
 
 
-def sparse_per_energy(model, energies, repeats):
+def careful_sparse_solver(model):
+    """The careful by-hand sparse route: returns ``run(energies, ordering) -> T`` (see the module docstring)."""
     lead0, lead1 = model.leads
     n = model.n_orbitals
-    cache = [lead_self_energies(model, e, warn=False)[0] for e in energies]
+    h = sp.csc_matrix(model.hamiltonian)
+    eye = sp.identity(n, dtype=complex, format="csc")
+    r0, c0 = (a.ravel() for a in np.meshgrid(lead0.interface, lead0.interface, indexing="ij"))
+    r1, c1 = (a.ravel() for a in np.meshgrid(lead1.interface, lead1.interface, indexing="ij"))
+    rows, cols = np.concatenate([r0, r1]), np.concatenate([c0, c1])
+    rhs = np.zeros((n, len(lead0.interface)), dtype=complex)
+    rhs[lead0.interface, np.arange(len(lead0.interface))] = 1.0
+    sigma = {}
 
-    def run():
+    def run(energies, ordering):
         out = []
-        for e, (s0, s1) in zip(energies, cache):
-            a = (e * sp.identity(n, dtype=complex, format="csc") - model.hamiltonian).tolil()
-            a[np.ix_(lead0.interface, lead0.interface)] = a[np.ix_(lead0.interface, lead0.interface)].toarray() - s0
-            a[np.ix_(lead1.interface, lead1.interface)] = a[np.ix_(lead1.interface, lead1.interface)].toarray() - s1
-            lu = spla.splu(a.tocsc())
-            rhs = np.zeros((n, len(lead0.interface)), dtype=complex)
-            rhs[lead0.interface, np.arange(len(lead0.interface))] = 1
+        for e in energies:
+            s0, s1 = sigma[e]
+            sig = sp.coo_matrix((np.concatenate([s0.ravel(), s1.ravel()]), (rows, cols)), shape=(n, n))
+            lu = spla.splu((e * eye - h - sig).tocsc(), permc_spec=ordering)
             g10 = lu.solve(rhs)[lead1.interface]
             gam0, gam1 = 1j * (s0 - s0.conj().T), 1j * (s1 - s1.conj().T)
             out.append(np.trace(gam1 @ g10 @ gam0 @ g10.conj().T).real)
-        return out
+        return np.array(out)
 
-    return median_time(run, repeats) / len(energies)
+    def prepare(energies):
+        for e in energies:
+            sigma[e] = lead_self_energies(model, e, warn=False)[0]
+
+    return run, prepare
+
+
+def careful_per_energy(model, energies, repeats, orderings=ORDERINGS):
+    """Seconds per energy of the careful sparse route with its best ordering: (best, ordering, all timings)."""
+    run, prepare = careful_sparse_solver(model)
+    prepare(energies)  # the self-energies outside the timing (in the baseline's favour)
+    timings = {}
+    for ordering in orderings:
+        timings[ordering] = best_time(lambda: run(energies, ordering), repeats) / len(energies)
+    best = min(timings, key=timings.get)
+    return timings[best], best, timings
 
 
 @njit(cache=True)
@@ -102,12 +147,7 @@ def floor_per_sweep(width, length, repeats):
     stack = rng.normal(size=(length, width, width)) + 1j * rng.normal(size=(length, width, width))
     stack += 4 * width * np.eye(width)
     _inv_each(stack[:2])
-    return min(median_time(lambda: np.linalg.inv(stack), repeats), median_time(lambda: _inv_each(stack), repeats))
-
-
-def ldos_per_energy(model, repeats, energies=ENERGIES):
-    ldos(model, energies[:2])
-    return median_time(lambda: ldos(model, energies), repeats) / len(energies)
+    return min(best_time(lambda: np.linalg.inv(stack), repeats), best_time(lambda: _inv_each(stack), repeats))
 
 
 def blas_threads() -> str:
@@ -120,67 +160,120 @@ def blas_threads() -> str:
                 f"OMP_NUM_THREADS={os.environ.get('OMP_NUM_THREADS', 'unset')} (threadpoolctl not installed)")
 
 
+def _energies_for(sites: int) -> np.ndarray:
+    """Fewer energies for larger devices, so a run stays in minutes."""
+    if sites > 500_000:
+        return ENERGIES[:1]
+    if sites > 100_000:
+        return ENERGIES[:2]
+    if sites > 20_000:
+        return ENERGIES[::4]
+    return ENERGIES
+
+
 def width_table(widths, length, repeats):
-    print(f"\nTransmission per energy, strip W x {length}, {len(ENERGIES)} energies per call (4 from W = 128), "
-          f"median of {repeats} (3 from W = 128)")
-    print(f"{'W':>5} {'ours (ms)':>10} {'sparse (ms)':>12} {'floor (ms)':>11} {'sparse/ours':>12} "
-          f"{'ours/floor':>11} {'LDOS/ours':>10}")
+    print(f"\nTransmission per energy, strip W x {length}; fastest of {repeats} runs (1 from 20 000 sites)")
+    print(f"{'W':>5} {'ours (ms)':>10} {'solver':>11} {'careful (ms)':>13} {'ordering':>14} {'careful/ours':>13} "
+          f"{'RGF (ms)':>9} {'floor (ms)':>11} {'LDOS/RGF':>9}")
     rows = []
     for w in widths:
         model = strip(w, length)
-        wide = w >= 128  # keep the run in minutes: fewer energies and repeats for the widest strips
-        energies = ENERGIES[::4] if wide else ENERGIES
-        reps = 3 if wide else repeats
-        ours = ours_per_energy(model, reps, energies)
-        sparse = sparse_per_energy(model, ENERGIES[:2] if wide else ENERGIES[:4], 1 if wide else max(1, repeats // 2))
+        energies = _energies_for(model.n_sites)
+        reps = 1 if model.n_sites > 20_000 else repeats
+        ours, solver = ours_per_energy(model, reps, energies)
+        careful, ordering, _ = careful_per_energy(model, energies[:4], 1)
+        rgf = ours if solver == "rgf" else ours_per_energy(model, reps, energies, solver="rgf")[0]
         floor = floor_per_sweep(w, length, reps)
-        ldos_t = ldos_per_energy(model, 1 if wide else max(1, repeats // 2), energies)
-        rows.append((w, ours, sparse, floor))
-        print(f"{w:>5} {ours * 1e3:>10.3f} {sparse * 1e3:>12.3f} {floor * 1e3:>11.3f} {sparse / ours:>12.2f} "
-              f"{ours / floor:>11.2f} {ldos_t / ours:>10.2f}", flush=True)
+        ldos(model, energies[:1])
+        ldos_t = best_time(lambda: ldos(model, energies[:4]), 1) / len(energies[:4])
+        rows.append((w, ours, solver, careful, ordering))
+        print(f"{w:>5} {ours * 1e3:>10.2f} {solver:>11} {careful * 1e3:>13.1f} {ordering:>14} {careful / ours:>13.2f} "
+              f"{rgf * 1e3:>9.2f} {floor * 1e3:>11.2f} {ldos_t / rgf:>9.2f}", flush=True)
         clear_lead_cache()
     return rows
+
+
+def square_table(sides, repeats):
+    print(f"\nTransmission per energy, square n x n; fastest of {repeats} runs below 20 000 sites, else one run")
+    print(f"{'n':>5} {'N':>8} {'ours (ms)':>10} {'solver':>11} {'careful (ms)':>13} {'ordering':>14} "
+          f"{'careful/ours':>13} {'RGF (ms)':>10} {'tree work (MiB)':>16}")
+    sites, ours_t, careful_t = [], [], []
+    orderings = list(ORDERINGS)
+    for n in sides:
+        model = strip(n, n)
+        energies = _energies_for(model.n_sites)
+        reps = 1 if model.n_sites > 20_000 else repeats
+        ours, solver = ours_per_energy(model, reps, energies)
+        careful, ordering, timings = careful_per_energy(model, energies[:2], 1, tuple(orderings))
+        choice = choose_solver(model)
+        rgf = ours if solver == "rgf" else (ours_per_energy(model, 1, energies[:1], solver="rgf")[0]
+                                             if choice.rgf_seconds < RGF_REFERENCE_MAX_S else float("nan"))
+        work = choice.dissection_bytes / 2**20
+        dropped = [o for o in orderings if timings[o] > ORDERING_DROP * careful]
+        orderings = [o for o in orderings if o not in dropped]
+        sites.append(model.n_sites)
+        ours_t.append(ours)
+        careful_t.append(careful)
+        rgf_text = f"{rgf * 1e3:>10.1f}" if np.isfinite(rgf) else f"{'-':>10}"
+        note = f"   (dropped next: {', '.join(dropped)})" if dropped else ""
+        print(f"{n:>5} {model.n_sites:>8} {ours * 1e3:>10.1f} {solver:>11} {careful * 1e3:>13.1f} {ordering:>14} "
+              f"{careful / ours:>13.2f} {rgf_text} {work:>16.1f}{note}", flush=True)
+        clear_lead_cache()
+    if len(sites) >= 2:
+        slope = np.polyfit(np.log(sites), np.log(ours_t), 1)[0]
+        slope_c = np.polyfit(np.log(sites), np.log(careful_t), 1)[0]
+        print(f"  fitted exponent of time vs N over n = {sides[0]}..{sides[-1]}: ours {slope:.3f}, careful sparse "
+              f"{slope_c:.3f}")
+        if len(sites) >= 3:
+            tail = np.polyfit(np.log(sites[1:]), np.log(ours_t[1:]), 1)[0]
+            print(f"  ours from n = {sides[1]}: {tail:.3f}")
+    return sites, ours_t, careful_t
 
 
 def length_scan(width, lengths, repeats):
     print(f"\nTime against length, W = {width}")
     times = []
     for length in lengths:
-        t = ours_per_energy(strip(width, length), repeats)
+        t, solver = ours_per_energy(strip(width, length), repeats)
         times.append(t)
-        print(f"  L = {length:>5}: {t * 1e3:8.3f} ms per energy", flush=True)
+        print(f"  L = {length:>5}: {t * 1e3:8.3f} ms per energy ({solver})", flush=True)
     slope = np.polyfit(np.log(lengths), np.log(times), 1)[0]
     print(f"  fitted exponent of time vs L: {slope:.3f}")
 
 
-def peak_memory(width, lengths):
-    """Peak Python-tracked memory (tracemalloc: numpy buffers) of the transmission call, fresh process each.
+def peak_memory(cases):
+    """Peak resident memory added by one transmission call (fresh process each; model and plans built before).
 
-    The model and its cut layer blocks (the Hamiltonian itself, which grows with L) are built before the
-    measurement starts; what is measured is the work memory of the sweep over the layers.
+    numba's allocations do not show in tracemalloc, so the measure is the process's peak RSS (getrusage)
+    before and after the timed call; the tree's own statement of its work memory is printed beside it.
     """
-    print(f"\nPeak work memory of transmission (fresh process each, W = {width}, 16 energies; model and layer "
-          "blocks built before)")
+    print("\nPeak work memory of transmission (fresh process each, 2 energies; model, slicing and tree built before)")
     here = os.path.dirname(os.path.abspath(__file__))
     code = (
-        "import sys, tracemalloc\n"
+        "import sys, resource\n"
         f"sys.path.insert(0, {here!r})\n"
         "from bench import strip, ENERGIES\n"
-        "from rgftrans.transport.rgf import transmission, layer_blocks\n"
+        "from rgftrans.transport.rgf import transmission\n"
+        "from rgftrans.transport.choice import choose_solver\n"
         "model = strip(int(sys.argv[1]), int(sys.argv[2]))\n"
-        "layer_blocks(model)\n"
+        "c = choose_solver(model)\n"
         "transmission(model, ENERGIES[:1])\n"
-        "tracemalloc.start()\n"
-        "transmission(model, ENERGIES)\n"
-        "print(tracemalloc.get_traced_memory()[1])\n"
+        "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "r = transmission(model, ENERGIES[1:3])\n"
+        "after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "work = c.dissection_bytes if r.solver == 'dissection' else c.rgf_bytes\n"
+        "print(r.solver, (after - before) * 1024, work, model.n_sites)\n"
     )
-    peaks = []
-    for length in lengths:
-        out = subprocess.run([sys.executable, "-c", code, str(width), str(length)], capture_output=True, text=True,
-                             check=True)
-        peaks.append(int(out.stdout.strip().splitlines()[-1]))
-        print(f"  L = {length:>5}: {peaks[-1] / 2**20:.2f} MiB")
-    print(f"  ratio L = {lengths[-1]} / L = {lengths[0]}: {peaks[-1] / max(peaks[0], 1):.2f}")
+    rows = []
+    for w, l in cases:
+        out = subprocess.run([sys.executable, "-c", code, str(w), str(l)], capture_output=True, text=True, check=True)
+        solver, grown, stated, n = out.stdout.strip().splitlines()[-1].split()
+        rows.append((int(n), float(grown), float(stated)))
+        print(f"  {w} x {l} ({solver}): peak RSS +{float(grown) / 2**20:.1f} MiB during the call; stated work "
+              f"{float(stated) / 2**20:.1f} MiB ({float(stated) / int(n):.0f} bytes per site)")
+    if len(rows) >= 2:
+        slope = np.polyfit(np.log([r[0] for r in rows]), np.log([r[2] for r in rows]), 1)[0]
+        print(f"  stated work memory grows like N^{slope:.2f}")
 
 
 def _sweep_point(args):
@@ -211,29 +304,79 @@ def process_scaling(width, length, n_energies):
     print(f"  speed-up 2 vs 1: {times[1] / times[2]:.2f}")
 
 
+def calibrate():
+    """Fit the solver-choice constants of rgftrans.transport.choice to this machine (prints them).
+
+    Both routes are forced on strips W x 400 and squares n x n; RGF's time per energy is fitted to
+    ``a sum m^3 + b sum m^2 + c L + d`` and the tree's to ``a flops + b assembly + c fronts + r k^3/3 + d``
+    (k the root's unknowns), by non-negative least squares on the relative error.
+    """
+    from scipy.optimize import nnls
+
+    from rgftrans.transport.choice import rgf_seconds
+    from rgftrans.transport.dissection import dissection_tree
+    from rgftrans.transport.slicing import default_slicing
+
+    cases = [(w, 400) for w in (4, 8, 16, 32, 64, 128)] + [(n, n) for n in (24, 32, 48, 64, 96, 128, 192, 256)]
+    rgf_rows, tree_rows = [], []
+    print("\nCalibration: forced RGF and forced tree, seconds per energy")
+    for w, l in cases:
+        model = strip(w, l)
+        energies = _energies_for(model.n_sites)[:4]
+        t_rgf = ours_per_energy(model, 3, energies, solver="rgf")[0]
+        t_tree = ours_per_energy(model, 3, energies, solver="dissection")[0]
+        m = np.array([len(layer) for layer in default_slicing(model).layers], dtype=float)
+        tree = dissection_tree(model)
+        rgf_rows.append(([np.sum(m**3), np.sum(m**2), len(m), 1.0], t_rgf))
+        tree_rows.append(([tree.flops, tree.assembly, tree.n_nodes, tree.root_size**3 / 3, 1.0], t_tree))
+        print(f"  {w:>4} x {l:<4} RGF {t_rgf * 1e3:9.2f} ms   tree {t_tree * 1e3:9.2f} ms   (RGF predicted now "
+              f"{rgf_seconds(m) * 1e3:.2f} ms)", flush=True)
+        clear_lead_cache()
+    for name, rows in (("RGF: a sum m^3, b sum m^2, c per layer, d per energy", rgf_rows),
+                       ("tree: a per flop, b per assembled entry, c per front, r per root k^3/3, d per energy",
+                        tree_rows)):
+        a = np.array([r[0] for r in rows])
+        t = np.array([r[1] for r in rows])
+        coef, _ = nnls(a / t[:, None], np.ones(len(t)))
+        pred = a @ coef
+        print(f"  {name}: {', '.join(f'{c:.3g}' for c in coef)}; worst prediction off by a factor "
+              f"{np.max(np.maximum(pred / t, t / pred)):.2f}")
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="fewer widths and repeats (a smoke run)")
-    parser.add_argument("--widths", type=int, nargs="*", help="only the width table, for these widths")
+    parser.add_argument("--quick", action="store_true", help="small sizes and few repeats (a smoke run)")
+    parser.add_argument("--widths", type=int, nargs="*", help="only the strip table, for these widths")
+    parser.add_argument("--squares", type=int, nargs="*", help="only the square table, for these sides")
+    parser.add_argument("--big", action="store_true", help="add the 1024 x 1024 square (10^6 sites; long)")
+    parser.add_argument("--calibrate", action="store_true", help="refit the solver-choice constants")
     parser.add_argument("--part", choices=["length", "memory", "processes"], help="only one of the other parts")
     args = parser.parse_args(argv)
     for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(var, "1")  # children inherit it; this process was started with it by scripts/bench
     print("rgftrans benchmark; BLAS:", blas_threads(), f"; cores: {os.cpu_count()}")
     if args.quick:
-        width_table([8, 32], 100, 3)
+        width_table([8, 32], 100, 2)
+        square_table([32, 64], 2)
         return
-    if args.widths:
-        width_table(args.widths, 400, 5)
+    if args.calibrate:
+        calibrate()
+        return
+    if args.widths or args.squares:
+        if args.widths:
+            width_table(args.widths, 400, 5)
+        if args.squares:
+            square_table(args.squares, 5)
         return
     if args.part:
         {"length": lambda: length_scan(32, [100, 200, 400, 800, 1600], 5),
-         "memory": lambda: peak_memory(64, [100, 1600]),
+         "memory": lambda: peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512)]),
          "processes": lambda: process_scaling(64, 200, 256)}[args.part]()
         return
-    width_table([8, 16, 32, 64, 128, 256], 400, 5)
+    width_table([16, 64, 128], 400, 5)
+    square_table([64, 128, 256, 512] + ([1024] if args.big else []), 5)
     length_scan(32, [100, 200, 400, 800, 1600], 5)
-    peak_memory(64, [100, 1600])
+    peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512)])
     process_scaling(64, 200, 256)
 
 

@@ -128,7 +128,7 @@ def stored_conductance(cfg: RunConfig, transmission: np.ndarray, n_open: np.ndar
     return {"conductance": g, "conductance_S": g * CONDUCTANCE_QUANTUM_S}
 
 
-def _refined_pairs(cfg: RunConfig, model, slicing, pair: np.ndarray, point: dict):
+def _refined_pairs(cfg: RunConfig, model, route: dict, pair: np.ndarray, point: dict):
     """Adaptive refinement of the pair conductances (T_pq, N_p - R_pp) to [energy] refine_tolerance."""
     import warnings as _warnings
 
@@ -140,7 +140,7 @@ def _refined_pairs(cfg: RunConfig, model, slicing, pair: np.ndarray, point: dict
     cap = cfg.energy.refine_max_points or 20 * energies.size
 
     def evaluate(x):
-        res = transmission_matrix(model, x, slicing=slicing)
+        res = transmission_matrix(model, x, **route)
         return _pair_conductances(res.matrix, res.n_open)
 
     sampling = refine(evaluate, energies, tolerance=cfg.energy.refine_tolerance, max_points=cap, values=pair)
@@ -159,7 +159,7 @@ def _describe(point: dict) -> str:
 # Worker side
 # --------------------------------------------------------------------------
 
-_WORKER_SLICING: dict = {}
+_WORKER_ROUTE: dict = {}
 
 
 def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarray]:
@@ -168,36 +168,41 @@ def compute_point(cfg: RunConfig, point: dict[str, float]) -> dict[str, np.ndarr
     Returns the arrays of the point: ``transmission`` (n_E, n_leads, n_leads),
     ``n_open`` (n_E, n_leads), ``conductance`` and ``conductance_S``
     (n_E, n_T, n_leads, n_leads), plus ``ldos`` (n_ldos, n_sites) when the
-    config asks for LDOS maps.  The slicing of a geometry is reused across
-    points that change only potentials or the field (same sparsity pattern).
+    config asks for LDOS maps.  The slicing of a geometry and the solver chosen for it (RGF or nested
+    dissection, :func:`rgftrans.transport.choice.choose_solver`) are reused across points that change only
+    potentials or the field (same sparsity pattern); so is the dissection tree (cached by geometry).
     """
     from rgftrans.transport.local import ldos
     from rgftrans.analysis.resolution import warn_sharp_features
-    from rgftrans.transport.rgf import layer_blocks, transmission, transmission_matrix
+    from rgftrans.transport.choice import choose_solver
+    from rgftrans.transport.rgf import transmission, transmission_matrix
+    from rgftrans.transport.slicing import default_slicing
 
     model = cfg.build_device(point).discretise()
     key = (cfg.config_hash(), cfg.geometry_key(point))
-    slicing = _WORKER_SLICING.get(key)
-    if slicing is None:
-        slicing = layer_blocks(model).slicing
-        _WORKER_SLICING.clear()
-        _WORKER_SLICING[key] = slicing
+    route = _WORKER_ROUTE.get(key)
+    if route is None:
+        slicing = default_slicing(model)
+        solver = choose_solver(model, slicing=slicing).solver
+        route = {"solver": solver, "slicing": slicing if solver == "rgf" else None}
+        _WORKER_ROUTE.clear()
+        _WORKER_ROUTE[key] = route
     energies = cfg.energies()
     n_leads = len(model.leads)
     if n_leads == 2:
-        res = transmission(model, energies, slicing=slicing)
+        res = transmission(model, energies, **route)
         t = np.zeros((len(energies), 2, 2))
         t[:, 1, 0] = t[:, 0, 1] = res.transmission  # two terminals: T_10 = T_01 by unitarity
         t[:, 0, 0] = res.n_open[:, 0] - res.transmission
         t[:, 1, 1] = res.n_open[:, 1] - res.transmission
         out = {"transmission": t, "n_open": res.n_open}
     else:
-        res = transmission_matrix(model, energies, slicing=slicing)
+        res = transmission_matrix(model, energies, **route)
         out = {"transmission": res.matrix, "n_open": res.n_open}
     pair = _pair_conductances(out["transmission"], out["n_open"])
     refined = None
     if cfg.energy.refine_tolerance is not None:
-        sampling = _refined_pairs(cfg, model, slicing, pair, point)
+        sampling = _refined_pairs(cfg, model, route, pair, point)
         refined = (sampling.energies, sampling.values)
         if not sampling.converged:
             warn_sharp_features(sampling.energies, sampling.values, where=f"at {_describe(point)}: ")

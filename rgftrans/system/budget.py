@@ -18,7 +18,13 @@ sweep takes minutes or days, not for a schedule:
   L layers of W orbitals (clean strips from 10 x 100 to 200 x 200 sites, one
   BLAS thread: within a factor 1.5) and holds up to three W x W complex
   blocks per layer; a sweep point costs about three times that (irregular
-  slicings, the full transmission matrix, thermal averages).
+  slicings, the full transmission matrix, thermal averages);
+* nested dissection (``rgftrans.transport.dissection``) costs about
+  ``1.2e-8 N W + 2e-7 N`` seconds per energy for N orbitals and a cross-section of W
+  (squares 128^2 to 512^2 and strips W x 400, one BLAS thread: within a
+  factor 2) and holds about ``1700 W^2`` bytes of fronts, update stack and
+  root matrix plus ``150`` bytes per orbital of index arrays; the estimate
+  takes whichever of the two routes is faster (and fits).
 """
 
 from __future__ import annotations
@@ -45,6 +51,15 @@ RGF_SECONDS = (4e-10, 2e-8, 3e-6)
 SWEEP_OVERHEAD = 3.0
 #: Bytes held per layer by RGF: three W x W complex blocks.
 RGF_BYTES_PER_LAYER_W2 = 3 * 16
+#: Nested dissection seconds per energy per (orbital x cross-section orbital): 512^2 square 1.45 s, 256^2
+#: 0.25 s, 128 x 400 strip 0.17 s (see DEVELOPERS.md, benchmark record).
+TREE_SECONDS_PER_N_W = 1.2e-8
+#: ... plus this per orbital: the many small fronts of narrow devices (per-front calls and assembly).
+TREE_SECONDS_PER_ORBITAL = 2e-7
+#: Nested dissection bytes: the buffers the kernel reserves (two fronts, the update stack with its headroom
+#: for delayed pivots, the root matrix) per squared cross-section, and the tree's index arrays per orbital.
+TREE_BYTES_PER_W2 = 1700.0
+TREE_BYTES_PER_ORBITAL = 150.0
 #: Above this share of the available memory a run is refused (the rest is the interpreter, plots, the OS).
 MEMORY_SHARE = 0.8
 
@@ -111,7 +126,9 @@ class DeviceSize:
     build_bytes, build_seconds : float
         Peak memory and time to build the device.
     solve_bytes, seconds_per_energy : float
-        Memory held by one RGF solve, and its time per energy.
+        Memory held by one solve, and its time per energy, for the route in ``solver``.
+    solver : {"rgf", "dissection"}
+        The route the estimate assumes: the faster one, unless its memory would not fit.
     """
 
     sites: float
@@ -122,6 +139,7 @@ class DeviceSize:
     build_seconds: float
     solve_bytes: float
     seconds_per_energy: float
+    solver: str = "rgf"
 
     @property
     def peak_bytes(self) -> float:
@@ -153,6 +171,15 @@ def device_size(region, lattice, lead_sides, orbitals_per_site: int) -> DeviceSi
     width = max(1.0, min(across_nm * per_nm, sites)) * norbs
     layers = max(1.0, sites * norbs / width)
     a, b, c = RGF_SECONDS
+    orbitals = sites * norbs
+    rgf = (RGF_BYTES_PER_LAYER_W2 * width ** 2 * layers, layers * (a * width ** 3 + b * width ** 2 + c))
+    # The tree's cost follows the narrower extent (its separators), not the layer width of RGF.
+    cross = min(width, max(1.0, math.sqrt(orbitals * norbs)), max(1.0, norbs * orbitals / width))
+    tree = (TREE_BYTES_PER_W2 * cross ** 2 + TREE_BYTES_PER_ORBITAL * orbitals * norbs,
+            TREE_SECONDS_PER_N_W * orbitals * cross + TREE_SECONDS_PER_ORBITAL * orbitals)
+    pick, name = (tree, "dissection") if tree[1] < rgf[1] else (rgf, "rgf")
+    if pick[0] > MEMORY_SHARE * available_memory_bytes():
+        pick, name = min((tree, "dissection"), (rgf, "rgf"), key=lambda r: r[0][0])
     return DeviceSize(
         sites=sites,
         orbitals_per_site=norbs,
@@ -160,8 +187,9 @@ def device_size(region, lattice, lead_sides, orbitals_per_site: int) -> DeviceSi
         layers=layers,
         build_bytes=BUILD_BYTES_PER_SITE * sites * norbs ** 2,
         build_seconds=BUILD_SECONDS_PER_SITE * sites * norbs ** 2,
-        solve_bytes=RGF_BYTES_PER_LAYER_W2 * width ** 2 * layers,
-        seconds_per_energy=layers * (a * width ** 3 + b * width ** 2 + c),
+        solve_bytes=pick[0],
+        seconds_per_energy=pick[1],
+        solver=name,
     )
 
 

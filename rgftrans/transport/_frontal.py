@@ -295,7 +295,7 @@ def _permute(src, dst, f, perm):
 @njit(cache=True)
 def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_row,
                     entry_col, entry_val, front_max, stack_max, symmetric, pivot_delay, delay_max,
-                    out_root, out_delayed, out_pivot, out_growth, out_status):
+                    out_root, out_delayed, out_pivot, out_growth, out_status, out_delays):
     """Eliminate every non-root unknown and return the root's front, for many energies.
 
     Parameters
@@ -333,6 +333,8 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
         Largest ``|re| + |im|`` of any pushed update entry (meV): the elimination's growth.
     out_status : (n_E,) int64
         ``OK``, or why the energy was abandoned (``TOO_MANY_DELAYS``, ``STACK_FULL``).
+    out_delays : (n_E,) int64
+        Unknowns delayed, summed over all fronts (0 unless the energy met a near-singular subdomain).
     """
     n_nodes = n_elim.shape[0]
     f_cap = front_max + delay_max
@@ -355,6 +357,7 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
         worst = 1.0
         growth = 0.0
         status = OK
+        delays = 0
         out_delayed[e] = 0
         for v in range(n_nodes):
             k = n_elim[v]
@@ -410,6 +413,7 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
                     break
                 growth = max(growth, _push(front, f, kk - r, sq, stack, base, symmetric))
                 d_out[v] = r
+                delays += r
                 sq_out[v] = sq
                 upd_off[v] = base
                 sp = base + sq * sq
@@ -421,9 +425,11 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
                           map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
                 _push(front, f, 0, f, stack, base, symmetric)
                 d_out[v] = kk
+                delays += kk
                 sq_out[v] = f
                 upd_off[v] = base
                 sp = base + f * f
         out_pivot[e] = worst
         out_growth[e] = growth
         out_status[e] = status
+        out_delays[e] = delays

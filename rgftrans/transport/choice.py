@@ -14,8 +14,8 @@ DEVELOPERS.md records the fit):
 * RGF: ``RGF_SECONDS = (a, b, c)`` per layer, ``a m^3 + b m^2 + c``, plus ``RGF_PER_ENERGY``
   (lead terms);
 * the tree: ``DISSECTION_SECONDS = (a, b, c)``: ``a`` per complex multiply-add of the fronts,
-  ``b`` per front entry assembled (zeroing, extend-add, copies), ``c`` per front (calls), plus the
-  root's LU at RGF's ``a`` per ``k^3`` and ``DISSECTION_PER_ENERGY``.
+  ``b`` per front entry assembled (zeroing, extend-add, copies), ``c`` per front (calls), plus
+  ``DISSECTION_ROOT`` per ``k^3/3`` of the root's k unknowns and ``DISSECTION_PER_ENERGY``.
 
 The prediction only has to rank the two near their crossover; away from it one
 route wins by far.  Devices whose RGF is predicted below ``RGF_ALWAYS_BELOW``
@@ -39,15 +39,19 @@ __all__ = ["SOLVERS", "SolverChoice", "choose_solver", "rgf_seconds", "rgf_bytes
 #: Solver names a transport call accepts.
 SOLVERS = ("auto", "rgf", "dissection")
 
-#: RGF seconds per layer of m orbitals: a m^3 + b m^2 + c (fitted to strips W x 400 and squares, W = 8..256,
-#: one BLAS thread; see DEVELOPERS.md "Solver choice").
-RGF_SECONDS = (1.9e-10, 1.0e-8, 4.0e-6)
+#: RGF seconds per layer of m orbitals: a m^3 + b m^2 + c.  Fitted by ``scripts/bench.py --calibrate``
+#: (non-negative least squares on the relative error) to forced RGF on strips W x 400 (W = 4..128) and
+#: squares n x n (n = 24..256), one BLAS thread, 2026-12-04: worst prediction off by a factor 1.4.
+RGF_SECONDS = (2.3e-10, 1.9e-8, 4.9e-7)
 #: RGF seconds per energy besides the layers (lead self-energies and broadening, kernel call).
-RGF_PER_ENERGY = 1.0e-4
-#: Tree seconds: per complex multiply-add of the fronts, per front entry assembled, per front.
-DISSECTION_SECONDS = (5.5e-11, 2.0e-9, 2.0e-6)
-#: Tree seconds per energy besides the fronts (lead terms, root solve for the open channels).
-DISSECTION_PER_ENERGY = 3.0e-4
+RGF_PER_ENERGY = 2.7e-4
+#: Tree seconds: per complex multiply-add of the fronts, per front entry assembled, per front; same fit on
+#: the same devices, worst prediction off by a factor 1.25.
+DISSECTION_SECONDS = (9.0e-11, 4.0e-9, 2.2e-6)
+#: Tree seconds per ``k^3/3`` of the root's k unknowns (its LU, and the leads' self-energies and broadenings,
+#: which grow with the interfaces alike), and per energy besides (lead look-ups, the kernel call).
+DISSECTION_ROOT = 1.6e-9
+DISSECTION_PER_ENERGY = 3.5e-4
 #: Below this predicted RGF time per energy (s) RGF runs without the tree being built or costed.
 RGF_ALWAYS_BELOW = 1.0e-3
 
@@ -95,7 +99,7 @@ def dissection_seconds(tree) -> float:
     """Predicted tree time per energy (s) from a :class:`~rgftrans.transport.dissection.DissectionTree`."""
     a, b, c = DISSECTION_SECONDS
     k = float(tree.root_size)
-    return float(a * tree.flops + b * tree.assembly + c * tree.n_nodes + RGF_SECONDS[0] * k**3 / 3
+    return float(a * tree.flops + b * tree.assembly + c * tree.n_nodes + DISSECTION_ROOT * k**3 / 3
                  + DISSECTION_PER_ENERGY)
 
 

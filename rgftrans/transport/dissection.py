@@ -62,10 +62,10 @@ from rgftrans.system.device import TightBindingModel
 __all__ = ["DissectionTree", "DissectionPlan", "dissection_tree", "dissection_plan", "root_schur",
            "DissectionSolve", "dissection_solve", "clear_tree_cache"]
 
-#: Subdomains of at most this many orbitals are leaves (eliminated densely in one front).  Leaves of
-#: ~30-60 orbitals balance the leaf's own cubic cost against per-front overhead (measured on the square
-#: lattice: 32-64 within 10 % of each other; see DEVELOPERS.md, "Nested dissection").
-LEAF_ORBITALS = 48
+#: Subdomains of at most this many orbitals are leaves (eliminated densely in one front).  Measured on
+#: squares 64^2..256^2 and strips 16 x 400, 64 x 400 (one BLAS thread): leaves of 8-16 orbitals are fastest
+#: and within 5 % of each other, 32 costs 5-25 % more, 96 up to 3x (a leaf's dense LU grows as its cube).
+LEAF_ORBITALS = 16
 #: A front whose ``F11`` has a relative pivot ``min |U_jj| / max |U_jj|`` below this is not eliminated but
 #: delayed to its parent (:mod:`rgftrans.transport._frontal`).  Clean devices near an energy where nested
 #: subdomains are singular at once lose ~eps / pivot^3 (measured on clean 8..24-site squares: pivots of
@@ -475,7 +475,7 @@ def root_schur(plan: DissectionPlan, z_all):
         ``root[e, :d+k, :d+k]`` with ``d = delayed[e]``: the ``d`` delayed unknowns first, then the root
         unknowns in the order of ``plan.tree.root_orbitals``.  With ``d = 0`` it is the Schur complement
         ``S_II(z) = (z - H)_II - H_IX (z - H_XX)^-1 H_XI``.
-    delayed, pivot, growth, status : (n_E,) ndarrays
+    delayed, pivot, growth, status, delays : (n_E,) ndarrays
         See :func:`rgftrans.transport._frontal.schur_onto_root`.
     """
     from rgftrans.transport._frontal import schur_onto_root
@@ -489,10 +489,11 @@ def root_schur(plan: DissectionPlan, z_all):
     delayed = np.zeros(n_e, dtype=np.int64)
     pivot, growth = np.empty(n_e), np.empty(n_e)
     status = np.zeros(n_e, dtype=np.int64)
+    delays = np.zeros(n_e, dtype=np.int64)
     schur_onto_root(z_all, t.n_elim, t.n_bound, t.child_ptr, t.children, t.map_ptr, t.parent_pos, t.entry_ptr,
                     t.entry_row, t.entry_col, plan.entry_val, t.front_max, t.stack_max, plan.symmetric, PIVOT_DELAY,
-                    cap, root, delayed, pivot, growth, status)
-    return root, delayed, pivot, growth, status
+                    cap, root, delayed, pivot, growth, status, delays)
+    return root, delayed, pivot, growth, status, delays
 
 
 # --------------------------------------------------------------------------
@@ -517,6 +518,8 @@ class DissectionSolve:
         Smallest relative pivot of the eliminations that were accepted.
     delayed : (n_E,) int ndarray
         Delayed unknowns that reached the root (0 unless a large region is singular at that energy).
+    delays : (n_E,) int ndarray
+        Unknowns delayed over all fronts.
     growth : (n_E,) float ndarray
         Largest update-matrix entry over the largest entry of ``z - H`` (the elimination's growth factor).
     """
@@ -528,6 +531,7 @@ class DissectionSolve:
     pivot: np.ndarray
     growth: np.ndarray
     delayed: np.ndarray
+    delays: np.ndarray
 
 
 def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float = 0.0, *,
@@ -548,18 +552,20 @@ def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float 
     pivot = np.zeros(n_e)
     growth = np.zeros(n_e)
     delayed = np.zeros(n_e, dtype=np.int64)
+    delays = np.zeros(n_e, dtype=np.int64)
     ok = np.zeros(n_e, dtype=bool)
     h_max = float(np.abs(plan.entry_val).max(initial=0.0))
     for start in range(0, n_e, chunk):
         sel = range(start, min(start + chunk, n_e))
         lead_terms = [lead_self_energies(model, energies[i], warn=False) for i in sel]
         z_all = [device_energy(energies[i], modes, eta) for i, (_, modes) in zip(sel, lead_terms)]
-        root, dly, piv, grow, status = root_schur(plan, z_all)
+        root, dly, piv, grow, status, n_dl = root_schur(plan, z_all)
         for j, i in enumerate(sel):
             sigmas, modes = lead_terms[j]
             at_threshold[i] = any(m.at_threshold for m in modes)
             n_open[i] = [m.n_open for m in modes]
             delayed[i] = dly[j]
+            delays[i] = n_dl[j]
             growth[i] = grow[j] / (h_max + abs(z_all[j]))
             pivot[i] = piv[j]
             if status[j] != 0:
@@ -571,7 +577,7 @@ def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float 
     trusted = ok & (growth <= GROWTH_MAX) & np.all(np.isfinite(matrix), axis=(1, 2))
     matrix[~trusted] = np.nan
     return DissectionSolve(matrix=matrix, n_open=n_open, at_threshold=at_threshold, trusted=trusted, pivot=pivot,
-                           growth=growth, delayed=delayed)
+                           growth=growth, delayed=delayed, delays=delays)
 
 
 def _lead_matrix(schur: np.ndarray, sigmas, n_open, lead_slots) -> tuple[np.ndarray, float]:
