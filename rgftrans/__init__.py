@@ -14,8 +14,9 @@ in this list (a contract checked by the test suite):
     Lead modes, surface Green's functions and self-energies; band structures
     (:func:`lead_bands`).
 ``rgftrans.transport``
-    :func:`transmission`, :func:`transmission_matrix` (RGF), :func:`ldos` and the
-    other local quantities, and the sparse direct reference solver.
+    :func:`transmission`, :func:`transmission_matrix` (RGF for narrow devices,
+    nested dissection for wide ones; :func:`choose_solver` says which and why),
+    :func:`ldos` and the other local quantities, and the sparse direct reference solver.
 ``rgftrans.spectra``
     Resonance poles (:func:`resonances`) and their widths per lead
     (:func:`partial_widths`), closed-system levels (:func:`closed_levels`) and
@@ -63,7 +64,7 @@ _EXPORTS = {
     "Gate": "electrostatics.gates", "GateLayout": "electrostatics.gates",
     # transport
     "transmission": "transport.rgf", "transmission_matrix": "transport.rgf",
-    "four_terminal_resistance": "transport.rgf",
+    "four_terminal_resistance": "transport.rgf", "choose_solver": "transport.choice",
     "ldos": "transport.local", "local_quantities": "transport.local", "scattering_states": "transport.local",
     "bond_currents": "transport.local",
     "transmission_direct": "transport.direct", "scattering_matrix": "transport.direct",

@@ -259,7 +259,7 @@ def test_separators_grow_like_the_square_root_of_the_size():
     def tree(side):
         return nd.dissection_tree(strip_device(side, side).discretise())
 
-    small, large = tree(24), tree(48)
+    small, large = tree(48), tree(96)
     assert 1.8 < large.front_max / small.front_max < 2.2
     assert 3.5 < large.work_bytes / small.work_bytes < 4.5
 

@@ -165,8 +165,11 @@ class DissectionTree:
 
     @property
     def work_bytes(self) -> int:
-        """Work memory of one elimination: the front buffer, the update stack and one root matrix (bytes)."""
-        return 16 * (self.front_max**2 + self.stack_max + 2 * self.root_size**2)
+        """Work memory one elimination reserves (bytes): two front buffers and the update stack with room for
+        delayed pivots (``front_max + delay`` squared each), and the root matrix handed back.  Without delays
+        only one front buffer and the planned stack (``stack_max``) are touched, about a third of it."""
+        cap = self.front_max + delay_max(self)
+        return 16 * (4 * cap**2 + self.stack_max + (self.root_size + delay_max(self))**2)
 
     @property
     def nbytes(self) -> int:
@@ -296,6 +299,8 @@ def dissection_tree(model: TightBindingModel, *, leaf_orbitals: int | None = Non
     -------
     DissectionTree
     """
+    if leaf_orbitals is None and model.cache.dissection is not None:
+        return model.cache.dissection.tree  # the model's own plan already holds its default tree
     leaf_orbitals = LEAF_ORBITALS if leaf_orbitals is None else int(leaf_orbitals)
     adj = _site_graph(model)
     key = (_fingerprint(model, adj), leaf_orbitals)
