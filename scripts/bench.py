@@ -66,6 +66,10 @@ ORDERINGS = ("COLAMD", "MMD_AT_PLUS_A", "MMD_ATA")
 ORDERING_DROP = 3.0
 #: The forced-RGF reference column is measured only where RGF is predicted below this (s per energy).
 RGF_REFERENCE_MAX_S = 20.0
+#: Above this many sites the careful route runs in a child process whose address space is capped at
+#: MEMORY_SHARE of the available memory: SuperLU's fill at 512^2 already peaks at 5 GB, and at 1024^2 it
+#: outgrows this 23 GB machine (the kernel's OOM killer would otherwise take this process, or a neighbour's).
+CAREFUL_IN_CHILD_ABOVE = 300_000
 
 
 def strip(width: int, length: int):
@@ -122,8 +126,14 @@ def careful_sparse_solver(model):
     return run, prepare
 
 
-def careful_per_energy(model, energies, repeats, orderings=ORDERINGS):
-    """Seconds per energy of the careful sparse route with its best ordering: (best, ordering, all timings)."""
+def careful_per_energy(model, energies, repeats, orderings=ORDERINGS, *, side=None):
+    """Seconds per energy of the careful sparse route with its best ordering: (best, ordering, all timings).
+
+    Large squares (``side`` given, more than CAREFUL_IN_CHILD_ABOVE sites) run in a memory-capped child;
+    an ordering that runs out of memory there gets an infinite time (and the best may be None).
+    """
+    if side is not None and model.n_sites > CAREFUL_IN_CHILD_ABOVE:
+        return _careful_in_child(side, energies, orderings)
     run, prepare = careful_sparse_solver(model)
     prepare(energies)  # the self-energies outside the timing (in the baseline's favour)
     timings = {}
@@ -131,6 +141,47 @@ def careful_per_energy(model, energies, repeats, orderings=ORDERINGS):
         timings[ordering] = best_time(lambda: run(energies, ordering), repeats) / len(energies)
     best = min(timings, key=timings.get)
     return timings[best], best, timings
+
+
+def _careful_in_child(side, energies, orderings):
+    from rgftrans.system.budget import MEMORY_SHARE, available_memory_bytes
+
+    limit = int(MEMORY_SHARE * available_memory_bytes())
+    here = os.path.dirname(os.path.abspath(__file__))
+    code = (
+        "import sys, time\n"
+        f"sys.path.insert(0, {here!r})\n"
+        "import numpy as np\n"
+        "from bench import strip, careful_sparse_solver\n"
+        "side, order = int(sys.argv[1]), sys.argv[2]\n"
+        "energies = np.array([float(x) for x in sys.argv[3:]])\n"
+        "run, prepare = careful_sparse_solver(strip(side, side))\n"
+        "prepare(energies)\n"
+        "t0 = time.perf_counter()\n"
+        "try:\n"
+        "    run(energies, order)\n"
+        "    print('seconds', (time.perf_counter() - t0) / len(energies))\n"
+        "except MemoryError:\n"
+        "    print('memory')\n"
+    )
+
+    def cap():
+        import resource
+
+        resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+
+    timings = {}
+    for ordering in orderings:
+        out = subprocess.run([sys.executable, "-c", code, str(side), ordering, *map(repr, map(float, energies))],
+                             capture_output=True, text=True, preexec_fn=cap)
+        words = (out.stdout.strip().splitlines() or ["failed"])[-1].split()
+        timings[ordering] = float(words[1]) if words[0] == "seconds" else float("inf")
+        if not np.isfinite(timings[ordering]):
+            print(f"  careful sparse, {ordering}: does not fit in {limit / 2**30:.1f} GiB at {side}^2 "
+                  f"({'MemoryError' if words[0] == 'memory' else 'child failed: ' + out.stderr.strip()[-120:]})",
+                  flush=True)
+    best = min(timings, key=timings.get)
+    return timings[best], (best if np.isfinite(timings[best]) else None), timings
 
 
 @njit(cache=True)
@@ -204,29 +255,47 @@ def square_table(sides, repeats):
         energies = _energies_for(model.n_sites)
         reps = 1 if model.n_sites > 20_000 else repeats
         ours, solver = ours_per_energy(model, reps, energies)
-        careful, ordering, timings = careful_per_energy(model, energies[:2], 1, tuple(orderings))
+        careful, ordering, timings = careful_per_energy(model, energies[:2], 1, tuple(orderings), side=n)
         choice = choose_solver(model)
         rgf = ours if solver == "rgf" else (ours_per_energy(model, 1, energies[:1], solver="rgf")[0]
                                              if choice.rgf_seconds < RGF_REFERENCE_MAX_S else float("nan"))
         work = choice.dissection_bytes / 2**20
-        dropped = [o for o in orderings if timings[o] > ORDERING_DROP * careful]
+        dropped = [o for o in orderings if timings[o] > ORDERING_DROP * careful] if ordering else []
         orderings = [o for o in orderings if o not in dropped]
         sites.append(model.n_sites)
         ours_t.append(ours)
         careful_t.append(careful)
         rgf_text = f"{rgf * 1e3:>10.1f}" if np.isfinite(rgf) else f"{'-':>10}"
         note = f"   (dropped next: {', '.join(dropped)})" if dropped else ""
-        print(f"{n:>5} {model.n_sites:>8} {ours * 1e3:>10.1f} {solver:>11} {careful * 1e3:>13.1f} {ordering:>14} "
-              f"{careful / ours:>13.2f} {rgf_text} {work:>16.1f}{note}", flush=True)
+        if ordering is None:
+            careful_text, ratio_text = f"{'no memory':>13} {'-':>14}", f"{'-':>13}"
+        else:
+            careful_text, ratio_text = f"{careful * 1e3:>13.1f} {ordering:>14}", f"{careful / ours:>13.2f}"
+        print(f"{n:>5} {model.n_sites:>8} {ours * 1e3:>10.1f} {solver:>11} {careful_text} {ratio_text} {rgf_text} "
+              f"{work:>16.1f}{note}", flush=True)
         clear_lead_cache()
     if len(sites) >= 2:
+        from rgftrans.transport.dissection import dissection_tree
+
         slope = np.polyfit(np.log(sites), np.log(ours_t), 1)[0]
-        slope_c = np.polyfit(np.log(sites), np.log(careful_t), 1)[0]
+        fits = np.isfinite(careful_t)
+        slope_c = np.polyfit(np.log(np.array(sites)[fits]), np.log(np.array(careful_t)[fits]), 1)[0] \
+            if fits.sum() >= 2 else float("nan")
         print(f"  fitted exponent of time vs N over n = {sides[0]}..{sides[-1]}: ours {slope:.3f}, careful sparse "
-              f"{slope_c:.3f}")
+              f"{slope_c:.3f} (where it ran)")
         if len(sites) >= 3:
-            tail = np.polyfit(np.log(sites[1:]), np.log(ours_t[1:]), 1)[0]
-            print(f"  ours from n = {sides[1]}: {tail:.3f}")
+            tail = np.polyfit(np.log(sites[-2:]), np.log(ours_t[-2:]), 1)[0]
+            print(f"  ours between the two largest: {tail:.3f}")
+        flops = [dissection_tree(strip(n, n)).flops for n in sides]
+        print(f"  the tree's operation count (complex multiply-adds of the fronts) grows like N^"
+              f"{np.polyfit(np.log(sites), np.log(flops), 1)[0]:.3f}")
+        if not fits.all() and fits.sum() >= 2:
+            for n, s_, ok, t in zip(sides, sites, fits, ours_t):
+                if not ok:
+                    guess = np.exp(np.polyval(np.polyfit(np.log(np.array(sites)[fits]),
+                                                         np.log(np.array(careful_t)[fits]), 1), np.log(s_)))
+                    print(f"  n = {n}: careful sparse extrapolated along its own exponent: {guess:.0f} s per energy "
+                          f"(~{guess / t:.0f} x ours; not measured: it does not fit in memory)")
     return sites, ours_t, careful_t
 
 

@@ -225,7 +225,8 @@ class RunEstimate:
         s = self.size
         return [
             f"about {s.sites:.3g} sites ({s.orbitals_per_site} orbital(s) each), {s.layers:.3g} layers of about "
-            f"{s.layer_orbitals:.3g} orbitals",
+            f"{s.layer_orbitals:.3g} orbitals; expected solver: "
+            f"{'nested dissection' if s.solver == 'dissection' else 'RGF'} (the run chooses per geometry)",
             f"memory about {human_bytes(self.memory_bytes)} with {self.workers} worker(s) "
             f"(available {human_bytes(available_memory_bytes())}); result file about {human_bytes(self.result_bytes)}",
             f"time about {human_seconds(self.seconds)} for {self.n_points} point(s) x {self.n_energies} energies "
