@@ -316,7 +316,8 @@ def peak_memory(cases):
     numba's allocations do not show in tracemalloc, so the measure is the process's peak RSS (getrusage)
     before and after the timed call; the tree's own statement of its work memory is printed beside it.
     """
-    print("\nPeak work memory of transmission (fresh process each, 2 energies; model, slicing and tree built before)")
+    print("\nPeak work memory of transmission (fresh process each, 2 energies; model, slicing, tree and lead modes "
+          "built before; the first call also loads the compiled kernel)")
     here = os.path.dirname(os.path.abspath(__file__))
     code = (
         "import sys, resource\n"
@@ -324,9 +325,12 @@ def peak_memory(cases):
         "from bench import strip, ENERGIES\n"
         "from rgftrans.transport.rgf import transmission\n"
         "from rgftrans.transport.choice import choose_solver\n"
+        "from rgftrans.transport.dissection import dissection_plan\n"
+        "from rgftrans.leads.embedding import lead_self_energies\n"
         "model = strip(int(sys.argv[1]), int(sys.argv[2]))\n"
         "c = choose_solver(model)\n"
-        "transmission(model, ENERGIES[:1])\n"
+        "dissection_plan(model) if c.solver == 'dissection' else None\n"
+        "[lead_self_energies(model, e) for e in ENERGIES[:3]]\n"
         "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
         "r = transmission(model, ENERGIES[1:3])\n"
         "after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
@@ -340,9 +344,11 @@ def peak_memory(cases):
         rows.append((int(n), float(grown), float(stated)))
         print(f"  {w} x {l} ({solver}): peak RSS +{float(grown) / 2**20:.1f} MiB during the call; stated work "
               f"{float(stated) / 2**20:.1f} MiB ({float(stated) / int(n):.0f} bytes per site)")
-    if len(rows) >= 2:
-        slope = np.polyfit(np.log([r[0] for r in rows]), np.log([r[2] for r in rows]), 1)[0]
-        print(f"  stated work memory grows like N^{slope:.2f}")
+    squares = [r for (w, l), r in zip(cases, rows) if w == l]
+    if len(squares) >= 2:
+        n = np.log([r[0] for r in squares])
+        print(f"  over the squares, stated work memory grows like N^{np.polyfit(n, np.log([r[2] for r in squares]), 1)[0]:.2f}"
+              f", the measured peak like N^{np.polyfit(n, np.log([max(r[1], 1.0) for r in squares]), 1)[0]:.2f}")
 
 
 def _sweep_point(args):
@@ -439,13 +445,13 @@ def main(argv=None):
         return
     if args.part:
         {"length": lambda: length_scan(32, [100, 200, 400, 800, 1600], 5),
-         "memory": lambda: peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512)]),
+         "memory": lambda: peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)]),
          "processes": lambda: process_scaling(64, 200, 256)}[args.part]()
         return
     width_table([16, 64, 128], 400, 5)
     square_table([64, 128, 256, 512] + ([1024] if args.big else []), 5)
     length_scan(32, [100, 200, 400, 800, 1600], 5)
-    peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512)])
+    peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)])
     process_scaling(64, 200, 256)
 
 

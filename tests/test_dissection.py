@@ -284,6 +284,19 @@ def test_clean_square_at_a_subdomain_eigenvalue(energy, monkeypatch):
     assert wrong
 
 
+@pytest.mark.parametrize("energy, n_root", [(2.0, 1), (4.0, 2), (6.0, 1)])
+def test_delayed_unknowns_reach_the_root(energy, n_root):
+    # A clean 2 x 4 strip: its four inner sites form one closed 2 x 2 block with eigenvalues 4 + {-2, 0, 0, 2}
+    # (onsite 4, t = 1), the only front below the root.  At E = 2, 4, 6 it is singular (twice at 4), nothing
+    # above it is closed, so its near-null unknowns (one, two, one) are solved at the root together with the
+    # leads -- and the result is still splu's (REL).
+    model = strip_device(2, 4).discretise()
+    res = _solve(model, [energy])
+    assert res.delayed[0] == n_root and res.trusted[0]
+    _assert_close(res.matrix[0, 1, 0], transmission_direct(model, [energy])[0, 1, 0], f"E = {energy}")
+    assert res.matrix[0, 1, 0] > 0.1  # it transmits: not 0 = 0 (our choice, far above round-off)
+
+
 @pytest.mark.parametrize("rgf_bytes", [2**30, 0], ids=["redo by RGF", "redo by splu"])
 def test_untrusted_energies_are_redone(rgf_bytes, monkeypatch):
     # With no room for delays, the band-centre energy of the clean square is abandoned by the tree; the public
