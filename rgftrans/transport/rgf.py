@@ -13,6 +13,11 @@ interfaces.  The transmission is the Caroli / Fisher-Lee formula
 6851 (1981); Caroli et al., J. Phys. C 4, 916 (1971), both from memory).
 Only ``G_{i,0} W_0`` is carried, with ``Gamma_0 = W_0 W_0^dag`` (one column per
 open channel of the first lead); the slice loop runs compiled (:mod:`rgftrans.transport._kernels`).
+
+The public :func:`transmission` and :func:`transmission_matrix` are also the
+entry points of nested dissection (:mod:`rgftrans.transport.dissection`): with
+``solver="auto"`` they take whichever route :func:`rgftrans.transport.choice.choose_solver`
+predicts faster for the model, and say which in the result's ``solver``.
 """
 
 from __future__ import annotations
