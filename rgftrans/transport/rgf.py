@@ -31,7 +31,7 @@ from rgftrans.constants import SINGULAR_ETA
 from rgftrans.system.device import TightBindingModel, check_resolution
 from rgftrans.errors import LeadError, ThresholdWarning
 from rgftrans.system.inputs import check_energies, check_eta, check_model
-from rgftrans.leads.embedding import (broadening, device_energy, gamma_columns, lead_self_energies,
+from rgftrans.leads.embedding import (broadening, device_energy, gamma_factor, lead_self_energies,
                                       warn_thresholds)
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S, conductance_g0
 from rgftrans.transport.buffers import EndTerms, LayerBuffers
@@ -305,7 +305,7 @@ def _end_terms(model, blocks: LayerBlocks, energies, eta):
         at_threshold[k] = any(m.at_threshold for m in modes)
         n_open[k] = [m.n_open for m in modes]
         gamma_last[k][np.ix_(slots_last, slots_last)] = broadening(sigmas[1])
-        w_each.append(gamma_columns(broadening(sigmas[0])))
+        w_each.append(gamma_factor(broadening(sigmas[0])))
     n_channels = max(1, max(w.shape[1] for w in w_each))
     w_first = np.zeros((n_e, m_first, n_channels), dtype=complex)
     for k, w in enumerate(w_each):
