@@ -14,7 +14,8 @@ Outside sources (all from memory):
 
 Tolerance: ``REL = 1e-10`` relative to max(|T|, 1) (T is in units of one channel).  The three solvers are
 exact up to round-off: on these devices of 150-1500 orbitals the worst disagreement we measured was
-3e-13 (tree against splu) and 8e-13 (tree against RGF); 1e-10 leaves two orders of margin and still
+8e-13 (tree against splu and against RGF, four leads with disorder and a field; the sum rules hold to
+4e-13); 1e-10 leaves two orders of margin and still
 catches any wrong sign, missing term or misplaced entry, which moves T at 1e-3 or more.
 """
 
