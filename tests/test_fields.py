@@ -16,7 +16,7 @@ import pytest
 from rgftrans.system.device import Device, Lead
 from rgftrans.transport.direct import transmission_direct
 from rgftrans.errors import PotentialError
-from rgftrans.system.fields import BOHR_MAGNETON_MEV_PER_T, Disorder, MagneticField
+from rgftrans.system.fields import BOHR_MAGNETON_MEV_PER_T, Disorder, MagneticField, uniform_draws
 from rgftrans.system.geometry import disk, rectangle
 from rgftrans.system.lattices import square, triangular
 from rgftrans.transport.rgf import transmission, transmission_matrix
@@ -123,6 +123,20 @@ def test_disorder_is_numpy_philox_as_documented(cell):
     counter = np.array([n1 + 2**63 - 1, n2 + 2**63, b, 0], dtype=np.uint64)
     u = np.random.Generator(np.random.Philox(key=key, counter=counter)).random()
     assert Disorder(3.0, seed=5).values(np.array([cell]))[0] == 3.0 * (u - 0.5)
+
+
+@pytest.mark.parametrize("seed", [0, 7, 2**40 + 3])
+def test_compiled_philox_equals_numpy_word_for_word(seed):
+    """The compiled draw of Disorder is numpy's Philox4x64-10 (the reference) at 300 random cells, exactly."""
+    rng = np.random.default_rng(seed % 1000)
+    cells = np.column_stack([rng.integers(-2**50, 2**50, 300), rng.integers(-2**50, 2**50, 300),
+                             rng.integers(0, 4, 300)])
+    cells[:100, :2] = rng.integers(-60, 60, (100, 2))  # and small cells, as devices have
+    key = np.random.SeedSequence(seed).generate_state(2, np.uint64)
+    expected = [np.random.Generator(np.random.Philox(
+        key=key, counter=np.array([n1 + 2**63 - 1, n2 + 2**63, b, 0], dtype=np.uint64))).random()
+        for n1, n2, b in cells.tolist()]
+    assert np.array_equal(uniform_draws(seed, cells), expected)
 
 
 def test_disorder_of_a_site_does_not_depend_on_the_device_shape():
