@@ -68,6 +68,8 @@ _EXPORTS = {
     "ldos": "transport.local", "local_quantities": "transport.local", "scattering_states": "transport.local",
     "bond_currents": "transport.local",
     "transmission_direct": "transport.direct", "scattering_matrix": "transport.direct",
+    "disorder_ensemble": "transport.ensemble", "DisorderSampler": "transport.ensemble",
+    "localisation_length": "transport.ensemble",
     # analysis
     "thermal_conductance": "analysis.thermal", "landauer_current": "analysis.thermal",
     "regime_estimate": "analysis.regime", "resonances": "spectra.poles",

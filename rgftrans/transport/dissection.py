@@ -543,10 +543,12 @@ class DissectionSolve:
 
 
 def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float = 0.0, *,
-                     plan: DissectionPlan | None = None) -> DissectionSolve:
+                     plan: DissectionPlan | None = None, lead_terms: list | None = None) -> DissectionSolve:
     """All ``T_pq`` and ``R_pp`` by nested dissection (energies and eta in meV, checked by the caller).
 
-    ``plan`` defaults to the model's own (:func:`dissection_plan`).
+    ``plan`` defaults to the model's own (:func:`dissection_plan`); ``lead_terms`` (one
+    :func:`lead_self_energies` result per energy) to a fresh computation -- a disorder ensemble passes the
+    ones it computed once.
     """
     energies = np.atleast_1d(np.asarray(energies, dtype=float))
     plan = dissection_plan(model) if plan is None else plan
@@ -565,11 +567,12 @@ def dissection_solve(model: TightBindingModel, energies: np.ndarray, eta: float 
     h_max = float(np.abs(plan.entry_val).max(initial=0.0))
     for start in range(0, n_e, chunk):
         sel = range(start, min(start + chunk, n_e))
-        lead_terms = [lead_self_energies(model, energies[i], warn=False) for i in sel]
-        z_all = [device_energy(energies[i], modes, eta) for i, (_, modes) in zip(sel, lead_terms)]
+        terms = ([lead_self_energies(model, energies[i], warn=False) for i in sel] if lead_terms is None
+                 else [lead_terms[i] for i in sel])
+        z_all = [device_energy(energies[i], modes, eta) for i, (_, modes) in zip(sel, terms)]
         root, dly, piv, grow, status, n_dl = root_schur(plan, z_all)
         for j, i in enumerate(sel):
-            sigmas, modes = lead_terms[j]
+            sigmas, modes = terms[j]
             at_threshold[i] = any(m.at_threshold for m in modes)
             n_open[i] = [m.n_open for m in modes]
             delayed[i] = dly[j]

@@ -356,17 +356,22 @@ def _direct_fallback(model, energy: float, eta: float) -> float:
     return float(transmission_direct(model, [energy], eta=eta + shift)[0, 1, 0])
 
 
-def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
+def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta, *, terms=None, layers: LayerBuffers | None = None,
+                        fallback=None):
     """Transmission at a batch of energies: lead terms in Python (cached), the slice loop compiled.
 
     Wide layers use the Ward identity on the last layer (no column propagation) at real energies of a
     Hermitian device; where T comes out below ``WARD_MIN_T`` per channel it has lost relative accuracy and
     is redone with columns.  Energies where the recursion breaks down take :func:`_direct_fallback`.
+
+    A disorder ensemble (:mod:`rgftrans.transport.ensemble`) passes the lead ``terms`` of
+    :func:`_end_terms` it computed once, its own ``layers`` (the blocks with a sample's onsite values) and a
+    ``fallback(energy) -> T`` for the sample.
     """
     from rgftrans.transport._kernels import SMALL_BLOCK, two_terminal, two_terminal_small
 
-    z_all, ends, n_open, at_threshold = _end_terms(model, blocks, energies, eta)
-    layers = blocks.buffers
+    z_all, ends, n_open, at_threshold = _end_terms(model, blocks, energies, eta) if terms is None else terms
+    layers = blocks.buffers if layers is None else layers
     wide = layers.sizes.max() > SMALL_BLOCK
     columns = two_terminal if wide else two_terminal_small
     trans = np.full(len(energies), np.nan)
@@ -379,7 +384,7 @@ def _two_terminal_chunk(model, blocks: LayerBlocks, energies, eta):
     if len(redo):
         trans[redo] = _run_kernel(columns, z_all, layers, ends, redo)
     for k in np.flatnonzero(~np.isfinite(trans)):
-        trans[k] = _direct_fallback(model, energies[k], eta)
+        trans[k] = _direct_fallback(model, energies[k], eta) if fallback is None else fallback(energies[k])
     return trans, n_open, at_threshold
 
 
