@@ -21,28 +21,31 @@ documented stream is.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from llvmlite import ir
+from numba import njit, types
+from numba.extending import intrinsic
 
 _M0 = np.uint64(0xD2E7470EE14C6C93)
 _M1 = np.uint64(0xCA5A826395121157)
 _W0 = np.uint64(0x9E3779B97F4A7C15)
 _W1 = np.uint64(0xBB67AE8584CAA73B)
-_LOW32 = np.uint64(0xFFFFFFFF)
-_S32 = np.uint64(32)
 
 
-@njit(cache=True, inline="always")
-def _mulhilo(a, b):
-    """High and low 64-bit halves of the 128-bit product a * b (unsigned)."""
-    a_lo, a_hi = a & _LOW32, a >> _S32
-    b_lo, b_hi = b & _LOW32, b >> _S32
-    ll = a_lo * b_lo
-    lh = a_lo * b_hi
-    hl = a_hi * b_lo
-    hh = a_hi * b_hi
-    mid = (ll >> _S32) + (lh & _LOW32) + (hl & _LOW32)
-    hi = hh + (lh >> _S32) + (hl >> _S32) + (mid >> _S32)
-    return hi, a * b
+@intrinsic
+def _mulhilo(typingctx, a, b):
+    """High and low 64-bit halves of the 128-bit product a * b (unsigned): one widening multiply."""
+    if a != types.uint64 or b != types.uint64:
+        return None
+    sig = types.UniTuple(types.uint64, 2)(types.uint64, types.uint64)
+
+    def codegen(context, builder, signature, args):
+        wide = ir.IntType(128)
+        prod = builder.mul(builder.zext(args[0], wide), builder.zext(args[1], wide))
+        lo = builder.trunc(prod, ir.IntType(64))
+        hi = builder.trunc(builder.lshr(prod, ir.Constant(wide, 64)), ir.IntType(64))
+        return context.make_tuple(builder, signature.return_type, (hi, lo))
+
+    return sig, codegen
 
 
 @njit(cache=True)

@@ -127,7 +127,7 @@ class Disorder:
     offset ``2**63`` keeps negative cell indices from wrapping.)  The words
     are computed for all sites at once by a compiled Philox4x64-10
     (:func:`uniform_draws`), checked word for word against numpy's: about
-    0.1 us per site, so a disorder ensemble redraws its potential cheaply.
+    10 ns per site, so a disorder ensemble redraws its potential cheaply.
 
     Parameters
     ----------
@@ -158,18 +158,26 @@ def uniform_draws(seed: int, cells: np.ndarray) -> np.ndarray:
 
     Evaluates the documented Philox stream of :class:`Disorder` for all cells at once with the compiled
     kernel of :mod:`rgftrans.system._philox` (the first word of the block at counter
-    ``(n1 + 2**63, n2 + 2**63, b, 0)``), as ``Generator.random()`` turns a word into a float.
+    ``(n1 + 2**63, n2 + 2**63, b, 0)``), as ``Generator.random()`` turns a word into a float.  ``cells`` may
+    also be the counters of :func:`philox_counters`, computed once for many seeds.
     """
     from rgftrans.system._philox import first_words
 
-    cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
+    counters = cells if isinstance(cells, tuple) else philox_counters(cells)
     key = np.random.SeedSequence(int(seed)).generate_state(2, np.uint64)
+    raw = np.empty(len(counters[0]), dtype=np.uint64)
+    first_words(*counters, np.uint64(0), key[0], key[1], raw)
+    out = (raw >> np.uint64(11)).astype(np.float64)
+    out *= 2.0 ** -53
+    return out
+
+
+def philox_counters(cells: np.ndarray) -> tuple:
+    """The first three Philox counter words ``(n1 + 2**63, n2 + 2**63, b)`` of the cells (n, 3), as uint64 arrays."""
+    cells = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
     offset = np.uint64(_CELL_OFFSET)
-    raw = np.empty(len(cells), dtype=np.uint64)
-    if len(cells):
-        first_words(cells[:, 0].view(np.uint64) + offset, cells[:, 1].view(np.uint64) + offset,
-                    np.ascontiguousarray(cells[:, 2]).view(np.uint64), np.uint64(0), key[0], key[1], raw)
-    return (raw >> np.uint64(11)).astype(np.float64) * 2.0 ** -53
+    return (cells[:, 0].view(np.uint64) + offset, cells[:, 1].view(np.uint64) + offset,
+            np.ascontiguousarray(cells[:, 2]).view(np.uint64))
 
 
 #: Added to the cell indices n1, n2 in the Philox counter so negative cells do not wrap (uint64 words).

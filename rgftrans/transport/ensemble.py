@@ -43,7 +43,7 @@ import scipy.sparse as sp
 from rgftrans.errors import FitFailed, LeadError, PotentialError, ValidityWarning
 from rgftrans.leads.embedding import lead_self_energies, warn_thresholds
 from rgftrans.system.device import Device, TightBindingModel, check_resolution
-from rgftrans.system.fields import Disorder, uniform_draws
+from rgftrans.system.fields import Disorder, philox_counters, uniform_draws
 from rgftrans.system.inputs import check_energies, check_eta
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
 
@@ -95,6 +95,7 @@ class DisorderSampler:
         self.width_meV = float(device.disorder.width_meV)
         self.model = dataclasses.replace(device, disorder=None).discretise()
         self.cells = _sites(device)[0]
+        self._counters = philox_counters(self.cells)
         self.energies = check_energies(energies, self.model)
         self.eta = check_eta(eta)
         check_resolution(self.model, self.energies)
@@ -153,7 +154,7 @@ class DisorderSampler:
         """The disorder (meV) of every site of sample ``seed``: ``Disorder(W, seed).values`` at the device's cells."""
         width = self.width_meV if width_meV is None else float(width_meV)
         Disorder(width, seed)  # validates the seed and the width with their one-line messages
-        return width * (uniform_draws(seed, self.cells) - 0.5)
+        return width * (uniform_draws(seed, self._counters) - 0.5)
 
     def model_of(self, seed: int, width_meV: float | None = None) -> TightBindingModel:
         """Sample ``seed`` as a model of its own (for maps, LDOS or a check); built on demand, not cached."""
