@@ -742,6 +742,38 @@ def _cmd_blockade(args) -> int:
     return EXIT_OK
 
 
+def _cmd_ensemble(args) -> int:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from rgftrans.io.config import load_config
+    from rgftrans.io.ensemble import GROUP, ensemble_from_config, require_disorder, write_ensemble
+    from rgftrans.io.store import check_group_writable
+    from rgftrans.plots.ensemble import plot_fluctuations
+
+    _refuse_waveguide(args.config)
+    cfg = load_config(args.config)
+    require_disorder(cfg)
+    target = Path(args.output or cfg.output.path)
+    if target.exists():
+        check_group_writable(target, GROUP, overwrite=args.overwrite)  # refused now, not after the work
+    elif not target.parent.is_dir():
+        from rgftrans.errors import StoreError
+
+        raise StoreError(f"{target}: directory {target.parent} does not exist; create it or choose another path")
+    print(f"{args.config}: {args.samples} disorder samples of the device at its base point")
+    result = ensemble_from_config(cfg, args.samples, width_meV=args.width_meV, progress=not args.quiet)
+    for line in result.summary().splitlines():
+        print(f"  {line}")
+    prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
+    prefix.parent.mkdir(parents=True, exist_ok=True)
+    write_ensemble(result, target, overwrite=args.overwrite)
+    fig, _ = plot_fluctuations(result)
+    fig.savefig(f"{prefix}_fluctuations.png", dpi=150)
+    print(f"  written: group '{GROUP}' in {target}; {prefix}_fluctuations.png")
+    return EXIT_OK
+
+
 def _cmd_waveguide(args) -> int:
     import matplotlib
     import numpy as np
@@ -807,6 +839,16 @@ def _cmd_waveguide(args) -> int:
     write_waveguide(run, target, overwrite=args.overwrite)
     say(f"  written: {target}; figures {prefix}_*.png")
     return EXIT_OK
+
+
+def _at_least_two(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 2:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number >= 2; e.g. --samples 200")
+    return value
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -964,6 +1006,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--output", metavar="H5", help="file for the group 'blockade' (default: [output] path)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing group 'blockade'")
     p.set_defaults(func=_cmd_blockade)
+
+    p = sub.add_parser("ensemble", help="conductance statistics of many disorder samples of a device",
+                       description="Redraw the Anderson disorder of the config's device (its [disorder] table gives "
+                                   "the width W and the first seed) for N samples and compute T(E) of each at the "
+                                   "config's energies, reusing the clean device's slicing or dissection tree and "
+                                   "lead self-energies; print <G> and var G with standard errors and the regime, "
+                                   "write the group 'ensemble' and a figure of the fluctuations.")
+    p.add_argument("config", help="run config with a [disorder] table")
+    p.add_argument("--samples", type=_at_least_two, required=True, help="number of samples (seeds seed, seed+1, ...)")
+    p.add_argument("--width-meV", type=float, metavar="W", help="disorder width W in meV instead of [disorder]'s")
+    p.add_argument("--out-prefix", metavar="PATH", help="figure prefix (default: the config path without .toml)")
+    p.add_argument("--output", metavar="H5", help="file for the group 'ensemble' (default: [output] path)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing group 'ensemble'")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=_cmd_ensemble)
 
     p = sub.add_parser("waveguide", help="TM light in a metal-walled waveguide with dielectrics",
                        description="Grid a waveguide config ([waveguide], [frequency], optional [[search.axis]]), "

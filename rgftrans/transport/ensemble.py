@@ -283,12 +283,33 @@ class EnsembleResult:
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.log(self.transmission).std(axis=0, ddof=1) / np.sqrt(self.n_samples)
 
+    @property
+    def regime(self) -> np.ndarray:
+        """Transport regime at each energy from the mean transmission per spin <T> and the channels N, (n_E,) str.
+
+        "localised" where exp<ln T> < 1/e (typical T below one channel's worth, set by the longest
+        localisation length); "quasi-ballistic" where <T> > N/2 (most channels get through); "diffusive" in
+        between -- where the universal conductance fluctuations apply (1 << <T> << N).  Thresholds are common
+        practice, no source; the words are a guide, the numbers are in the result.
+        """
+        spins = 2.0 if self.spin_degeneracy == 1 else 1.0  # explicit spin orbitals count both spins
+        per_spin = self.transmission / spins
+        with np.errstate(divide="ignore"):
+            typical = np.exp(np.log(per_spin).mean(axis=0))
+        n = self.n_open.min(axis=1) / spins
+        out = np.full(len(self.energies), "diffusive", dtype=object)
+        out[per_spin.mean(axis=0) > 0.5 * n] = "quasi-ballistic"
+        out[typical < np.exp(-1.0)] = "localised"
+        return out
+
     def summary(self) -> str:
-        """One line per energy: <G> and var(G) with their standard errors, in 2e^2/h units."""
-        lines = [f"{self.n_samples} samples of W = {self.width_meV:.4g} meV box disorder ({self.solver})"]
+        """One line per energy: <G> and var(G) with their standard errors in 2e^2/h units, and the regime."""
+        lines = [f"{self.n_samples} samples of W = {self.width_meV:.4g} meV box disorder ({self.solver}); "
+                 "coherent single-particle transport (Landauer), no charging energy"]
         for k, e in enumerate(self.energies):
             lines.append(f"  E = {e:.6g} meV: <G> = {self.mean_g0[k]:.4f} +- {self.mean_error_g0[k]:.4f} 2e^2/h, "
-                         f"var G = {self.variance_g0[k]:.4f} +- {self.variance_error_g0[k]:.4f} (2e^2/h)^2")
+                         f"var G = {self.variance_g0[k]:.4f} +- {self.variance_error_g0[k]:.4f} (2e^2/h)^2, "
+                         f"{self.n_open[k, 0]} channel(s), {self.regime[k]}")
         return "\n".join(lines)
 
 
