@@ -762,7 +762,8 @@ def _cmd_ensemble(args) -> int:
 
         raise StoreError(f"{target}: directory {target.parent} does not exist; create it or choose another path")
     print(f"{args.config}: {args.samples} disorder samples of the device at its base point")
-    result = ensemble_from_config(cfg, args.samples, width_meV=args.width_meV, progress=not args.quiet)
+    result = ensemble_from_config(cfg, args.samples, width_meV=args.width_meV, progress=not args.quiet,
+                                  workers=args.workers)
     for line in result.summary().splitlines():
         print(f"  {line}")
     prefix = Path(args.out_prefix or Path(args.config).with_suffix(""))
@@ -1019,6 +1020,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out-prefix", metavar="PATH", help="figure prefix (default: the config path without .toml)")
     p.add_argument("--output", metavar="H5", help="file for the group 'ensemble' (default: [output] path)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing group 'ensemble'")
+    p.add_argument("--workers", type=_positive_int, default=2, metavar="N",
+                   help="local processes, one BLAS thread each (default 2); the samples do not depend on it")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_ensemble)
 

@@ -187,3 +187,12 @@ def test_bad_input_is_refused_in_one_line():
         sampler.transmission_of(np.full(sampler.model.n_sites, np.nan))
     with pytest.warns(ValidityWarning, match="standard errors of the variance"):
         disorder_ensemble(_strip(6, 10), [0.3], samples=10)
+
+
+def test_two_processes_give_the_same_samples_bit_for_bit():
+    device = _strip(8, 30, seed=2)
+    one = disorder_ensemble(device, [0.3, 0.9], samples=60)
+    two = disorder_ensemble(device, [0.3, 0.9], samples=60, workers=2)
+    assert np.array_equal(one.transmission, two.transmission) and np.array_equal(one.seeds, two.seeds)
+    with pytest.raises(ValueError, match="workers must be"):
+        disorder_ensemble(device, [0.3], samples=60, workers=0)

@@ -30,12 +30,12 @@ _FORMAT = "rgftrans-disorder-ensemble"
 
 
 def ensemble_from_config(cfg, samples: int, *, width_meV: float | None = None, solver: str = "auto",
-                         progress: bool = False) -> EnsembleResult:
+                         progress: bool = False, workers: int = 1) -> EnsembleResult:
     """The ensemble of the config's device (base point) at its energies; ``[disorder]`` gives W and the first seed."""
     require_disorder(cfg)
     device = cfg.build_device(cfg.base_point())
     return disorder_ensemble(device, cfg.energies(), samples=samples, width_meV=width_meV, solver=solver,
-                             progress=progress)
+                             progress=progress, workers=workers)
 
 
 def require_disorder(cfg) -> None:

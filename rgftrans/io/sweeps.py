@@ -30,6 +30,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rgftrans._processes import ONE_THREAD as _ONE_THREAD, OneBlasThread as _OneBlasThread
 from rgftrans.io.config import RunConfig
 from rgftrans.errors import RgftransError, RgftransWarning, SweepFailed
 from rgftrans.io.store import Axis, OutputLock, QuantitySpec, ResultFile, dataset_name
@@ -37,9 +38,6 @@ from rgftrans.errors import StoreError
 
 __all__ = ["SweepReport", "run_sweep", "compute_point", "grid_points", "axis_dataset_name", "sweep_temperatures",
            "stored_conductance"]
-
-#: Environment that pins each worker process to one BLAS/OpenMP thread.
-_ONE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
 
 @dataclass(frozen=True)
@@ -356,26 +354,6 @@ def _write(rf: ResultFile, index, values: dict[str, np.ndarray]) -> None:
         rf.write_extra("ldos", index, "ldos", values["ldos"], units="1/meV", long_name="local density of states",
                        dims=("ldos_energy", "site"))
     rf.write_point(index, {k: v for k, v in values.items() if k != "ldos"})
-
-
-class _OneBlasThread:
-    """Context: child processes started inside inherit one BLAS/OpenMP thread each.
-
-    Spawned children read the environment when they import numpy, which
-    happens when the pool starts them -- lazily, at submit time -- so the
-    variables must stay set for the whole life of the pool.
-    """
-
-    def __enter__(self):
-        self.saved = {k: os.environ.get(k) for k in _ONE_THREAD}
-        os.environ.update(_ONE_THREAD)
-
-    def __exit__(self, *exc):
-        for k, v in self.saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
 
 
 def _iterate_local(tasks, workers: int):

@@ -331,7 +331,7 @@ def variance_error(samples: np.ndarray) -> np.ndarray:
 
 def disorder_ensemble(device: Device, energies, *, samples: int | None = None, seeds=None, eta: float = 0.0,
                       solver: str = "auto", width_meV: float | None = None, progress: bool = False,
-                      sampler: DisorderSampler | None = None) -> EnsembleResult:
+                      sampler: DisorderSampler | None = None, workers: int = 1) -> EnsembleResult:
     """Transmission of many disorder samples of one device, and their statistics.
 
     Parameters
@@ -350,6 +350,10 @@ def disorder_ensemble(device: Device, energies, *, samples: int | None = None, s
         Show a progress bar (tqdm) over the samples.
     sampler : DisorderSampler, optional
         A prepared sampler of this device and these energies (e.g. to sweep W without preparing again).
+    workers : int
+        Local processes (default 1): this one takes the first share of the seeds, ``workers - 1`` spawned
+        processes (one BLAS thread each) prepare a sampler of their own and take the rest.  The samples are
+        the same as with one process, bit for bit.  The device must be picklable (no lambda potentials).
 
     Returns
     -------
@@ -370,18 +374,60 @@ def disorder_ensemble(device: Device, energies, *, samples: int | None = None, s
         warnings.warn(f"{len(seeds)} disorder samples: the standard errors of the variance (and of <ln T>) are "
                       f"themselves uncertain by about sqrt(2/n) = {np.sqrt(2 / len(seeds)):.0%}; use "
                       f">= {FEW_SAMPLES} samples", ValidityWarning, stacklevel=2)
-    loop = seeds
+    if isinstance(workers, (bool, np.bool_)) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ValueError(f"workers must be a whole number >= 1, got {workers!r}")
+    shares = np.array_split(seeds, min(int(workers), len(seeds)))
+    loop = shares[0]
     if progress:
         from tqdm import tqdm
 
-        loop = tqdm(seeds, desc="disorder samples", unit="sample")
-    trans = np.array([sampler.transmission(int(s), width_meV) for s in loop]).reshape(len(seeds),
-                                                                                       len(sampler.energies))
+        loop = tqdm(loop, desc="disorder samples" + (" (this process's share)" if len(shares) > 1 else ""),
+                    unit="sample")
+    if len(shares) > 1:
+        parts = _in_processes(device, sampler, width_meV, shares, loop)
+    else:
+        parts = [[sampler.transmission(int(s), width_meV) for s in loop]]
+    trans = np.concatenate([np.reshape(p, (-1, len(sampler.energies))) for p in parts])
     warn_thresholds(sampler.energies, sampler.at_threshold)
     return EnsembleResult(energies=sampler.energies, seeds=seeds.astype(np.int64),
                           width_meV=sampler.width_meV if width_meV is None else float(width_meV),
                           transmission=trans, n_open=sampler.n_open, spin_degeneracy=sampler.model.spin_degeneracy,
                           solver=sampler.solver, lead_names=tuple(lead.name for lead in sampler.model.leads))
+
+
+def _in_processes(device, sampler, width_meV, shares, first):
+    """T of every share of seeds: the first here (iterating ``first``), the others in spawned processes."""
+    import multiprocessing
+    import pickle
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
+    from rgftrans._processes import OneBlasThread
+    from rgftrans.errors import ComputationFailed
+
+    try:
+        pickle.dumps(device)
+    except (pickle.PicklingError, AttributeError, TypeError) as err:
+        raise ValueError(f"the device cannot be sent to worker processes ({err}); give its potential as a "
+                         "module-level function or an array-backed potential, or use workers=1") from None
+    task = dict(energies=sampler.energies, eta=sampler.eta, solver=sampler.solver, width_meV=width_meV)
+    with OneBlasThread(), ProcessPoolExecutor(max_workers=len(shares) - 1,
+                                              mp_context=multiprocessing.get_context("spawn")) as pool:
+        futures = [pool.submit(_share, device, share, **task) for share in shares[1:]]
+        here = [sampler.transmission(int(s), width_meV) for s in first]
+        try:
+            return [here] + [f.result() for f in futures]
+        except BrokenProcessPool:
+            raise ComputationFailed("a worker process of the ensemble died (out of memory, or killed); "
+                                    "rerun with fewer workers") from None
+
+
+def _share(device, seeds, *, energies, eta, solver, width_meV):
+    """A worker's share of an ensemble: its own sampler (warnings already given by the parent's), then T."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sampler = DisorderSampler(device, energies, eta=eta, solver=solver)
+    return [sampler.transmission(int(s), width_meV) for s in seeds]
 
 
 @dataclass(frozen=True)
