@@ -433,3 +433,402 @@ def schur_onto_root(z_all, n_elim, n_bound, child_ptr, children, map_ptr, parent
         out_growth[e] = growth
         out_status[e] = status
         out_delays[e] = delays
+
+
+# --------------------------------------------------------------------------
+# Selected inversion: the diagonal of G = (z - H - Sigma)^-1 on the same tree
+# --------------------------------------------------------------------------
+#
+# The upward pass is the elimination above with every front's factors kept: the LU of its pivot block
+# ``S_KK`` (K: the unknowns the front eliminates, after delays), ``X = S_KK^-1 S_KB`` (what zgesv leaves in
+# F12; B: the rest of the front) and, unless the front is complex symmetric, ``S_BK`` (F21).  The root adds
+# the self-energies and is inverted whole: ``G`` on the root's front.  The downward pass visits the fronts
+# parents first; with ``G_BB`` (the front's B block of G, cut from its parent's front of G) the
+# block-elimination identities
+#
+#     G_KB = -X G_BB,   G_BK = -G_BB Y  (Y = S_BK S_KK^-1;  Y = X^T and G_BK = G_KB^T when symmetric),
+#     G_KK = S_KK^-1 - X G_BK
+#
+# give G on the whole front (Takahashi, Fagan & Chin 1973; Erisman & Tinney, Commun. ACM 18, 177 (1975);
+# on nested-dissection trees: the FIND scheme of Li, Ahmed, Klimeck & Darve, J. Comput. Phys. 227, 9408
+# (2008); all from memory), and each child's ``G_BB`` is cut from it.  A delayed unknown is one more row of
+# B in the front that delayed it and one more row of K where it is finally eliminated (or of the root), so
+# the identities hold unchanged: the kernel only follows each unknown's position from front to front.
+
+_xxgetrf = types.ExternalFunction("numba_xxgetrf", types.intc(
+    types.char, types.intp, types.intp, _C, types.intp, types.CPointer(types.int32)))
+_xxgetri = types.ExternalFunction("numba_ez_xxgetri", types.intc(
+    types.char, types.intp, _C, types.intp, types.CPointer(types.int32)))
+
+#: Further status codes of :func:`select_diagonal`: a store passed in is too small (the caller enlarges it
+#: to the size returned and calls again), or the root (with the leads) is exactly singular.
+FACTORS_FULL, DOWN_STACK_FULL, ROOT_SINGULAR = 3, 4, 5
+
+
+@njit(cache=True)
+def _grow(a, need):
+    """``a``, or a copy of it with room for at least ``need`` entries."""
+    if need <= a.shape[0]:
+        return a
+    out = np.empty(max(need, 2 * a.shape[0]), dtype=a.dtype)
+    out[:a.shape[0]] = a
+    return out
+
+
+@njit(cache=True)
+def _gemm(m, n, k, alpha, a, lda, b, ldb, beta, c, ldc):
+    """``C <- alpha A B + beta C`` (column-major, complex); ``alpha``/``beta`` are one-element arrays."""
+    if m == 0 or n == 0:
+        return
+    if k == 0:
+        if beta[0] == 0:
+            for j in range(n):
+                for i in range(m):
+                    c[j * ldc + i] = 0.0
+        return
+    _xxgemm(_KIND, _NOTRANS, _NOTRANS, m, n, k, alpha.ctypes, a.ctypes, lda, b.ctypes, ldb, beta.ctypes, c.ctypes,
+            ldc)
+
+
+@njit(cache=True)
+def select_diagonal(z, sigma_root, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_row,
+                    entry_col, entry_val, elim_orbitals, root_orbitals, front_max, stack_max, symmetric, pivot_delay,
+                    delay_max, factors, down, out_diag):
+    """The diagonal of ``G = (z - H - Sigma)^-1`` at one energy: the elimination with its factors kept, then
+    the selected inversion down the tree (see the comment above).
+
+    Parameters
+    ----------
+    z : complex
+        Device energy (meV).
+    sigma_root : (k, k) complex
+        Sum of the leads' self-energies on the root's unknowns (order of ``root_orbitals``).
+    n_elim ... entry_val, front_max, stack_max, symmetric, pivot_delay, delay_max
+        As in :func:`schur_onto_root`.
+    elim_orbitals : (n_orbitals - k,) int64
+        Orbital of each eliminated unknown, node by node in tree order.
+    root_orbitals : (k,) int64
+    factors : (n_factor,) complex
+        Store for the kept factors (``sum_v k_v^2 + k_v b_v`` entries when symmetric, ``+ b_v k_v`` more when
+        not, with room for delays); a work array.
+    down : (n_down,) complex
+        Stack of the children's ``G_BB`` blocks during the downward pass; a work array.
+    out_diag : (n_orbitals,) complex
+        Filled with ``G_ii`` (meV^-1) where the status is ``OK``.
+
+    Returns
+    -------
+    status, pivot, growth, delays, delayed, root_pivot, need_factors, need_down
+        ``status``: ``OK`` or why the energy was abandoned (``FACTORS_FULL`` / ``DOWN_STACK_FULL``: call
+        again with stores of ``need_factors`` / ``need_down`` entries).  The others as in
+        :func:`schur_onto_root`; ``root_pivot`` is the smallest relative pivot of the root's LU.
+    """
+    n_nodes = n_elim.shape[0]
+    root = n_nodes - 1
+    f_cap = front_max + delay_max
+    front = np.empty(max(f_cap * f_cap, 1), dtype=np.complex128)
+    spare = np.empty(max(f_cap * f_cap, 1), dtype=np.complex128)
+    perm = np.empty(max(f_cap, 1), dtype=np.int64)
+    inv = np.empty(max(f_cap, 1), dtype=np.int64)
+    ids = np.empty(max(f_cap, 1), dtype=np.int64)
+    ids_pre = np.empty(max(f_cap, 1), dtype=np.int64)
+    chosen = np.empty(NULL_BLOCK, dtype=np.int64)
+    stack_cap = stack_max + 2 * f_cap * f_cap
+    stack = np.empty(max(stack_cap, 1), dtype=np.complex128)
+    upd_off = np.zeros(n_nodes, dtype=np.int64)
+    d_out = np.zeros(n_nodes, dtype=np.int64)
+    sq_out = np.zeros(n_nodes, dtype=np.int64)
+    ipiv = np.empty(max(f_cap, 1), dtype=np.int32)
+    pos_buf = np.empty(max(f_cap, 1), dtype=np.int64)
+    scal = np.array([-1.0 + 0j, 1.0 + 0j])
+    # What the downward pass needs of each front: eliminated count, front size, where its factors, pivots,
+    # eliminated orbitals and its children's positions are kept.
+    n_keep = np.zeros(n_nodes, dtype=np.int64)
+    n_front = np.zeros(n_nodes, dtype=np.int64)
+    fac_off = np.zeros(n_nodes, dtype=np.int64)
+    piv_off = np.zeros(n_nodes, dtype=np.int64)
+    eid_off = np.zeros(n_nodes + 1, dtype=np.int64)
+    pos_off = np.zeros(n_nodes, dtype=np.int64)
+    n_orb_all = elim_orbitals.shape[0] + root_orbitals.shape[0]
+    pivots = np.empty(max(n_orb_all, 1), dtype=np.int32)
+    elim_ids = np.empty(max(n_orb_all, 1), dtype=np.int64)
+    child_pos = np.empty(max(2 * n_orb_all, 16), dtype=np.int64)
+    delay_ids = np.empty(64, dtype=np.int64)
+    did_off = np.zeros(n_nodes, dtype=np.int64)
+    elim_start = np.zeros(n_nodes + 1, dtype=np.int64)
+    for v in range(n_nodes - 1):
+        elim_start[v + 1] = elim_start[v] + n_elim[v]
+
+    fsp = 0  # factors used
+    psp = 0  # child positions used
+    dsp = 0  # delay ids used
+    esp = 0  # eliminated ids / pivots used
+    sp = 0
+    worst = 1.0
+    growth = 0.0
+    delays = 0
+    short = False
+    status = OK
+    f_root = 0
+    pivot = 1.0
+    for v in range(n_nodes):
+        k = n_elim[v]
+        b = n_bound[v]
+        d = 0
+        c0 = child_ptr[v]
+        c1 = child_ptr[v + 1]
+        for ci in range(c0, c1):
+            d += d_out[children[ci]]
+        if d > delay_max:
+            status = TOO_MANY_DELAYS
+            break
+        f = d + k + b
+        _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                  map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+        base = upd_off[children[c0]] if c1 > c0 else sp
+        # The front's orbitals before any permutation: delayed ones (children's, in order), own, boundary.
+        slot = 0
+        for ci in range(c0, c1):
+            c = children[ci]
+            for i in range(d_out[c]):
+                ids_pre[slot + i] = delay_ids[did_off[c] + i]
+            slot += d_out[c]
+        if v == root:
+            for i in range(k):
+                ids_pre[d + i] = root_orbitals[i]
+        else:
+            for i in range(k):
+                ids_pre[d + i] = elim_orbitals[elim_start[v] + i]
+        for i in range(d + k, f):
+            ids_pre[i] = -1
+        for i in range(f):
+            perm[i] = i
+        kk = d + k
+        r = 0
+        full_delay = False
+        if v != root:
+            pivot = _factor(front, f, kk, b, ipiv)
+            if pivot < pivot_delay:
+                r = _near_null_unknowns(front, f, kk, ipiv, chosen)
+                _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                          map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+                n_k = 0
+                for i in range(kk):
+                    keep = True
+                    for t in range(r):
+                        if chosen[t] == i:
+                            keep = False
+                    if keep:
+                        perm[n_k] = i
+                        n_k += 1
+                for t in range(r):
+                    perm[n_k + t] = chosen[t]
+                for i in range(kk, f):
+                    perm[i] = i
+                _permute(front, spare, f, perm)
+                front, spare = spare, front
+                pivot = _factor(front, f, kk - r, b + r, ipiv)
+            if pivot < pivot_delay:
+                full_delay = True
+                for i in range(f):
+                    perm[i] = i
+        for i in range(f):
+            inv[perm[i]] = i
+            ids[i] = ids_pre[perm[i]]
+        # Where each child's pushed unknowns sit in this front (after the permutation).
+        slot = 0
+        for ci in range(c0, c1):
+            c = children[ci]
+            s = sq_out[c]
+            dc = d_out[c]
+            child_pos = _grow(child_pos, psp + s)
+            pos_off[c] = psp
+            m0 = map_ptr[c]
+            for i in range(s):
+                pre = slot + i if i < dc else d + parent_pos[m0 + i - dc]
+                child_pos[psp + i] = inv[pre]
+            slot += dc
+            psp += s
+        n_front[v] = f
+        if v == root:
+            f_root = f
+            break
+        if not full_delay:
+            ke = kk - r
+            s = f - ke
+            worst = min(worst, pivot)
+            need = ke * ke + ke * s + (0 if symmetric else s * ke)
+            if fsp + need > factors.shape[0]:
+                short = True  # count on, to return the size the store needs
+            else:
+                o = fsp
+                for j in range(ke):
+                    for i in range(ke):
+                        factors[o + j * ke + i] = front[j * f + i]
+                o += ke * ke
+                for j in range(s):
+                    for i in range(ke):
+                        factors[o + j * ke + i] = front[(ke + j) * f + i]
+                o += ke * s
+                if not symmetric:
+                    for j in range(ke):
+                        for i in range(s):
+                            factors[o + j * s + i] = front[j * f + ke + i]
+                fac_off[v] = fsp
+            fsp += need
+            for i in range(ke):
+                pivots[esp + i] = ipiv[i]
+            _update(front, f, ke, s, scal, symmetric)
+            sq = s
+            if base + sq * sq > stack_cap:
+                status = STACK_FULL
+                break
+            growth = max(growth, _push(front, f, ke, sq, stack, base, symmetric))
+            d_out[v] = r
+            delays += r
+            n_keep[v] = ke
+            first_out = ke
+        else:
+            if base + f * f > stack_cap:
+                status = STACK_FULL
+                break
+            _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                      map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
+            _push(front, f, 0, f, stack, base, symmetric)
+            d_out[v] = kk
+            delays += kk
+            n_keep[v] = 0
+            sq = f
+            first_out = 0
+        piv_off[v] = esp
+        for i in range(n_keep[v]):
+            elim_ids[esp + i] = ids[i]
+        esp += n_keep[v]
+        delay_ids = _grow(delay_ids, dsp + d_out[v])
+        did_off[v] = dsp
+        for i in range(d_out[v]):
+            delay_ids[dsp + i] = ids[first_out + i]
+        dsp += d_out[v]
+        sq_out[v] = sq
+        upd_off[v] = base
+        sp = base + sq * sq
+    if status != OK:
+        return status, worst, growth, delays, 0, 0.0, 0, 0
+    if short:
+        return FACTORS_FULL, worst, growth, delays, 0, 0.0, fsp, 0
+    delayed = 0
+    for ci in range(child_ptr[root], child_ptr[root + 1]):
+        delayed += d_out[children[ci]]
+
+    # Root: G = (S - Sigma)^-1 on its whole front.
+    f = f_root
+    k = f - delayed
+    for j in range(k):
+        for i in range(k):
+            front[(delayed + j) * f + delayed + i] -= sigma_root[i, j]
+    info = _xxgetrf(_KIND, f, f, front.ctypes, f, ipiv.ctypes)
+    small = np.inf
+    large = 0.0
+    for j in range(f):
+        u = abs(front[j * f + j])
+        small = min(small, u)
+        large = max(large, u)
+    root_pivot = small / large if large > 0 and info == 0 else 0.0
+    if root_pivot == 0.0:
+        return ROOT_SINGULAR, worst, growth, delays, delayed, root_pivot, 0, 0
+    if f > 0:
+        _xxgetri(_KIND, f, front.ctypes, f, ipiv.ctypes)
+    if symmetric:  # G = G^T: the mean of the two computed triangles (round-off differs between them)
+        for j in range(f):
+            for i in range(j):
+                avg = 0.5 * (front[j * f + i] + front[i * f + j])
+                front[j * f + i] = avg
+                front[i * f + j] = avg
+    for i in range(f):
+        out_diag[ids[i]] = front[i * f + i]
+
+    # Room for the downward stack: parents push every child's G_BB, children pop their own.
+    gsp = 0
+    peak = 0
+    for v in range(n_nodes - 1, -1, -1):
+        if v != root:
+            s = n_front[v] - n_keep[v]
+            gsp -= s * s
+        for ci in range(child_ptr[v], child_ptr[v + 1]):
+            s = sq_out[children[ci]]
+            gsp += s * s
+        peak = max(peak, gsp)
+    if peak > down.shape[0]:
+        return DOWN_STACK_FULL, worst, growth, delays, delayed, root_pivot, 0, peak
+
+    tmp = np.empty(0, dtype=np.complex128) if symmetric else np.empty(max(f_cap * f_cap, 1), dtype=np.complex128)
+    m1 = np.array([-1.0 + 0j])
+    zero = np.array([0.0 + 0j])
+    one = np.array([1.0 + 0j])
+    gsp = 0
+    g = front  # G on the current front, column-major, leading dimension f
+    for v in range(n_nodes - 1, -1, -1):
+        f = n_front[v]
+        if v != root:
+            g = spare
+            ke = n_keep[v]
+            s = f - ke
+            gsp -= s * s
+            for j in range(s):  # G_BB, cut from the parent
+                for i in range(s):
+                    g[(ke + j) * f + ke + i] = down[gsp + j * s + i]
+            if ke > 0:
+                o = fac_off[v]
+                for j in range(ke):  # S_KK^-1 from its LU
+                    for i in range(ke):
+                        g[j * f + i] = factors[o + j * ke + i]
+                for i in range(ke):
+                    ipiv[i] = pivots[piv_off[v] + i]
+                _xxgetri(_KIND, ke, g.ctypes, f, ipiv.ctypes)
+                x = factors[o + ke * ke:]
+                leaf = child_ptr[v + 1] == child_ptr[v]  # nothing below: only the diagonal of G_KK is needed
+                if symmetric:
+                    # G_KB = -X G_BB;  G_BK = G_KB^T;  G_KK = S_KK^-1 - X G_BK
+                    _gemm(ke, s, s, m1, x, ke, g[ke * f + ke:], f, zero, g[ke * f:], f)
+                    if leaf:
+                        for i in range(ke):
+                            acc = g[i * f + i]
+                            for j in range(s):
+                                acc -= x[j * ke + i] * g[(ke + j) * f + i]
+                            out_diag[elim_ids[piv_off[v] + i]] = acc
+                    else:
+                        for j in range(s):
+                            for i in range(ke):
+                                g[i * f + ke + j] = g[(ke + j) * f + i]
+                        _gemm(ke, ke, s, m1, x, ke, g[ke:], f, one, g, f)
+                        for j in range(ke):
+                            for i in range(j):
+                                avg = 0.5 * (g[j * f + i] + g[i * f + j])
+                                g[j * f + i] = avg
+                                g[i * f + j] = avg
+                else:
+                    # Y = S_BK S_KK^-1;  G_BK = -G_BB Y;  G_KB = -X G_BB;  G_KK = S_KK^-1 - X G_BK
+                    _gemm(s, ke, ke, one, factors[o + ke * ke + ke * s:], s, g, f, zero, tmp, s)
+                    _gemm(s, ke, s, m1, g[ke * f + ke:], f, tmp, s, zero, g[ke:], f)
+                    if leaf:
+                        for i in range(ke):
+                            acc = g[i * f + i]
+                            for j in range(s):
+                                acc -= x[j * ke + i] * g[i * f + ke + j]
+                            out_diag[elim_ids[piv_off[v] + i]] = acc
+                    else:
+                        _gemm(ke, s, s, m1, x, ke, g[ke * f + ke:], f, zero, g[ke * f:], f)
+                        _gemm(ke, ke, s, m1, x, ke, g[ke:], f, one, g, f)
+                if not leaf:
+                    for i in range(ke):
+                        out_diag[elim_ids[piv_off[v] + i]] = g[i * f + i]
+        for ci in range(child_ptr[v], child_ptr[v + 1]):  # each child's G_BB, first child deepest
+            c = children[ci]
+            s = sq_out[c]
+            p0 = pos_off[c]
+            for j in range(s):
+                col = child_pos[p0 + j] * f
+                for i in range(s):
+                    down[gsp + j * s + i] = g[col + child_pos[p0 + i]]
+            gsp += s * s
+    return OK, worst, growth, delays, delayed, root_pivot, 0, 0

@@ -62,7 +62,7 @@ from rgftrans.leads.embedding import broadening, device_energy, gamma_factor, le
 from rgftrans.system.device import TightBindingModel
 
 __all__ = ["DissectionTree", "DissectionPlan", "dissection_tree", "dissection_plan", "root_schur",
-           "DissectionSolve", "dissection_solve", "clear_tree_cache"]
+           "DissectionSolve", "dissection_solve", "DissectionDiagonal", "dissection_diagonal", "clear_tree_cache"]
 
 #: Subdomains of at most this many orbitals are leaves (eliminated densely in one front).  Measured on
 #: squares 64^2..256^2 and strips 16 x 400, 64 x 400 (one BLAS thread): leaves of 8-16 orbitals are fastest
@@ -173,6 +173,48 @@ class DissectionTree:
         only one front buffer and the planned stack (``stack_max``) are touched, about a third of it."""
         cap = self.front_max + delay_max(self)
         return 16 * (4 * cap**2 + self.stack_max + (self.root_size + delay_max(self))**2)
+
+    def factor_entries(self, symmetric: bool) -> int:
+        """Complex entries of the factors the diagonal of G keeps from one elimination (without delays):
+        ``sum k^2 + k b`` over the fronts (the LU of the pivot block and ``F11^-1 F12``), ``+ b k`` more
+        (``F21``) when the fronts are not complex symmetric."""
+        k = self.n_elim[:-1].astype(np.int64)
+        b = self.n_bound[:-1].astype(np.int64)
+        return int(np.sum(k * k + k * b * (1 if symmetric else 2)))
+
+    def down_entries(self) -> int:
+        """Peak of the downward pass's stack of ``G_BB`` blocks (complex entries, without delays): a parent
+        pushes every child's ``b^2``, a child pops its own."""
+        peak = held = 0
+        for v in range(self.n_nodes - 1, -1, -1):
+            if v != self.n_nodes - 1:
+                held -= int(self.n_bound[v]) ** 2
+            kids = self.children[self.child_ptr[v]:self.child_ptr[v + 1]]
+            held += int(np.sum(self.n_bound[kids].astype(np.int64) ** 2))
+            peak = max(peak, held)
+        return peak
+
+    def selection_flops(self, symmetric: bool) -> float:
+        """Complex multiply-adds of the downward pass of the diagonal of G (without delays): per front the
+        inverse of the pivot block (``2k^3/3``) and ``G_KB = -X G_BB`` (``k b^2``; ``G_BK = -G_BB Y`` when the
+        fronts are not symmetric, with ``Y``, ``b k^2``, besides), and where a front has children the whole
+        ``G_KK`` (``k^2 b``; and ``G_KB``, ``k b^2``, when not symmetric); the root's inverse (``2 m^3/3``
+        more than its LU)."""
+        k = self.n_elim[:-1].astype(float)
+        b = self.n_bound[:-1].astype(float)
+        inner = np.diff(self.child_ptr)[:-1] > 0
+        per = 2 * k**3 / 3 + k * b * b + inner * k * k * b
+        if not symmetric:
+            per += k * k * b + inner * k * b * b
+        return float(np.sum(per) + 2 * float(self.root_size) ** 3 / 3)
+
+    def diagonal_bytes(self, symmetric: bool) -> int:
+        """Work memory of one diagonal-of-G call (bytes): the elimination's (:attr:`work_bytes`), the factors
+        kept and the downward stack, each with room for delays (a quarter more), the pivots, the maps of
+        unknowns from front to front and the result."""
+        keep = 16 * (self.factor_entries(symmetric) + self.down_entries()) * 5 // 4
+        index = 4 * self.n_orbitals + 8 * (3 * self.n_orbitals + int(np.sum(self.n_bound)))
+        return int(self.work_bytes + keep + index + 16 * self.n_orbitals)
 
     @property
     def nbytes(self) -> int:
@@ -623,3 +665,120 @@ def _lead_matrix(schur: np.ndarray, sigmas, n_open, lead_slots) -> tuple[np.ndar
             out[p, q] = np.sum(block.real**2 + block.imag**2)
         out[p, p] += n_open[p] + 2 * np.trace(m[rp, rp]).imag
     return out, pivot
+
+
+# --------------------------------------------------------------------------
+# The diagonal of G: selected inversion down the same tree
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class DissectionDiagonal:
+    """The diagonal of the open device's Green's function ``G = (E + i eta - H - Sigma)^-1`` from the tree.
+
+    Attributes
+    ----------
+    diagonal : (n_E, n_orbitals) complex ndarray, 1/meV
+        ``G_ii``; NaN where ``trusted`` is False.
+    trusted : (n_E,) bool ndarray
+        As in :class:`DissectionSolve`; an untrusted energy names its cause in ``reason``.
+    reason : tuple of str
+        Per energy: "" when trusted, else one line ("delays over the cap", "growth 3e+11 above 1e+10", ...).
+    pivot, growth, delayed, delays : (n_E,) ndarrays
+        As in :class:`DissectionSolve`.
+    at_threshold : (n_E,) bool ndarray
+        A lead sat on a channel threshold: the energy was moved slightly above the real axis.
+    work_bytes : int
+        Largest work memory one energy used: elimination buffers, kept factors, downward stack (bytes).
+    """
+
+    diagonal: np.ndarray
+    trusted: np.ndarray
+    reason: tuple
+    pivot: np.ndarray
+    growth: np.ndarray
+    delayed: np.ndarray
+    delays: np.ndarray
+    at_threshold: np.ndarray
+    work_bytes: int
+
+
+def dissection_diagonal(model: TightBindingModel, energies, eta: float = 0.0, *,
+                        plan: DissectionPlan | None = None) -> DissectionDiagonal:
+    """``G_ii`` of every orbital by nested dissection and selected inversion (energies and eta in meV,
+    checked by the caller).
+
+    The elimination of :func:`root_schur` keeps every front's factors; the root, with the leads'
+    self-energies, is inverted; a downward pass gives G on every front from its parent's (the FIND scheme of
+    Li, Ahmed, Klimeck & Darve, J. Comput. Phys. 227, 9408 (2008), i.e. the Takahashi / Erisman-Tinney
+    recurrences on the elimination tree; from memory; see :func:`rgftrans.transport._frontal.select_diagonal`).
+    Delayed unknowns are followed to the front that eliminates them.  Operations: the elimination's
+    (:attr:`DissectionTree.flops`) plus :meth:`DissectionTree.selection_flops`, about 1.3x (complex
+    symmetric fronts, real H) to 2x (a field or spin-orbit) more.  Work memory: the factors kept,
+    :meth:`DissectionTree.factor_entries` complex entries (``O(N log N)`` on a square device: 16 bytes x
+    ``sum k^2 + k b``), besides the elimination's; :meth:`DissectionTree.diagonal_bytes` states the whole.
+    """
+    from rgftrans.transport._frontal import OK, FACTORS_FULL, DOWN_STACK_FULL, ROOT_SINGULAR, select_diagonal, \
+        TOO_MANY_DELAYS, STACK_FULL
+
+    energies = np.atleast_1d(np.asarray(energies, dtype=float))
+    if not model.leads:
+        from rgftrans.errors import LeadError
+
+        raise LeadError("the diagonal of G by nested dissection needs at least one lead (the tree's root is the "
+                        "lead interfaces); use solver='rgf' for a closed system")
+    plan = dissection_plan(model) if plan is None else plan
+    t = plan.tree
+    sym = plan.symmetric
+    n_e, n = len(energies), t.n_orbitals
+    cap = delay_max(t)
+    factors = np.empty(t.factor_entries(sym) * 5 // 4 + 16 * cap * cap, dtype=complex)
+    down = np.empty(t.down_entries() * 5 // 4 + 4 * cap * cap + 16, dtype=complex)
+    diag = np.full((n_e, n), np.nan + 0j)
+    trusted = np.zeros(n_e, dtype=bool)
+    reason = [""] * n_e
+    pivot, growth = np.zeros(n_e), np.zeros(n_e)
+    delayed = np.zeros(n_e, dtype=np.int64)
+    delays = np.zeros(n_e, dtype=np.int64)
+    at_threshold = np.zeros(n_e, dtype=bool)
+    h_max = float(np.abs(plan.entry_val).max(initial=0.0))
+    slots = t.lead_slots
+    out = np.empty(n, dtype=complex)
+    for i, energy in enumerate(energies):
+        sigmas, modes = lead_self_energies(model, energy)
+        at_threshold[i] = any(m.at_threshold for m in modes)
+        z = device_energy(energy, modes, eta)
+        sigma_root = np.zeros((t.root_size, t.root_size), dtype=complex)
+        for sigma, slot in zip(sigmas, slots):
+            sigma_root[np.ix_(slot, slot)] += sigma
+        while True:
+            status, piv, grow, n_dl, dly, root_pivot, need_f, need_d = select_diagonal(
+                z, sigma_root, t.n_elim, t.n_bound, t.child_ptr, t.children, t.map_ptr, t.parent_pos, t.entry_ptr,
+                t.entry_row, t.entry_col, plan.entry_val, t.elim_orbitals, t.root_orbitals.astype(np.int64),
+                t.front_max, t.stack_max, sym, PIVOT_DELAY, cap, factors, down, out)
+            if status == FACTORS_FULL:
+                factors = np.empty(need_f + need_f // 4, dtype=complex)
+            elif status == DOWN_STACK_FULL:
+                down = np.empty(need_d + need_d // 4, dtype=complex)
+            else:
+                break
+        pivot[i], delays[i], delayed[i] = piv, n_dl, dly
+        growth[i] = grow / (h_max + abs(z))
+        if status == TOO_MANY_DELAYS:
+            reason[i] = f"more than {cap} delayed unknowns in one front (a large region singular at this energy)"
+        elif status == STACK_FULL:
+            reason[i] = "delayed unknowns overflowed the update stack"
+        elif status == ROOT_SINGULAR:
+            reason[i] = "the root (lead interfaces with their self-energies) is exactly singular"
+        elif growth[i] > GROWTH_MAX:
+            reason[i] = f"elimination growth {growth[i]:.1e} above {GROWTH_MAX:.0e}"
+        elif root_pivot < ROOT_PIVOT_MIN:
+            reason[i] = f"root pivot {root_pivot:.1e} below {ROOT_PIVOT_MIN:.0e}"
+        elif not np.all(np.isfinite(out)):
+            reason[i] = "non-finite entries in G"
+        else:
+            assert status == OK
+            trusted[i] = True
+            diag[i] = out
+    work = t.work_bytes + 16 * (len(factors) + len(down)) + 4 * n + 8 * (3 * n + int(np.sum(t.n_bound)))
+    return DissectionDiagonal(diagonal=diag, trusted=trusted, reason=tuple(reason), pivot=pivot, growth=growth,
+                              delayed=delayed, delays=delays, at_threshold=at_threshold, work_bytes=int(work))
