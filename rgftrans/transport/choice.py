@@ -17,6 +17,14 @@ DEVELOPERS.md records the fit):
   ``b`` per front entry assembled (zeroing, extend-add, copies), ``c`` per front (calls), plus
   ``DISSECTION_ROOT`` per ``k^3/3`` of the root's k unknowns and ``DISSECTION_PER_ENERGY``.
 
+The LDOS (the diagonal of G, :func:`rgftrans.transport.local.ldos`) has its own choice,
+:func:`choose_ldos_solver`: RGF's diagonal costs a fixed multiple of its
+transmission (forward, backward and diagonal-block inversions per layer,
+``LDOS_RGF_FACTOR``; ``LDOS_RGF_FACTOR_MANY`` for more than two leads, where
+full sweeps with lead columns run per energy), the tree's adds the downward
+pass of selected inversion (:meth:`DissectionTree.selection_flops` at the
+elimination's rate per multiply-add, ``LDOS_TREE_PER_FRONT`` per front).
+
 The prediction only has to rank the two near their crossover; away from it one
 route wins by far.  Devices whose RGF is predicted below ``RGF_ALWAYS_BELOW``
 seconds per energy run RGF without building the tree at all: there nothing
@@ -34,7 +42,8 @@ from rgftrans.system.budget import MEMORY_SHARE, available_memory_bytes
 from rgftrans.system.device import TightBindingModel
 from rgftrans.transport.slicing import Slicing, default_slicing
 
-__all__ = ["SOLVERS", "SolverChoice", "choose_solver", "rgf_seconds", "rgf_bytes", "dissection_seconds"]
+__all__ = ["SOLVERS", "SolverChoice", "choose_solver", "rgf_seconds", "rgf_bytes", "dissection_seconds",
+           "choose_ldos_solver", "ldos_rgf_seconds", "ldos_dissection_seconds"]
 
 #: Solver names a transport call accepts.
 SOLVERS = ("auto", "rgf", "dissection")
@@ -138,6 +147,89 @@ def choose_solver(model: TightBindingModel, *, solver: str = "auto", slicing: Sl
                             f"RGF predicted at {t_rgf * 1e3:.2g} ms per energy: too small to plan a tree for")
     tree = dissection_tree(model)
     t_tree, m_tree = dissection_seconds(tree), float(tree.work_bytes + tree.nbytes)
+    if solver == "dissection":
+        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, "asked for")
+    fits = m_rgf < MEMORY_SHARE * available_memory_bytes()
+    if t_tree < t_rgf or not fits:
+        why = (f"predicted {t_tree:.3g} s per energy against RGF's {t_rgf:.3g} s" if fits else
+               f"RGF's layer blocks ({m_rgf / 1e9:.3g} GB) would not fit in memory")
+        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, why)
+    return SolverChoice("rgf", t_rgf, t_tree, m_rgf, m_tree,
+                        f"predicted {t_rgf:.3g} s per energy against the tree's {t_tree:.3g} s")
+
+
+#: RGF's LDOS time per energy over its transmission time, two leads at the two ends of the slicing (the compiled
+#: diagonal kernel): 2.5-3.1 measured on strips W = 8..256 (DEVELOPERS.md, RGF benchmark record).
+LDOS_RGF_FACTOR = 3.0
+#: The same for any other lead layout (one lead, three or more, or two in one layer: full sweeps with lead
+#: columns, one energy at a time).  Measured 2026-12-04: see DEVELOPERS.md, issue 18 (LDOS).
+LDOS_RGF_FACTOR_MANY = 6.0
+#: Tree LDOS seconds per front of the downward pass besides its multiply-adds (the pivot block's inverse call,
+#: the cut of each child's block); measured with the rate per multiply-add of ``DISSECTION_SECONDS``,
+#: 2026-12-04 (DEVELOPERS.md, issue 18).
+LDOS_TREE_PER_FRONT = 2.0e-6
+
+
+def ldos_rgf_seconds(sizes, n_leads: int = 2, *, two_ended: bool = True) -> float:
+    """Predicted RGF LDOS time per energy (s): :func:`rgf_seconds` times ``LDOS_RGF_FACTOR`` (two leads at the
+    two ends of the slicing) or ``LDOS_RGF_FACTOR_MANY``."""
+    factor = LDOS_RGF_FACTOR if (n_leads == 2 and two_ended) else LDOS_RGF_FACTOR_MANY
+    return factor * rgf_seconds(sizes)
+
+
+def ldos_dissection_seconds(tree, symmetric: bool) -> float:
+    """Predicted tree LDOS time per energy (s): the elimination (:func:`dissection_seconds`) and the downward
+    pass (:meth:`DissectionTree.selection_flops` at the elimination's rate, ``LDOS_TREE_PER_FRONT`` per front)."""
+    return float(dissection_seconds(tree) + DISSECTION_SECONDS[0] * tree.selection_flops(symmetric)
+                 + LDOS_TREE_PER_FRONT * tree.n_nodes)
+
+
+def choose_ldos_solver(model: TightBindingModel, *, solver: str = "auto") -> SolverChoice:
+    """Pick RGF or the tree's selected inversion for the LDOS of ``model``, by predicted time per energy.
+
+    Parameters
+    ----------
+    model : TightBindingModel
+    solver : {"auto", "rgf", "dissection"}
+        "auto" compares the predictions (:func:`ldos_rgf_seconds`, :func:`ldos_dissection_seconds`); the others
+        force a route.
+
+    Returns
+    -------
+    SolverChoice
+        Predicted seconds and work bytes of both routes for the LDOS (RGF: its layer blocks and the kept
+        sweeps, :func:`rgf_bytes` with the full-sweep factor; the tree: the elimination, the kept factors and
+        the downward stack, :meth:`DissectionTree.diagonal_bytes`, and its index arrays).  RGF is taken when it
+        is predicted faster, below :data:`RGF_ALWAYS_BELOW`, or when the model has no lead (the tree's root is
+        the lead interfaces); the tree when it is faster or RGF would not fit in memory.
+    """
+    if solver not in SOLVERS:
+        raise RgftransError(f"solver={solver!r} is not one of {', '.join(map(repr, SOLVERS))}; use 'auto' to let "
+                            "the package choose from the predicted cost")
+    from rgftrans.errors import LeadError
+    from rgftrans.transport.dissection import SYMMETRIC_FRONTS, dissection_tree
+
+    layers = default_slicing(model)
+    sizes = [len(layer) for layer in layers.layers]
+    lead_layer = layers.lead_layer
+    two_ended = len(model.leads) == 2 and lead_layer[0] != lead_layer[1]
+    t_rgf = ldos_rgf_seconds(sizes, len(model.leads), two_ended=two_ended)
+    m_rgf = rgf_bytes(sizes, 3)
+    nan = float("nan")
+    if solver == "rgf":
+        return SolverChoice("rgf", t_rgf, nan, m_rgf, nan, "asked for")
+    if not model.leads:
+        if solver == "dissection":
+            raise LeadError("solver='dissection' needs at least one lead (the tree's root is the lead interfaces); "
+                            "use solver='rgf' or 'auto' for a closed system")
+        return SolverChoice("rgf", t_rgf, nan, m_rgf, nan, "no lead: the tree needs lead interfaces at its root")
+    if solver == "auto" and t_rgf < RGF_ALWAYS_BELOW:
+        return SolverChoice("rgf", t_rgf, nan, m_rgf, nan,
+                            f"RGF predicted at {t_rgf * 1e3:.2g} ms per energy: too small to plan a tree for")
+    tree = dissection_tree(model)
+    symmetric = bool(SYMMETRIC_FRONTS and not np.any(model.hamiltonian.data.imag))
+    t_tree = ldos_dissection_seconds(tree, symmetric)
+    m_tree = float(tree.diagonal_bytes(symmetric) + tree.nbytes)
     if solver == "dissection":
         return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, "asked for")
     fits = m_rgf < MEMORY_SHARE * available_memory_bytes()

@@ -1,7 +1,11 @@
 """Local quantities on the device: LDOS, lead-resolved densities, scattering states, currents.
 
 All come from one forward and one backward RGF sweep
-(:func:`rgftrans.transport.rgf.green_blocks`) at a single energy:
+(:func:`rgftrans.transport.rgf.green_blocks`) at a single energy, except the
+LDOS of wide devices, which :func:`ldos` takes from the nested-dissection
+tree by selected inversion when that is predicted faster
+(:func:`rgftrans.transport.dissection.dissection_diagonal`,
+:func:`rgftrans.transport.choice.choose_ldos_solver`):
 
 * LDOS ``rho_i = -Im G_ii / pi`` (states per meV per site), summed over the
   orbitals of a site;
@@ -25,7 +29,7 @@ import scipy.sparse as sp
 
 from rgftrans.constants import SINGULAR_ETA
 from rgftrans.system.device import TightBindingModel
-from rgftrans.errors import ThresholdWarning
+from rgftrans.errors import RgftransWarning, ThresholdWarning
 from rgftrans.system.inputs import check_energies, check_energy, check_eta, check_model
 from rgftrans.leads.modes import incoming_sources, outgoing_amplitudes, require_off_threshold
 from rgftrans.transport.rgf import LayerBlocks, end_self_energies, green_blocks, layer_blocks
@@ -33,7 +37,7 @@ from rgftrans.leads.embedding import device_energy, lead_self_energies
 from rgftrans.transport.slicing import Slicing
 
 
-__all__ = ["LocalResult", "local_quantities", "ldos", "ScatteringStates", "scattering_states", "bond_currents"]
+__all__ = ["LocalResult", "local_quantities", "LdosResult", "ldos", "ldos_result", "ScatteringStates", "scattering_states", "bond_currents"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -100,31 +104,113 @@ def local_quantities(model: TightBindingModel, energy: float, *, eta: float = 0.
                        lead_names=tuple(l.name for l in model.leads))
 
 
-def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
+@dataclass(frozen=True, eq=False)
+class LdosResult:
+    """Local density of states at a set of energies, and the route that computed it.
+
+    Attributes
+    ----------
+    energies : (n_E,) float ndarray, meV
+    ldos : (n_E, n_sites) float ndarray, 1/meV
+        ``-Im G_ii / pi`` summed over the orbitals of each site.
+    solver : {"rgf", "dissection"}
+        The route chosen for the call (:func:`rgftrans.transport.choice.choose_ldos_solver`).
+    reason : str
+        Why that route (one line, from the choice).
+    redone : (n_E,) bool ndarray
+        Energies the tree did not trust, computed again by RGF (``solver`` stays "dissection").
+    notes : tuple of str
+        Per energy: "" or why it was redone.
+    """
+
+    energies: np.ndarray
+    ldos: np.ndarray
+    solver: str
+    reason: str
+    redone: np.ndarray
+    notes: tuple
+
+
+def ldos(model: TightBindingModel, energies, *, eta: float = 0.0, solver: str = "auto") -> np.ndarray:
     """Local density of states ``-Im G_ii / pi`` per site (1/meV), summed over orbitals.
 
     Parameters
     ----------
     energies : float or (n_E,) array, meV
+    eta : float, meV
+        Imaginary part added to the device energies (the leads are evaluated exactly).
+    solver : {"auto", "rgf", "dissection"}
+        "auto" (default) takes the route predicted faster for this model
+        (:func:`rgftrans.transport.choice.choose_ldos_solver`): RGF for narrow devices,
+        selected inversion on the nested-dissection tree for wide ones.  Both give the same
+        LDOS to round-off; :func:`ldos_result` says which ran.
 
     Returns
     -------
     (n_sites,) or (n_E, n_sites) float ndarray
 
-    With two leads (one at each end of the slicing) the diagonal comes from
-    the compiled kernel: forward and backward sweeps, both starting at a
-    lead, and one more inversion per layer.  Otherwise (one lead, three or
-    more, or a closed system) it comes from :func:`local_quantities`.
+    By RGF, with two leads (one at each end of the slicing) the diagonal comes
+    from the compiled kernel: forward and backward sweeps, both starting at a
+    lead, and one more inversion per layer; otherwise (one lead, three or
+    more, or a closed system) from :func:`local_quantities`.  By the tree:
+    :func:`rgftrans.transport.dissection.dissection_diagonal`.
     """
+    res = ldos_result(model, energies, eta=eta, solver=solver)
+    return res.ldos[0] if np.ndim(energies) == 0 else res.ldos
+
+
+def ldos_result(model: TightBindingModel, energies, *, eta: float = 0.0, solver: str = "auto") -> LdosResult:
+    """:func:`ldos` with the route it took: an :class:`LdosResult` (energies as an (n_E,) array).
+
+    On the tree, an energy it does not trust (delayed unknowns over their cap, growth or the root's pivot out
+    of bounds: :class:`rgftrans.transport.dissection.DissectionDiagonal`) is redone by RGF and marked in
+    ``redone`` with the tree's reason; if RGF's layer blocks would not fit in memory either, its LDOS is NaN
+    and a warning says so.
+    """
+    from rgftrans.transport.choice import choose_ldos_solver
+
     check_model(model)
-    scalar = np.ndim(energies) == 0
-    energies = check_energies(energies, model)
+    energies = np.atleast_1d(check_energies(energies, model))
     eta = check_eta(eta)
+    choice = choose_ldos_solver(model, solver=solver)
+    n_e = len(energies)
+    redone = np.zeros(n_e, dtype=bool)
+    notes = [""] * n_e
+    if choice.solver == "rgf":
+        out = _ldos_rgf(model, energies, eta)
+    else:
+        from rgftrans.transport.dissection import dissection_diagonal
+
+        res = dissection_diagonal(model, energies, eta)
+        out = np.array([model.per_site(row) for row in -res.diagonal.imag / np.pi]).reshape(n_e, model.n_sites)
+        redo = np.flatnonzero(~res.trusted)
+        if len(redo):
+            from rgftrans.system.budget import MEMORY_SHARE, available_memory_bytes
+
+            redone[redo] = True
+            if model.cache.layer_blocks is not None or choice.rgf_bytes < MEMORY_SHARE * available_memory_bytes():
+                out[redo] = _ldos_rgf(model, energies[redo], eta)
+                for k in redo:
+                    notes[k] = f"redone by RGF: {res.reason[k]}"
+            else:
+                for k in redo:
+                    notes[k] = f"not computed: {res.reason[k]}, and RGF would not fit in memory"
+                warnings.warn(
+                    f"{len(redo)} LDOS energy point(s) (e.g. E = {energies[redo[0]]:.10g} meV) are NaN: the tree did "
+                    f"not trust them ({res.reason[redo[0]]}) and RGF's layer blocks ({choice.rgf_bytes / 1e9:.3g} GB) "
+                    "would not fit in memory -- shift those energies slightly",
+                    RgftransWarning, stacklevel=2,
+                )
+    return LdosResult(energies=energies, ldos=out, solver=choice.solver, reason=choice.reason, redone=redone,
+                      notes=tuple(notes))
+
+
+def _ldos_rgf(model: TightBindingModel, energies: np.ndarray, eta: float) -> np.ndarray:
+    """LDOS (n_E, n_sites) by RGF (energies and eta checked by the caller)."""
     blocks = layer_blocks(model)
     lead_layers = blocks.slicing.lead_layer
     if len(model.leads) != 2 or lead_layers[0] == lead_layers[1]:
-        out = np.array([local_quantities(model, e, eta=eta).ldos for e in energies])
-        return out[0] if scalar else out
+        return np.array([local_quantities(model, e, eta=eta).ldos for e in energies]).reshape(-1, model.n_sites)
     from rgftrans.transport._kernels import SMALL_BLOCK, diagonal_two_terminal, diagonal_two_terminal_small
 
     n_e = len(energies)
@@ -143,11 +229,11 @@ def ldos(model: TightBindingModel, energies, *, eta: float = 0.0) -> np.ndarray:
     order = _site_order(blocks)
     out = np.empty((n_e, model.n_orbitals))
     out[:, order] = -diag.imag / np.pi
-    result = np.array([model.per_site(row) for row in out])
+    result = np.array([model.per_site(row) for row in out]).reshape(n_e, model.n_sites)
     bad = ~np.all(np.isfinite(result), axis=1)
     for k in np.flatnonzero(bad):  # a singular partial system at exactly this energy: the other sweep order
         result[k] = local_quantities(model, energies[k], eta=eta).ldos
-    return result[0] if scalar else result
+    return result
 
 
 @dataclass(frozen=True, eq=False)
