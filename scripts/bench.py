@@ -418,6 +418,50 @@ def calibrate():
               f"{np.max(np.maximum(pred / t, t / pred)):.2f}")
 
 
+def calibrate_ldos():
+    """Fit the LDOS constants of rgftrans.transport.choice to this machine (prints them).
+
+    Both LDOS routes are forced on strips W x 400 and squares n x n.  RGF's LDOS time is fitted as a multiple of
+    its predicted transmission time (``LDOS_RGF_FACTOR``); the tree's as its predicted elimination time plus
+    ``a`` per multiply-add of the downward pass and ``c`` per front, by non-negative least squares on the relative
+    error.
+    """
+    from scipy.optimize import nnls
+
+    from rgftrans.transport.choice import dissection_seconds, rgf_seconds
+    from rgftrans.transport.dissection import dissection_tree
+    from rgftrans.transport.slicing import default_slicing
+
+    cases = [(w, 400) for w in (4, 8, 16, 32, 64)] + [(n, n) for n in (24, 32, 48, 64, 96, 128, 192)]
+    rgf_ratio, tree_rows = [], []
+    print("\nCalibration of the LDOS routes: forced RGF and forced tree, seconds per energy")
+    for w, l in cases:
+        model = strip(w, l)
+        energies = _energies_for(model.n_sites)[:4]
+        times = {}
+        for solver in ("rgf", "dissection"):
+            ldos(model, energies[:1], solver=solver)
+            times[solver] = best_time(lambda: ldos(model, energies, solver=solver), 3) / len(energies)
+        m = np.array([len(layer) for layer in default_slicing(model).layers], dtype=float)
+        tree = dissection_tree(model)
+        rgf_ratio.append(times["rgf"] / rgf_seconds(m))
+        tree_rows.append(([tree.selection_flops(True), tree.n_nodes], times["dissection"] - dissection_seconds(tree),
+                          times["dissection"]))
+        print(f"  {w:>4} x {l:<4} RGF {times['rgf'] * 1e3:9.2f} ms ({rgf_ratio[-1]:.2f} x its transmission "
+              f"prediction)   tree {times['dissection'] * 1e3:9.2f} ms", flush=True)
+        clear_lead_cache()
+    ratio = np.array(rgf_ratio)
+    print(f"  RGF LDOS over predicted RGF transmission: median {np.median(ratio):.2f}, range {ratio.min():.2f}.."
+          f"{ratio.max():.2f}")
+    a = np.array([r[0] for r in tree_rows])
+    extra = np.array([r[1] for r in tree_rows])
+    total = np.array([r[2] for r in tree_rows])
+    coef, _ = nnls(a / total[:, None], extra / total)
+    pred = total - extra + a @ coef
+    print(f"  tree LDOS: a = {coef[0]:.3g} s per multiply-add of the downward pass, c = {coef[1]:.3g} s per front; "
+          f"worst prediction off by a factor {np.max(np.maximum(pred / total, total / pred)):.2f}")
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes and few repeats (a smoke run)")
@@ -425,6 +469,7 @@ def main(argv=None):
     parser.add_argument("--squares", type=int, nargs="*", help="only the square table, for these sides")
     parser.add_argument("--big", action="store_true", help="add the 1024 x 1024 square (10^6 sites; long)")
     parser.add_argument("--calibrate", action="store_true", help="refit the solver-choice constants")
+    parser.add_argument("--calibrate-ldos", action="store_true", help="refit the LDOS solver-choice constants")
     parser.add_argument("--part", choices=["length", "memory", "processes"], help="only one of the other parts")
     args = parser.parse_args(argv)
     for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -436,6 +481,9 @@ def main(argv=None):
         return
     if args.calibrate:
         calibrate()
+        return
+    if args.calibrate_ldos:
+        calibrate_ldos()
         return
     if args.widths or args.squares:
         if args.widths:

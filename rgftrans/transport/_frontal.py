@@ -225,11 +225,11 @@ def _lu_apply(lu, f, n, ipiv, x, y, m):
 
 
 @njit(cache=True)
-def _near_null_unknowns(lu, f, n, ipiv, chosen):
+def _near_null_unknowns(lu, f, n, ipiv, chosen, residual=NULL_RESIDUAL):
     """Unknowns to delay: one per near-null direction of F11 (factored in ``lu``); returns their count.
 
     Block inverse iteration (two solves on ``NULL_BLOCK`` fixed pseudo-random vectors), Rayleigh-Ritz on
-    the result, the directions with residual below ``NULL_RESIDUAL max |U_jj|``, then greedy selection
+    the result, the directions with residual below ``residual max |U_jj|`` (default ``NULL_RESIDUAL``), then greedy selection
     (QR with column pivoting on the transposed basis): the unknown with the largest weight in what is
     left of the near-null space, deflated, and again.  At least one unknown is chosen.
     """
@@ -260,7 +260,7 @@ def _near_null_unknowns(lu, f, n, ipiv, chosen):
         scale = max(scale, abs(lu[j * f + j]))
     r = 0
     for j in range(m):
-        if np.sqrt(max(lam[j], 0.0)) < NULL_RESIDUAL * scale:
+        if np.sqrt(max(lam[j], 0.0)) < residual * scale:
             r += 1
     r = max(r, 1)
     basis = np.ascontiguousarray(q) @ np.ascontiguousarray(z[:, :r])  # (n, r) near-null directions
@@ -460,6 +460,9 @@ _xxgetrf = types.ExternalFunction("numba_xxgetrf", types.intc(
 _xxgetri = types.ExternalFunction("numba_ez_xxgetri", types.intc(
     types.char, types.intp, _C, types.intp, types.CPointer(types.int32)))
 
+#: Rounds of partial delays one front of :func:`select_diagonal` may take (up to ``NULL_BLOCK`` unknowns each)
+#: before it is delayed whole.
+DELAY_ROUNDS = 8
 #: Further status codes of :func:`select_diagonal`: a store passed in is too small (the caller enlarges it
 #: to the size returned and calls again), or the root (with the leads) is exactly singular.
 FACTORS_FULL, DOWN_STACK_FULL, ROOT_SINGULAR = 3, 4, 5
@@ -491,9 +494,24 @@ def _gemm(m, n, k, alpha, a, lda, b, ldb, beta, c, ldc):
 
 
 @njit(cache=True)
+def _conditioned(pivot, front, f, k, b):
+    """The pivot measure of the diagonal of G: the smaller of the LU's relative pivot and ``1 / max |X|``,
+    ``X = F11^-1 F12`` (dimensionless).  A partially pivoted LU can look regular while F11 is nearly singular
+    (the clean square just off 4t: pivots of 0.04, ``X`` of 1e8); ``X`` shows it, and G inside the front,
+    ``S_KK^-1 - X G_BK``, loses ``~eps max|X|^2`` to cancellation."""
+    big = 0.0
+    for j in range(b):
+        col = (k + j) * f
+        for i in range(k):
+            val = front[col + i]
+            big = max(big, abs(val.real) + abs(val.imag))
+    return min(pivot, 1.0 / big) if big > 0 else pivot
+
+
+@njit(cache=True)
 def select_diagonal(z, sigma_root, n_elim, n_bound, child_ptr, children, map_ptr, parent_pos, entry_ptr, entry_row,
                     entry_col, entry_val, elim_orbitals, root_orbitals, front_max, stack_max, symmetric, pivot_delay,
-                    delay_max, factors, down, out_diag):
+                    null_residual, delay_max, factors, down, out_diag):
     """The diagonal of ``G = (z - H - Sigma)^-1`` at one energy: the elimination with its factors kept, then
     the selected inversion down the tree (see the comment above).
 
@@ -504,7 +522,10 @@ def select_diagonal(z, sigma_root, n_elim, n_bound, child_ptr, children, map_ptr
     sigma_root : (k, k) complex
         Sum of the leads' self-energies on the root's unknowns (order of ``root_orbitals``).
     n_elim ... entry_val, front_max, stack_max, symmetric, pivot_delay, delay_max
-        As in :func:`schur_onto_root`.
+        As in :func:`schur_onto_root` (``pivot_delay`` applied to :func:`_conditioned`).
+    null_residual : float
+        Ritz directions with residual below this fraction of ``max |U_jj|`` are delayed (see
+        :func:`_near_null_unknowns`).
     elim_orbitals : (n_orbitals - k,) int64
         Orbital of each eliminated unknown, node by node in tree order.
     root_orbitals : (k,) int64
@@ -607,27 +628,35 @@ def select_diagonal(z, sigma_root, n_elim, n_bound, child_ptr, children, map_ptr
         r = 0
         full_delay = False
         if v != root:
-            pivot = _factor(front, f, kk, b, ipiv)
-            if pivot < pivot_delay:
-                r = _near_null_unknowns(front, f, kk, ipiv, chosen)
-                _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
-                          map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
-                n_k = 0
-                for i in range(kk):
+            pivot = _conditioned(_factor(front, f, kk, b, ipiv), front, f, kk, b)
+            rounds = 0
+            while pivot < pivot_delay and rounds < DELAY_ROUNDS and kk - r > 1:
+                # Delay the unknowns of the near-null directions found in what is still eliminated, and again
+                # while the rest is still near-singular (large subdomains have many levels close to E).
+                n_k = kk - r
+                r_new = _near_null_unknowns(front, f, n_k, ipiv, chosen, null_residual)
+                m_k = 0
+                for i in range(n_k):
                     keep = True
-                    for t in range(r):
+                    for t in range(r_new):
                         if chosen[t] == i:
                             keep = False
                     if keep:
-                        perm[n_k] = i
-                        n_k += 1
-                for t in range(r):
-                    perm[n_k + t] = chosen[t]
-                for i in range(kk, f):
-                    perm[i] = i
+                        inv[m_k] = perm[i]
+                        m_k += 1
+                for t in range(r_new):
+                    inv[m_k + t] = perm[chosen[t]]
+                for i in range(n_k, f):
+                    inv[i] = perm[i]
+                for i in range(f):
+                    perm[i] = inv[i]
+                r += r_new
+                rounds += 1
+                _assemble(front, f, d, k, z, v, entry_ptr, entry_row, entry_col, entry_val, child_ptr, children,
+                          map_ptr, parent_pos, d_out, sq_out, upd_off, stack, pos_buf, symmetric)
                 _permute(front, spare, f, perm)
                 front, spare = spare, front
-                pivot = _factor(front, f, kk - r, b + r, ipiv)
+                pivot = _conditioned(_factor(front, f, kk - r, b + r, ipiv), front, f, kk - r, b + r)
             if pivot < pivot_delay:
                 full_delay = True
                 for i in range(f):

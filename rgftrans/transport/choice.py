@@ -22,8 +22,8 @@ The LDOS (the diagonal of G, :func:`rgftrans.transport.local.ldos`) has its own 
 transmission (forward, backward and diagonal-block inversions per layer,
 ``LDOS_RGF_FACTOR``; ``LDOS_RGF_FACTOR_MANY`` for more than two leads, where
 full sweeps with lead columns run per energy), the tree's adds the downward
-pass of selected inversion (:meth:`DissectionTree.selection_flops` at the
-elimination's rate per multiply-add, ``LDOS_TREE_PER_FRONT`` per front).
+pass of selected inversion (``LDOS_TREE_SECONDS``: per multiply-add of
+:meth:`DissectionTree.selection_flops` and per front).
 
 The prediction only has to rank the two near their crossover; away from it one
 route wins by far.  Devices whose RGF is predicted below ``RGF_ALWAYS_BELOW``
@@ -158,16 +158,18 @@ def choose_solver(model: TightBindingModel, *, solver: str = "auto", slicing: Sl
                         f"predicted {t_rgf:.3g} s per energy against the tree's {t_tree:.3g} s")
 
 
-#: RGF's LDOS time per energy over its transmission time, two leads at the two ends of the slicing (the compiled
-#: diagonal kernel): 2.5-3.1 measured on strips W = 8..256 (DEVELOPERS.md, RGF benchmark record).
-LDOS_RGF_FACTOR = 3.0
+#: RGF's LDOS time per energy over its predicted transmission time (:func:`rgf_seconds`), two leads at the two
+#: ends of the slicing (the compiled diagonal kernel).  Fitted by ``scripts/bench.py --calibrate-ldos`` on
+#: 2026-12-04 (strips W x 400, W = 4..64, squares n = 24..192, one BLAS thread): median 2.6, range 1.7-3.0.
+LDOS_RGF_FACTOR = 2.6
 #: The same for any other lead layout (one lead, three or more, or two in one layer: full sweeps with lead
-#: columns, one energy at a time).  Measured 2026-12-04: see DEVELOPERS.md, issue 18 (LDOS).
+#: columns, one energy at a time): measured 2.5 (24^2, three leads) to 11.5 (48^2) times the two-lead square's
+#: transmission, 2026-12-04.
 LDOS_RGF_FACTOR_MANY = 6.0
-#: Tree LDOS seconds per front of the downward pass besides its multiply-adds (the pivot block's inverse call,
-#: the cut of each child's block); measured with the rate per multiply-add of ``DISSECTION_SECONDS``,
-#: 2026-12-04 (DEVELOPERS.md, issue 18).
-LDOS_TREE_PER_FRONT = 2.0e-6
+#: Tree LDOS seconds beyond its elimination (:func:`dissection_seconds`): per complex multiply-add of the
+#: downward pass (:meth:`DissectionTree.selection_flops`) and per front (the pivot block's inverse call, the
+#: cut of each child's block, the kept factors' copies).  Same fit, worst prediction off by a factor 1.23.
+LDOS_TREE_SECONDS = (4.0e-10, 2.7e-6)
 
 
 def ldos_rgf_seconds(sizes, n_leads: int = 2, *, two_ended: bool = True) -> float:
@@ -179,9 +181,9 @@ def ldos_rgf_seconds(sizes, n_leads: int = 2, *, two_ended: bool = True) -> floa
 
 def ldos_dissection_seconds(tree, symmetric: bool) -> float:
     """Predicted tree LDOS time per energy (s): the elimination (:func:`dissection_seconds`) and the downward
-    pass (:meth:`DissectionTree.selection_flops` at the elimination's rate, ``LDOS_TREE_PER_FRONT`` per front)."""
-    return float(dissection_seconds(tree) + DISSECTION_SECONDS[0] * tree.selection_flops(symmetric)
-                 + LDOS_TREE_PER_FRONT * tree.n_nodes)
+    pass (:data:`LDOS_TREE_SECONDS` per multiply-add of :meth:`DissectionTree.selection_flops` and per front)."""
+    a, c = LDOS_TREE_SECONDS
+    return float(dissection_seconds(tree) + a * tree.selection_flops(symmetric) + c * tree.n_nodes)
 
 
 def choose_ldos_solver(model: TightBindingModel, *, solver: str = "auto") -> SolverChoice:
