@@ -18,7 +18,10 @@ process, so the ratios compare like with like on this machine:
              affordable (predicted under RGF_REFERENCE_MAX_S per energy);
 * floor   -- strips only: L back-to-back inversions of a dense W x W complex matrix
              (the irreducible work of one RGF sweep);
-* LDOS    -- strips only: the diagonal of G by RGF per energy, as a ratio to RGF.
+* LDOS    -- the LDOS (rgftrans.transport.local.ldos, solver="auto": RGF or the tree's
+             selected inversion, as the package chooses) per energy, as a ratio to ours
+             (the transmission with its own chosen solver), with the LDOS route's stated
+             work memory (squares: the tree's elimination, kept factors and downward stack).
 
 Systems: square-lattice strips W x 400 and squares n x n, onsite disorder
 uniform in [-t/2, t/2] (seeded), clean leads on the left and right edges,
@@ -56,8 +59,8 @@ from rgftrans.system.device import Device, Lead
 from rgftrans.system.fields import Disorder
 from rgftrans.system.geometry import rectangle
 from rgftrans.system.lattices import square
-from rgftrans.transport.choice import choose_solver
-from rgftrans.transport.local import ldos
+from rgftrans.transport.choice import choose_ldos_solver, choose_solver
+from rgftrans.transport.local import ldos, ldos_result
 from rgftrans.transport.rgf import transmission
 
 ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
@@ -222,10 +225,16 @@ def _energies_for(sites: int) -> np.ndarray:
     return ENERGIES
 
 
+def ldos_per_energy(model, repeats, energies):
+    """Seconds per energy of the package's LDOS (solver="auto") and the route it took (plans built before)."""
+    route = ldos_result(model, energies[:1]).solver  # compile, plan, warm the lead cache
+    return best_time(lambda: ldos(model, energies), repeats) / len(energies), route
+
+
 def width_table(widths, length, repeats):
     print(f"\nTransmission per energy, strip W x {length}; fastest of {repeats} runs (1 from 20 000 sites)")
     print(f"{'W':>5} {'ours (ms)':>10} {'solver':>11} {'careful (ms)':>13} {'ordering':>14} {'careful/ours':>13} "
-          f"{'RGF (ms)':>9} {'floor (ms)':>11} {'LDOS/RGF':>9}")
+          f"{'RGF (ms)':>9} {'floor (ms)':>11} {'LDOS':>11} {'LDOS/ours':>10}")
     rows = []
     for w in widths:
         model = strip(w, length)
@@ -235,11 +244,10 @@ def width_table(widths, length, repeats):
         careful, ordering, _ = careful_per_energy(model, energies[:4], 1)
         rgf = ours if solver == "rgf" else ours_per_energy(model, reps, energies, solver="rgf")[0]
         floor = floor_per_sweep(w, length, reps)
-        ldos(model, energies[:1])
-        ldos_t = best_time(lambda: ldos(model, energies[:4]), 1) / len(energies[:4])
+        ldos_t, ldos_route = ldos_per_energy(model, reps, energies)
         rows.append((w, ours, solver, careful, ordering))
         print(f"{w:>5} {ours * 1e3:>10.2f} {solver:>11} {careful * 1e3:>13.1f} {ordering:>14} {careful / ours:>13.2f} "
-              f"{rgf * 1e3:>9.2f} {floor * 1e3:>11.2f} {ldos_t / rgf:>9.2f}", flush=True)
+              f"{rgf * 1e3:>9.2f} {floor * 1e3:>11.2f} {ldos_route:>11} {ldos_t / ours:>10.2f}", flush=True)
         clear_lead_cache()
     return rows
 
@@ -247,7 +255,8 @@ def width_table(widths, length, repeats):
 def square_table(sides, repeats):
     print(f"\nTransmission per energy, square n x n; fastest of {repeats} runs below 20 000 sites, else one run")
     print(f"{'n':>5} {'N':>8} {'ours (ms)':>10} {'solver':>11} {'careful (ms)':>13} {'ordering':>14} "
-          f"{'careful/ours':>13} {'RGF (ms)':>10} {'tree work (MiB)':>16}")
+          f"{'careful/ours':>13} {'RGF (ms)':>10} {'tree work (MiB)':>16} {'LDOS (ms)':>10} {'LDOS route':>11} "
+          f"{'LDOS/ours':>10} {'LDOS work (MiB)':>16}")
     sites, ours_t, careful_t = [], [], []
     orderings = list(ORDERINGS)
     for n in sides:
@@ -260,6 +269,9 @@ def square_table(sides, repeats):
         rgf = ours if solver == "rgf" else (ours_per_energy(model, 1, energies[:1], solver="rgf")[0]
                                              if choice.rgf_seconds < RGF_REFERENCE_MAX_S else float("nan"))
         work = choice.dissection_bytes / 2**20
+        ldos_t, ldos_route = ldos_per_energy(model, reps, energies)
+        l_choice = choose_ldos_solver(model)
+        ldos_work = (l_choice.dissection_bytes if ldos_route == "dissection" else l_choice.rgf_bytes) / 2**20
         dropped = [o for o in orderings if timings[o] > ORDERING_DROP * careful] if ordering else []
         orderings = [o for o in orderings if o not in dropped]
         sites.append(model.n_sites)
@@ -272,7 +284,8 @@ def square_table(sides, repeats):
         else:
             careful_text, ratio_text = f"{careful * 1e3:>13.1f} {ordering:>14}", f"{careful / ours:>13.2f}"
         print(f"{n:>5} {model.n_sites:>8} {ours * 1e3:>10.1f} {solver:>11} {careful_text} {ratio_text} {rgf_text} "
-              f"{work:>16.1f}{note}", flush=True)
+              f"{work:>16.1f} {ldos_t * 1e3:>10.1f} {ldos_route:>11} {ldos_t / ours:>10.2f} {ldos_work:>16.1f}{note}",
+              flush=True)
         clear_lead_cache()
     if len(sites) >= 2:
         from rgftrans.transport.dissection import dissection_tree

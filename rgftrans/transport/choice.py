@@ -160,7 +160,8 @@ def choose_solver(model: TightBindingModel, *, solver: str = "auto", slicing: Sl
 
 #: RGF's LDOS time per energy over its predicted transmission time (:func:`rgf_seconds`), two leads at the two
 #: ends of the slicing (the compiled diagonal kernel).  Fitted by ``scripts/bench.py --calibrate-ldos`` on
-#: 2026-12-04 (strips W x 400, W = 4..64, squares n = 24..192, one BLAS thread): median 2.6, range 1.7-3.0.
+#: 2026-12-04 (strips W x 400, W = 4..64, squares n = 24..192, one BLAS thread): median 2.6, range 1.7-3.0;
+#: applied to the layer part only (the lead terms are paid once either way).
 LDOS_RGF_FACTOR = 2.6
 #: The same for any other lead layout (one lead, three or more, or two in one layer: full sweeps with lead
 #: columns, one energy at a time): measured 2.5 (24^2, three leads) to 11.5 (48^2) times the two-lead square's
@@ -173,10 +174,10 @@ LDOS_TREE_SECONDS = (4.0e-10, 2.7e-6)
 
 
 def ldos_rgf_seconds(sizes, n_leads: int = 2, *, two_ended: bool = True) -> float:
-    """Predicted RGF LDOS time per energy (s): :func:`rgf_seconds` times ``LDOS_RGF_FACTOR`` (two leads at the
-    two ends of the slicing) or ``LDOS_RGF_FACTOR_MANY``."""
+    """Predicted RGF LDOS time per energy (s): the layer part of :func:`rgf_seconds` times ``LDOS_RGF_FACTOR``
+    (two leads at the two ends of the slicing) or ``LDOS_RGF_FACTOR_MANY``, and the lead terms once."""
     factor = LDOS_RGF_FACTOR if (n_leads == 2 and two_ended) else LDOS_RGF_FACTOR_MANY
-    return factor * rgf_seconds(sizes)
+    return factor * (rgf_seconds(sizes) - RGF_PER_ENERGY) + RGF_PER_ENERGY
 
 
 def ldos_dissection_seconds(tree, symmetric: bool) -> float:
