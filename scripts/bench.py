@@ -36,7 +36,7 @@ losing candidate from the baseline, never a winner at the size where it was
 last measured.
 
 Usage: scripts/bench [--quick] [--squares 64 128 ...] [--widths 8 64 ...] [--big] [--calibrate]
-                     [--part length|memory|processes]
+                     [--calibrate-ldos] [--part length|memory|ldos-memory|processes]
 """
 
 from __future__ import annotations
@@ -364,6 +364,39 @@ def peak_memory(cases):
               f", the measured peak like N^{np.polyfit(n, np.log([max(r[1], 1.0) for r in squares]), 1)[0]:.2f}")
 
 
+def ldos_peak_memory(sides):
+    """Peak resident memory added by one LDOS call on n x n squares (fresh process each; model, plans and lead
+    modes built and the kernel compiled before), beside the route's stated work memory."""
+    print("\nPeak work memory of ldos (fresh process each, 1 energy; model, tree and lead modes built and the kernel "
+          "loaded before)")
+    here = os.path.dirname(os.path.abspath(__file__))
+    code = (
+        "import sys, resource\n"
+        f"sys.path.insert(0, {here!r})\n"
+        "from bench import strip, ENERGIES\n"
+        "from rgftrans.transport.local import ldos_result\n"
+        "from rgftrans.transport.choice import choose_ldos_solver\n"
+        "small = strip(8, 8)\n"
+        "ldos_result(small, ENERGIES[:1], solver='dissection')\n"
+        "model = strip(int(sys.argv[1]), int(sys.argv[1]))\n"
+        "c = choose_ldos_solver(model)\n"
+        "from rgftrans.transport.dissection import dissection_plan\n"
+        "dissection_plan(model) if c.solver == 'dissection' else None\n"
+        "from rgftrans.leads.embedding import lead_self_energies\n"
+        "lead_self_energies(model, ENERGIES[1])\n"
+        "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "r = ldos_result(model, ENERGIES[1:2])\n"
+        "after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "work = c.dissection_bytes if r.solver == 'dissection' else c.rgf_bytes\n"
+        "print(r.solver, (after - before) * 1024, work, model.n_sites)\n"
+    )
+    for n in sides:
+        out = subprocess.run([sys.executable, "-c", code, str(n)], capture_output=True, text=True, check=True)
+        solver, grown, stated, sites = out.stdout.strip().splitlines()[-1].split()
+        print(f"  {n} x {n} ({solver}): peak RSS +{float(grown) / 2**20:.1f} MiB during the call; stated work "
+              f"{float(stated) / 2**20:.1f} MiB ({float(stated) / int(sites):.0f} bytes per site)", flush=True)
+
+
 def _sweep_point(args):
     width, length, energy = args
     return transmission(_sweep_point.model, [energy]).transmission[0]
@@ -483,7 +516,8 @@ def main(argv=None):
     parser.add_argument("--big", action="store_true", help="add the 1024 x 1024 square (10^6 sites; long)")
     parser.add_argument("--calibrate", action="store_true", help="refit the solver-choice constants")
     parser.add_argument("--calibrate-ldos", action="store_true", help="refit the LDOS solver-choice constants")
-    parser.add_argument("--part", choices=["length", "memory", "processes"], help="only one of the other parts")
+    parser.add_argument("--part", choices=["length", "memory", "ldos-memory", "processes"],
+                        help="only one of the other parts")
     args = parser.parse_args(argv)
     for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(var, "1")  # children inherit it; this process was started with it by scripts/bench
@@ -507,12 +541,14 @@ def main(argv=None):
     if args.part:
         {"length": lambda: length_scan(32, [100, 200, 400, 800, 1600], 5),
          "memory": lambda: peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)]),
+         "ldos-memory": lambda: ldos_peak_memory([128, 256, 512] + ([1024] if args.big else [])),
          "processes": lambda: process_scaling(64, 200, 256)}[args.part]()
         return
     width_table([16, 64, 128], 400, 5)
     square_table([64, 128, 256, 512] + ([1024] if args.big else []), 5)
     length_scan(32, [100, 200, 400, 800, 1600], 5)
     peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)])
+    ldos_peak_memory([128, 256, 512] + ([1024] if args.big else []))
     process_scaling(64, 200, 256)
 
 
