@@ -190,6 +190,19 @@ def test_symmetric_downward_pass_equals_the_general_one(monkeypatch):
         _assert_close(general[k], sym[k], "general pass")
 
 
+def test_one_lead():
+    # One lead: the root holds only its interface; every other site is closed off but by that lead.
+    model = Device(rectangle(0, 0, 14, 11), [Lead("a", "left", (2, 8))], lattice=square(1.0), hopping=1.0,
+                   disorder=Disorder(1.0, seed=2)).discretise()
+    energies = np.array([1.3, 3.7, 5.2])
+    rho, res = _tree_ldos(model, energies)
+    assert res.trusted.all()
+    by_rgf = ldos(model, energies, solver="rgf")
+    for k, energy in enumerate(energies):
+        _assert_close(rho[k], _dense_ldos(model, energy), f"one lead, E = {energy} vs dense")
+        _assert_close(rho[k], by_rgf[k], f"one lead, E = {energy} vs RGF")
+
+
 def test_absorbing_device():
     # A complex onsite energy (-0.05i meV everywhere): not Hermitian, the general pass; LDOS = -Im G_ii / pi still.
     base = random_device(5, max_len=20, max_wid=16).model
