@@ -16,8 +16,8 @@ Erisman & W. F. Tinney, Commun. ACM 18, 177 (1975); the FIND scheme of S. Li, S.
 E. Darve, J. Comput. Phys. 227, 9408 (2008) (all from memory).
 
 Tolerance: ``REL = 1e-10`` of the largest LDOS on the device at that energy (max over sites of |reference|).
-All routes are exact up to round-off.  Measured over the 154 comparisons of this file (150-1300 orbitals;
-square, honeycomb, triangular lattices; fields; spin with Rashba and Zeeman; 2-4 leads; closed subdomains at
+All routes are exact up to round-off.  Measured over the 160 comparisons of this file (150-1300 orbitals;
+square, honeycomb, triangular lattices; fields; spin with Rashba and Zeeman; 1-4 leads; closed subdomains at
 and near their eigenvalues): worst 2.3e-12; on disordered squares of 64^2-256^2 sites across the band (against
 RGF and scipy's splu, outside this file) up to 1.2e-11.  The tree has no pivoting across fronts, and G inside a
 nearly singular front is a difference of large terms; the stricter delays of the diagonal

@@ -229,9 +229,9 @@ def _near_null_unknowns(lu, f, n, ipiv, chosen, residual=NULL_RESIDUAL):
     """Unknowns to delay: one per near-null direction of F11 (factored in ``lu``); returns their count.
 
     Block inverse iteration (two solves on ``NULL_BLOCK`` fixed pseudo-random vectors), Rayleigh-Ritz on
-    the result, the directions with residual below ``residual max |U_jj|`` (default ``NULL_RESIDUAL``), then greedy selection
-    (QR with column pivoting on the transposed basis): the unknown with the largest weight in what is
-    left of the near-null space, deflated, and again.  At least one unknown is chosen.
+    the result, the directions with residual below ``residual max |U_jj|`` (default ``NULL_RESIDUAL``), then
+    greedy selection (QR with column pivoting on the transposed basis): the unknown with the largest weight
+    in what is left of the near-null space, deflated, and again.  At least one unknown is chosen.
     """
     m = min(n, NULL_BLOCK)
     x = np.empty(n * m, dtype=np.complex128)

@@ -37,7 +37,8 @@ from rgftrans.leads.embedding import device_energy, lead_self_energies
 from rgftrans.transport.slicing import Slicing
 
 
-__all__ = ["LocalResult", "local_quantities", "LdosResult", "ldos", "ldos_result", "ScatteringStates", "scattering_states", "bond_currents"]
+__all__ = ["LocalResult", "local_quantities", "LdosResult", "ldos", "ldos_result", "ScatteringStates",
+           "scattering_states", "bond_currents"]
 
 
 @dataclass(frozen=True, eq=False)
