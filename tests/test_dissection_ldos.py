@@ -19,8 +19,8 @@ Tolerance: ``REL = 1e-10`` of the largest LDOS on the device at that energy (max
 All routes are exact up to round-off.  Measured over the 160 comparisons of this file (150-1300 orbitals;
 square, honeycomb, triangular lattices; fields; spin with Rashba and Zeeman; 1-4 leads; closed subdomains at
 and near their eigenvalues): worst 2.3e-12; on disordered squares of 64^2-256^2 sites across the band (against
-RGF and scipy's splu, outside this file) up to 1.2e-11.  The tree has no pivoting across fronts, and G inside a
-nearly singular front is a difference of large terms; the stricter delays of the diagonal
+RGF, itself checked against splu columns; outside this file) up to 1.2e-11.  The tree has no pivoting across
+fronts, and G inside a nearly singular front is a difference of large terms; the stricter delays of the diagonal
 (``dissection.PIVOT_DELAY_DIAGONAL``) keep that at round-off (with the transmission's threshold the same
 squares lose up to 7e-9).  1e-10 leaves a margin of ten and still catches a misplaced entry, a wrong sign or a
 lost delayed unknown, which move the LDOS by 1e-3 or more.
