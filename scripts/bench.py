@@ -23,6 +23,9 @@ process, so the ratios compare like with like on this machine:
              (the transmission with its own chosen solver), with the LDOS route's stated
              work memory (squares: the tree's elimination, kept factors and downward stack).
 
+* multi   -- four-terminal squares: the transmission matrix against the careful sparse solve
+             for three of the four leads' columns (scripts/bench_multiterminal.py).
+
 Systems: square-lattice strips W x 400 and squares n x n, onsite disorder
 uniform in [-t/2, t/2] (seeded), clean leads on the left and right edges,
 t = 1, energies in the lower quarter of the band (E = 0.6 t .. 1.0 t above the
@@ -36,7 +39,7 @@ losing candidate from the baseline, never a winner at the size where it was
 last measured.
 
 Usage: scripts/bench [--quick] [--squares 64 128 ...] [--widths 8 64 ...] [--big] [--calibrate]
-                     [--calibrate-ldos] [--part length|memory|ldos-memory|processes]
+                     [--calibrate-ldos] [--part length|memory|ldos-memory|processes|multi]
 """
 
 from __future__ import annotations
@@ -62,6 +65,8 @@ from rgftrans.system.lattices import square
 from rgftrans.transport.choice import choose_ldos_solver, choose_solver
 from rgftrans.transport.local import ldos, ldos_result
 from rgftrans.transport.rgf import transmission
+
+from bench_multiterminal import table as multi_terminal_table  # noqa: E402  (scripts/ is on sys.path when run)
 
 ENERGIES = np.linspace(0.6, 1.0, 16) + 0.00137  # off the strip thresholds
 ORDERINGS = ("COLAMD", "MMD_AT_PLUS_A", "MMD_ATA")
@@ -516,7 +521,7 @@ def main(argv=None):
     parser.add_argument("--big", action="store_true", help="add the 1024 x 1024 square (10^6 sites; long)")
     parser.add_argument("--calibrate", action="store_true", help="refit the solver-choice constants")
     parser.add_argument("--calibrate-ldos", action="store_true", help="refit the LDOS solver-choice constants")
-    parser.add_argument("--part", choices=["length", "memory", "ldos-memory", "processes"],
+    parser.add_argument("--part", choices=["length", "memory", "ldos-memory", "processes", "multi"],
                         help="only one of the other parts")
     args = parser.parse_args(argv)
     for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -525,6 +530,7 @@ def main(argv=None):
     if args.quick:
         width_table([8, 32], 100, 2)
         square_table([32, 64], 2)
+        multi_terminal_table([32, 64], 2)
         return
     if args.calibrate:
         calibrate()
@@ -542,7 +548,8 @@ def main(argv=None):
         {"length": lambda: length_scan(32, [100, 200, 400, 800, 1600], 5),
          "memory": lambda: peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)]),
          "ldos-memory": lambda: ldos_peak_memory([128, 256, 512] + ([1024] if args.big else [])),
-         "processes": lambda: process_scaling(64, 200, 256)}[args.part]()
+         "processes": lambda: process_scaling(64, 200, 256),
+         "multi": lambda: multi_terminal_table([64, 128, 256, 512], 3)}[args.part]()
         return
     width_table([16, 64, 128], 400, 5)
     square_table([64, 128, 256, 512] + ([1024] if args.big else []), 5)
@@ -550,6 +557,7 @@ def main(argv=None):
     peak_memory([(64, 1600), (128, 128), (256, 256), (512, 512), (1024, 1024)] if args.big else [(64, 1600), (128, 128), (256, 256), (512, 512)])
     ldos_peak_memory([128, 256, 512] + ([1024] if args.big else []))
     process_scaling(64, 200, 256)
+    multi_terminal_table([64, 128, 256, 512], 3)
 
 
 if __name__ == "__main__":

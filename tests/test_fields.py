@@ -221,3 +221,13 @@ def test_triangular_effective_mass():
     dev = Device(rectangle(0, 0, 10, 10), [Lead("l", "left", (0, 10)), Lead("r", "right", (0, 10))],
                  lattice=triangular(2.0))
     assert dev.t == pytest.approx(2 / 3 * hopping_meV(0.067, 2.0), rel=1e-12)  # same formula, rounding only
+
+
+def test_field_none_is_no_field_and_junk_is_one_line():
+    leads = [Lead("a", "left", (0, 10)), Lead("b", "right", (0, 10))]
+    none = Device(rectangle(0, 0, 10, 10), leads, lattice=square(1.0), hopping=1.0, field=None)
+    zero = Device(rectangle(0, 0, 10, 10), leads, lattice=square(1.0), hopping=1.0, field=0.0)
+    assert abs(none.discretise().hamiltonian - zero.discretise().hamiltonian).max() == 0
+    for bad in ("1 T", [0.1, 0.2], 1j, True):
+        with pytest.raises(PotentialError, match="field must be a number of tesla"):
+            Device(rectangle(0, 0, 10, 10), leads, lattice=square(1.0), hopping=1.0, field=bad)

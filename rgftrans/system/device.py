@@ -364,9 +364,9 @@ class Device:
     hopping : float, meV, optional
         Overrides ``t = hbar^2/(2 m* a^2)`` (e.g. ``1.0`` for tight-binding
         units).  Required on the honeycomb lattice.
-    field : float or MagneticField
+    field : float or MagneticField or None
         Perpendicular magnetic field (T), orbital (Peierls) and, on spinful
-        devices, Zeeman.
+        devices, Zeeman.  None means no field (0 T).
     spin : bool
         Two orbitals (spin up, down along z) per site.
     rashba : float, meV nm
@@ -406,6 +406,12 @@ class Device:
         if not isinstance(self.lattice, Lattice):
             raise LatticeError(f"lattice must be a Lattice (square(a_nm), honeycomb(...), ...), got "
                                f"{type(self.lattice).__name__}")
+        if self.field is None:  # no field
+            object.__setattr__(self, "field", 0.0)
+        if not isinstance(self.field, (MagneticField, int, float, np.integer, np.floating)) or isinstance(
+                self.field, (bool, np.bool_)):
+            raise PotentialError(f"field must be a number of tesla or a MagneticField(...), got {self.field!r}; "
+                                 "e.g. field=0.5 or field=MagneticField(flux_per_cell=0.05)")
 
     def discretise(self) -> "TightBindingModel":
         """Return the tight-binding model of this device (see :func:`discretise`)."""

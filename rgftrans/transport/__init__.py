@@ -5,7 +5,8 @@
 elimination for wide devices, :func:`dissection_tree`; :func:`choose_solver`
 picks the route predicted faster), :func:`transmission_direct` and
 :func:`scattering_matrix` (sparse LU, the independent reference), and local
-quantities (LDOS, lead-resolved densities, scattering states, bond currents).
+quantities (LDOS, lead-resolved densities, scattering states, bond currents), and disorder
+ensembles (:func:`disorder_ensemble`, :func:`localisation_length`).
 Builds on ``leads`` and ``system``.
 """
 
@@ -23,6 +24,8 @@ _EXPORTS = {
     "LocalResult": "local",
     "local_quantities": "local",
     "ldos": "local",
+    "ldos_result": "local",
+    "LdosResult": "local",
     "ScatteringStates": "local",
     "scattering_states": "local",
     "bond_currents": "local",
@@ -39,6 +42,12 @@ _EXPORTS = {
     "default_slicing": "slicing",
     "SolverChoice": "choice",
     "choose_solver": "choice",
+    "choose_ldos_solver": "choice",
+    "DisorderSampler": "ensemble",
+    "EnsembleResult": "ensemble",
+    "disorder_ensemble": "ensemble",
+    "localisation_length": "ensemble",
+    "LocalisationFit": "ensemble",
     "DissectionTree": "dissection",
     "DissectionPlan": "dissection",
     "dissection_tree": "dissection",
