@@ -159,6 +159,14 @@ def _say_where_written(config: str, output: str | Path) -> None:
         print(f"  note: writing outside the config's folder: {target}")
 
 
+def _save(fig, path, **kwargs) -> None:
+    """Write a figure and close it (commands run in one process, e.g. from the demo, must not pile up figures)."""
+    import matplotlib.pyplot as plt
+
+    fig.savefig(path, **kwargs)
+    plt.close(fig)
+
+
 def _positive_int(text: str) -> int:
     """argparse type: a whole number >= 1."""
     try:
@@ -307,7 +315,7 @@ def _cmd_check(args) -> int:
         fig, ax = plot_device(model, device=device)
         ax.set_title(Path(args.config).name)
         Path(args.draw).parent.mkdir(parents=True, exist_ok=True)
-        fig.savefig(args.draw, dpi=150)
+        _save(fig, args.draw, dpi=150)
         print(f"  drawn to {args.draw}")
     return EXIT_OK
 
@@ -356,7 +364,7 @@ def _cmd_plot(args) -> int:
                          temperature_K=args.temperature, over_energy=args.over_energy)
     out = Path(args.out or Path(args.result).with_suffix(".png"))
     out.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(out, dpi=150, bbox_inches="tight")
+    _save(fig, out, dpi=150, bbox_inches="tight")
     print(f"wrote {out}")
     return EXIT_OK
 
@@ -468,9 +476,9 @@ def _cmd_darkstates(args) -> int:
     shown = replace(search, bics=[search.bics[k] for k in keep], diagnostics=[search.diagnostics[k] for k in keep],
                     nearby_q=[search.nearby_q[k] for k in keep])
     fig, ax = plot_width_track(shown)
-    fig.savefig(f"{prefix}_width.png", dpi=150)
+    _save(fig, f"{prefix}_width.png", dpi=150)
     fig, ax = plot_track_on_map(args.result, shown)
-    fig.savefig(f"{prefix}_track.png", dpi=150)
+    _save(fig, f"{prefix}_track.png", dpi=150)
     if inside and np.ndim(inside[0].parameter) == 0:
         from rgftrans.io.searches import stored_model
 
@@ -480,7 +488,7 @@ def _cmd_darkstates(args) -> int:
         q_near = search.nearby_q[search.bics.index(loc)][0]
         fig, ax = plot_map(model, density, label="|ψ|² (per site)",
                            title=f"dark state at E = {loc.energy_meV:.4f} meV; Q = {q_near:.3g} just beside it")
-        fig.savefig(f"{prefix}_dark_state.png", dpi=150)
+        _save(fig, f"{prefix}_dark_state.png", dpi=150)
     print(f"  written: group 'darkstates' in {args.save or args.result}; figures {prefix}_*.png")
     return EXIT_OK
 
@@ -530,19 +538,19 @@ def _darkstates_plane(args, data) -> int:
     prefix.parent.mkdir(parents=True, exist_ok=True)
     keep = [k for k, b in enumerate(search.bics) if not b.outside_stored_energies]  # figures: inside ones only
     fig, _ = plot_bic_plane(replace(search, bics=inside, seed_of_bic=[search.seed_of_bic[k] for k in keep]))
-    fig.savefig(f"{prefix}_plane.png", dpi=150)
+    _save(fig, f"{prefix}_plane.png", dpi=150)
     if inside:
         build = stored[1]
         bic = inside[0]
         step = float(np.median(np.diff(search.p1)))
         collapse = fano_collapse(build, bic, step / 4, parameter_unit=data.axes[0].units)
         fig, _ = plot_fano_collapse(collapse, name=n1)
-        fig.savefig(f"{prefix}_fano_collapse.png", dpi=150)
+        _save(fig, f"{prefix}_fano_collapse.png", dpi=150)
         model = build(*bic.parameter)
         fig, _ = plot_map(model, model.per_site(bic.state**2), label="|ψ|² (per site)",
                           title=f"dark state at E = {bic.energy_meV:.4f} meV; Q = {bic.nearby_q.min():.3g} one "
                                 "step away")
-        fig.savefig(f"{prefix}_dark_state.png", dpi=150)
+        _save(fig, f"{prefix}_dark_state.png", dpi=150)
     print(f"  written: group 'darkstates' in {args.save or args.result}; figures {prefix}_*.png")
     return EXIT_OK
 
@@ -604,7 +612,7 @@ def _compare_peaks(args) -> int:
     res.plot(fit.gate_V * 1e3, (fit.measured_S - fit.model_S) * 1e9, lw=0.8, color="0.3")
     res.set_xlabel("gate voltage (mV)")
     res.set_ylabel("residual (nS)")
-    fig.savefig(f"{prefix}.png", dpi=150)
+    _save(fig, f"{prefix}.png", dpi=150)
     print(f"  written: group '{args.group}' in {target}; {prefix}.txt; {prefix}.png")
     return EXIT_OK
 
@@ -694,7 +702,7 @@ def _cmd_compare(args) -> int:
     prefix.parent.mkdir(parents=True, exist_ok=True)
     Path(f"{prefix}.txt").write_text(text + "\n", encoding="utf-8")
     fig, _ = plot_fit(result)
-    fig.savefig(f"{prefix}.png", dpi=150)
+    _save(fig, f"{prefix}.png", dpi=150)
     print(f"  written: group '{args.group}' in {target}; {prefix}.txt; {prefix}.png")
     return EXIT_OK
 
@@ -728,15 +736,15 @@ def _cmd_blockade(args) -> int:
         for t, g in zip(result.temperatures_K, result.conductance_S):
             print(f"  T = {t:g} K: peak conductance {g.max():.3g} S ({g.max() / CONDUCTANCE_QUANTUM_S:.3g} x 2e^2/h)")
         fig, _ = plot_coulomb_peaks(result)
-        fig.savefig(f"{prefix}_peaks.png", dpi=150)
+        _save(fig, f"{prefix}_peaks.png", dpi=150)
         fig, _ = plot_diamonds(result)
-        fig.savefig(f"{prefix}_diamonds.png", dpi=150)
+        _save(fig, f"{prefix}_diamonds.png", dpi=150)
         written = f"{prefix}_peaks.png, {prefix}_diamonds.png"
     else:
         print(f"  triple-point current up to {abs(result.current_A).max():.3g} A at V_sd = {result.bias_V * 1e3:g} "
               f"mV, {result.temperature_K:g} K")
         fig, _ = plot_stability(result)
-        fig.savefig(f"{prefix}_stability.png", dpi=150)
+        _save(fig, f"{prefix}_stability.png", dpi=150)
         written = f"{prefix}_stability.png"
     print(f"  written: group 'blockade' in {target}; {written}")
     return EXIT_OK
@@ -770,7 +778,7 @@ def _cmd_ensemble(args) -> int:
     prefix.parent.mkdir(parents=True, exist_ok=True)
     write_ensemble(result, target, overwrite=args.overwrite)
     fig, _ = plot_fluctuations(result)
-    fig.savefig(f"{prefix}_fluctuations.png", dpi=150)
+    _save(fig, f"{prefix}_fluctuations.png", dpi=150)
     print(f"  written: group '{GROUP}' in {target}; {prefix}_fluctuations.png")
     return EXIT_OK
 
@@ -804,7 +812,7 @@ def _cmd_waveguide(args) -> int:
     prefix.parent.mkdir(parents=True, exist_ok=True)
     cutoffs = [f for k in range(min(2, len(spectrum.port_names))) for f in pm.cutoffs_GHz(k, 3)]
     fig, _ = plot_spectrum(spectrum, cutoffs_GHz=cutoffs, title=f"grid {pm.spacing:g} {pm.unit}")
-    fig.savefig(f"{prefix}_spectrum.png", dpi=150, bbox_inches="tight")
+    _save(fig, f"{prefix}_spectrum.png", dpi=150, bbox_inches="tight")
     if run.sharpest is not None:
         res, fm = run.sharpest, run.field_map
         line = min(run.lines, key=lambda x: x.width_GHz)
@@ -813,7 +821,7 @@ def _cmd_waveguide(args) -> int:
         fig, _ = plot_waveguide_field(pm, np.abs(fm.field), label="|E_z| / incident peak (1)",
                                       title=f"|E_z| at {res.frequency_GHz:.5g} GHz (Q = {res.q_factor:.3g}), "
                                             f"from port {spectrum.port_names[0]!r}")
-        fig.savefig(f"{prefix}_field.png", dpi=150, bbox_inches="tight")
+        _save(fig, f"{prefix}_field.png", dpi=150, bbox_inches="tight")
     if run.search is not None:
         s = run.search
         (n1, v1), (n2, v2) = cfg.axes()
@@ -832,11 +840,11 @@ def _cmd_waveguide(args) -> int:
             fig, _ = plot_bic_plane(
                 s, units=units,
                 state_text=lambda k0a_squared: f"f = {float(pm.frequency_GHz(max(k0a_squared, 0.0))):.6g} GHz")
-            fig.savefig(f"{prefix}_plane.png", dpi=150, bbox_inches="tight")
+            _save(fig, f"{prefix}_plane.png", dpi=150, bbox_inches="tight")
             mode = run.dark_modes[0]
             fig, _ = plot_waveguide_field(mode.model, mode.mode_field, label="|E_z| / its maximum (1)",
                                           title=f"dark mode at {mode.frequency_GHz:.6g} GHz")
-            fig.savefig(f"{prefix}_dark_mode.png", dpi=150, bbox_inches="tight")
+            _save(fig, f"{prefix}_dark_mode.png", dpi=150, bbox_inches="tight")
     write_waveguide(run, target, overwrite=args.overwrite)
     say(f"  written: {target}; figures {prefix}_*.png")
     return EXIT_OK
