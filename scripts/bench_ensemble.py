@@ -10,6 +10,8 @@ thread) and a square, at one energy and at eight.  For each:
 * rebuild   -- what a sweep over ``disorder.seed`` does: a new Device, ``discretise()``, ``transmission()``
                (a new slicing or tree, new lead self-energies, the blocks cut again).
 
+Last: an ensemble on one process and on two (``workers=2``), wall time.
+
 overhead = draw / solve (the only work a sample adds to its solve; measured directly rather than as the
 difference of two noisy totals, which is printed too); rebuild / sample = what the ensemble saves.
 Timings are the fastest of several runs (the least disturbed on a shared machine).
@@ -27,7 +29,7 @@ from rgftrans.system.device import Device, Lead
 from rgftrans.system.fields import Disorder
 from rgftrans.system.geometry import rectangle
 from rgftrans.system.lattices import square
-from rgftrans.transport.ensemble import DisorderSampler
+from rgftrans.transport.ensemble import DisorderSampler, disorder_ensemble
 from rgftrans.transport.rgf import transmission
 
 
@@ -73,6 +75,16 @@ def main(argv=None) -> None:
             print(f"{f'{width}x{length}':>10} {len(energies):>4} {sampler.solver:>10} {solve * 1e3:>11.2f} "
                   f"{draw * 1e3:>10.3f} {sample * 1e3:>12.2f} {draw / solve:>11.3f} "
                   f"{(sample - solve) / solve:>21.3f} {rebuilt * 1e3:>13.1f} {rebuilt / sample:>15.1f}", flush=True)
+
+    samples = 100 if args.quick else 600
+    dev = device(32, 400)
+    times = {}
+    for workers in (1, 2):
+        t0 = time.perf_counter()
+        disorder_ensemble(dev, [0.5, 0.9], samples=samples, workers=workers)
+        times[workers] = time.perf_counter() - t0
+    print(f"\n{samples} samples of 32x400 at 2 energies: 1 process {times[1]:.2f} s, 2 processes {times[2]:.2f} s "
+          f"(speed-up {times[1] / times[2]:.2f}; spawning and preparing the second process's sampler included)")
 
 
 if __name__ == "__main__":
