@@ -56,6 +56,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numba import njit
 
+from _timing import best_time  # scripts/ is on sys.path when a script runs
 from rgftrans.leads.embedding import lead_self_energies
 from rgftrans.leads.modes import clear_lead_cache
 from rgftrans.system.device import Device, Lead
@@ -85,16 +86,6 @@ def strip(width: int, length: int):
     leads = [Lead("left", "left", (0, width - 1)), Lead("right", "right", (0, width - 1))]
     return Device(region, leads, lattice=square(1.0), hopping=1.0, disorder=Disorder(1.0, seed=1)).discretise()
 
-
-def best_time(fn, repeats: int) -> float:
-    """Fastest of ``repeats`` runs (s): on a machine shared with other work the minimum is the least disturbed
-    estimate, and every route in a table is measured the same way."""
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.min(times))
 
 
 def ours_per_energy(model, repeats, energies=ENERGIES, solver="auto"):

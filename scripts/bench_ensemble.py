@@ -25,6 +25,7 @@ import time
 
 import numpy as np
 
+from _timing import best_time  # scripts/ is on sys.path when a script runs
 from rgftrans.system.device import Device, Lead
 from rgftrans.system.fields import Disorder
 from rgftrans.system.geometry import rectangle
@@ -38,14 +39,6 @@ def device(width: int, length: int) -> Device:
                   [Lead("left", "left", (0, width - 1)), Lead("right", "right", (0, width - 1))],
                   lattice=square(1.0), hopping=1.0, energy_origin="band_centre", disorder=Disorder(1.0, seed=0))
 
-
-def best_time(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.min(times))
 
 
 def main(argv=None) -> None:

@@ -19,12 +19,12 @@ The two agree to round-off on the columns both compute (printed as max |dT|).
 from __future__ import annotations
 
 import argparse
-import time
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from _timing import best_time  # scripts/ is on sys.path when a script runs
 from rgftrans.leads.embedding import lead_self_energies
 from rgftrans.system.device import Device, Lead
 from rgftrans.system.fields import Disorder
@@ -45,14 +45,6 @@ def cross(n: int):
     return Device(rectangle(0, 0, n - 1, n - 1), leads, lattice=square(1.0), hopping=1.0,
                   disorder=Disorder(1.0, seed=1)).discretise()
 
-
-def best_time(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.min(times))
 
 
 def careful_solver(model, energies):

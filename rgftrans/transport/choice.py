@@ -147,15 +147,7 @@ def choose_solver(model: TightBindingModel, *, solver: str = "auto", slicing: Sl
                             f"RGF predicted at {t_rgf * 1e3:.2g} ms per energy: too small to plan a tree for")
     tree = dissection_tree(model)
     t_tree, m_tree = dissection_seconds(tree), float(tree.work_bytes + tree.nbytes)
-    if solver == "dissection":
-        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, "asked for")
-    fits = m_rgf < MEMORY_SHARE * available_memory_bytes()
-    if t_tree < t_rgf or not fits:
-        why = (f"predicted {t_tree:.3g} s per energy against RGF's {t_rgf:.3g} s" if fits else
-               f"RGF's layer blocks ({m_rgf / 1e9:.3g} GB) would not fit in memory")
-        return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, why)
-    return SolverChoice("rgf", t_rgf, t_tree, m_rgf, m_tree,
-                        f"predicted {t_rgf:.3g} s per energy against the tree's {t_tree:.3g} s")
+    return _cheaper(solver, t_rgf, t_tree, m_rgf, m_tree)
 
 
 #: RGF's LDOS time per energy over its predicted transmission time (:func:`rgf_seconds`), two leads at the two
@@ -233,6 +225,11 @@ def choose_ldos_solver(model: TightBindingModel, *, solver: str = "auto") -> Sol
     symmetric = bool(SYMMETRIC_FRONTS and not np.any(model.hamiltonian.data.imag))
     t_tree = ldos_dissection_seconds(tree, symmetric)
     m_tree = float(tree.diagonal_bytes(symmetric) + tree.nbytes)
+    return _cheaper(solver, t_rgf, t_tree, m_rgf, m_tree)
+
+
+def _cheaper(solver: str, t_rgf: float, t_tree: float, m_rgf: float, m_tree: float) -> SolverChoice:
+    """The route asked for, else the one predicted faster; the tree whenever RGF's blocks would not fit."""
     if solver == "dissection":
         return SolverChoice("dissection", t_rgf, t_tree, m_rgf, m_tree, "asked for")
     fits = m_rgf < MEMORY_SHARE * available_memory_bytes()
