@@ -763,12 +763,7 @@ def _cmd_ensemble(args) -> int:
     cfg = load_config(args.config)
     require_disorder(cfg)
     target = Path(args.output or cfg.output.path)
-    if target.exists():
-        check_group_writable(target, GROUP, overwrite=args.overwrite)  # refused now, not after the work
-    elif not target.parent.is_dir():
-        from rgftrans.errors import StoreError
-
-        raise StoreError(f"{target}: directory {target.parent} does not exist; create it or choose another path")
+    check_group_writable(target, GROUP, overwrite=args.overwrite)  # refused now, not after the work
     print(f"{args.config}: {args.samples} disorder samples of the device at its base point")
     result = ensemble_from_config(cfg, args.samples, width_meV=args.width_meV, progress=not args.quiet,
                                   workers=args.workers)

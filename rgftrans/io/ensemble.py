@@ -19,6 +19,7 @@ import h5py
 import numpy as np
 
 from rgftrans.errors import ConfigError, StoreError
+from rgftrans.io.store import StoredArray, _plain, write_group
 from rgftrans.system.materials import CONDUCTANCE_QUANTUM_S
 from rgftrans.transport.ensemble import EnsembleResult, disorder_ensemble
 
@@ -47,8 +48,6 @@ def require_disorder(cfg) -> None:
 
 def write_ensemble(result: EnsembleResult, path, *, overwrite: bool = False, group: str = GROUP) -> None:
     """Store an ensemble as ``group`` (beside a sweep's results, or in a new file of its own)."""
-    from rgftrans.io.store import StoredArray, write_group
-
     samples = ("seed", "energy")
     items = {
         "energy": StoredArray(result.energies, "meV", "energy", scale=True),
@@ -90,19 +89,16 @@ def read_ensemble(path, group: str = GROUP) -> EnsembleResult:
                          "not HDF5 -- rerun `rgftrans ensemble` with --overwrite") from None
     with f:
         g = f.get(group)
-        fmt = g.attrs.get("format", b"") if isinstance(g, h5py.Group) else b""
-        if (fmt.decode() if isinstance(fmt, bytes) else str(fmt)) != _FORMAT:
+        if not isinstance(g, h5py.Group) or _plain(g.attrs.get("format", "")) != _FORMAT:
             raise StoreError(f"{path}: no disorder ensemble in /{group}; run `rgftrans ensemble CONFIG --samples N` "
                              "first")
         try:
-            a = g.attrs
-            names = a["lead_names"]
+            a = {key: _plain(value) for key, value in g.attrs.items()}
             return EnsembleResult(
                 energies=g["energy"][()], seeds=g["seed"][()], width_meV=float(a["disorder_width_meV"]),
                 transmission=g["transmission"][()], n_open=g["open_channels"][()],
-                spin_degeneracy=int(a["spin_degeneracy"]),
-                solver=a["solver"].decode() if isinstance(a["solver"], bytes) else str(a["solver"]),
-                lead_names=tuple((names.decode() if isinstance(names, bytes) else str(names)).split()))
+                spin_degeneracy=int(a["spin_degeneracy"]), solver=str(a["solver"]),
+                lead_names=tuple(str(a["lead_names"]).split()))
         except (KeyError, OSError, ValueError) as exc:
             raise StoreError(f"{path}: the group /{group} is incomplete or damaged ({' '.join(str(exc).split())}); "
                              "rerun `rgftrans ensemble` with --overwrite") from None

@@ -102,11 +102,8 @@ class DisorderSampler:
         self.solver = _choose(self.model, solver, None).solver
         norbs = self.model.norbs
         self._orbitals = norbs
-        per_energy = [lead_self_energies(self.model, e, warn=False) for e in self.energies]
-        self.n_open = np.array([[m.n_open for m in modes] for _, modes in per_energy], dtype=np.int64)
-        self.at_threshold = np.array([any(m.at_threshold for m in modes) for _, modes in per_energy])
         if self.solver == "dissection":
-            self._prepare_tree(per_energy)
+            self._prepare_tree()
         else:
             self._prepare_layers()
 
@@ -130,8 +127,10 @@ class DisorderSampler:
         self._chunks = [(slice(s, min(s + ENERGY_CHUNK, len(e))),
                          _end_terms(self.model, blocks, e[s:s + ENERGY_CHUNK], self.eta))
                         for s in range(0, len(e), ENERGY_CHUNK)]
+        self.n_open = np.concatenate([terms[2] for _, terms in self._chunks])
+        self.at_threshold = np.concatenate([terms[3] for _, terms in self._chunks])
 
-    def _prepare_tree(self, per_energy):
+    def _prepare_tree(self):
         from rgftrans.transport.dissection import dissection_plan
 
         plan = dissection_plan(self.model)
@@ -146,7 +145,9 @@ class DisorderSampler:
         self._plan = plan
         self._clean_diag = plan.entry_val[self._diag_pos].copy()
         self._work = dataclasses.replace(plan, entry_val=plan.entry_val.copy())
-        self._lead_terms = per_energy
+        self._lead_terms = [lead_self_energies(self.model, e, warn=False) for e in self.energies]
+        self.n_open = np.array([[m.n_open for m in modes] for _, modes in self._lead_terms], dtype=np.int64)
+        self.at_threshold = np.array([any(m.at_threshold for m in modes) for _, modes in self._lead_terms])
 
     # -- samples -------------------------------------------------------------------------------------------
 
@@ -158,7 +159,10 @@ class DisorderSampler:
 
     def model_of(self, seed: int, width_meV: float | None = None) -> TightBindingModel:
         """Sample ``seed`` as a model of its own (for maps, LDOS or a check); built on demand, not cached."""
-        values = np.repeat(self.onsite(seed, width_meV), self._orbitals)
+        return self._model_with(np.repeat(self.onsite(seed, width_meV), self._orbitals))
+
+    def _model_with(self, values: np.ndarray) -> TightBindingModel:
+        """The clean model plus the onsite energies ``values`` (meV, one per orbital)."""
         return dataclasses.replace(self.model, hamiltonian=self.model.hamiltonian + sp.diags(values, format="csr"))
 
     def transmission(self, seed: int, width_meV: float | None = None) -> np.ndarray:
@@ -181,8 +185,7 @@ class DisorderSampler:
             from rgftrans.transport.rgf import _direct_fallback
 
             if "model" not in lazy:
-                lazy["model"] = dataclasses.replace(
-                    self.model, hamiltonian=self.model.hamiltonian + sp.diags(values, format="csr"))
+                lazy["model"] = self._model_with(values)
             return _direct_fallback(lazy["model"], energy, self.eta)
 
         if self.solver == "dissection":
@@ -306,10 +309,11 @@ class EnsembleResult:
         """One line per energy: <G> and var(G) with their standard errors in 2e^2/h units, and the regime."""
         lines = [f"{self.n_samples} samples of W = {self.width_meV:.4g} meV box disorder ({self.solver}); "
                  "coherent single-particle transport (Landauer), no charging energy"]
-        for k, e in enumerate(self.energies):
-            lines.append(f"  E = {e:.6g} meV: <G> = {self.mean_g0[k]:.4f} +- {self.mean_error_g0[k]:.4f} 2e^2/h, "
-                         f"var G = {self.variance_g0[k]:.4f} +- {self.variance_error_g0[k]:.4f} (2e^2/h)^2, "
-                         f"{self.n_open[k, 0]} channel(s), {self.regime[k]}")
+        rows = zip(self.energies, self.mean_g0, self.mean_error_g0, self.variance_g0, self.variance_error_g0,
+                   self.n_open[:, 0], self.regime)
+        for e, mean, mean_err, var, var_err, n, regime in rows:
+            lines.append(f"  E = {e:.6g} meV: <G> = {mean:.4f} +- {mean_err:.4f} 2e^2/h, "
+                         f"var G = {var:.4f} +- {var_err:.4f} (2e^2/h)^2, {n} channel(s), {regime}")
         return "\n".join(lines)
 
 
