@@ -37,6 +37,7 @@ def plot_fluctuations(results, labels=None, *, axes=None):
         axes[1].errorbar(r.energies, r.variance_g0, yerr=r.variance_error_g0, fmt="o", ms=4, capsize=3, label=label)
     axes[0].set_xlabel("conductance deviation G − ⟨G⟩ (2e²/h)")
     axes[0].set_ylabel("probability density (per 2e²/h)")
+    axes[0].set_ylim(0, 1.3 * axes[0].get_ylim()[1])  # room for the legend above the tallest bin
     axes[0].legend(frameon=False, fontsize="small", loc="upper left")
     axes[0].set_title(f"{results[0].n_samples} disorder samples per ensemble", fontsize="medium")
     for (name, value), style in zip(UCF_VARIANCE.items(), ("--", ":")):
